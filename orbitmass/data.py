@@ -1,0 +1,179 @@
+"""In-memory datasets: a target, its companions, tables and priors, validated.
+
+These containers are what :mod:`orbitmass.io.target` builds from a target file
+and what the model and likelihood consume. Every array is a plain float array
+in internal units (:mod:`orbitmass.units`); angles of priors are in radians.
+Instances are frozen; arrays are made read-only on construction.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+
+from orbitmass.priors import Prior
+
+__all__ = ["Astrometry", "Velocities", "Instrument", "Companion", "Distance", "Target"]
+
+COMPANION_PRIOR_KEYS = (
+    "period",
+    "eccentricity",
+    "inclination",
+    "arg_periastron",
+    "ascending_node",
+    "mean_anomaly",
+    "periastron_time",
+    "mass_ratio",
+)
+CENTRAL_PRIOR_KEYS = ("mass", "x0", "y0", "vx0", "vy0", "vz0", "systemic")
+
+
+def _freeze(*arrays: NDArray) -> None:
+    for a in arrays:
+        if isinstance(a, np.ndarray):
+            a.flags.writeable = False
+
+
+@dataclass(frozen=True)
+class Astrometry:
+    """Relative (or absolute-frame) positions of one companion.
+
+    Each row is either Cartesian (``polar[k] == False``: ``value1`` = east
+    offset, ``value2`` = north offset, both mas) or polar (``polar[k] ==
+    True``: ``value1`` = separation rho in mas, ``value2`` = position angle
+    theta in degrees, north through east). ``err1``, ``err2`` are the
+    matching 1-sigma errors (mas, or mas and deg) and ``corr`` their
+    correlation (0 when not given). ``t_yr`` are Julian-year epochs (TDB).
+    ``lines`` are the 1-based line numbers in ``source`` (for messages).
+    All arrays have shape ``(n,)`` and are sorted by epoch.
+    """
+
+    t_yr: NDArray[np.float64]
+    polar: NDArray[np.bool_]
+    value1: NDArray[np.float64]
+    value2: NDArray[np.float64]
+    err1: NDArray[np.float64]
+    err2: NDArray[np.float64]
+    corr: NDArray[np.float64]
+    source: str = ""
+    lines: NDArray[np.int64] = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+
+    def __post_init__(self) -> None:
+        _freeze(self.t_yr, self.polar, self.value1, self.value2, self.err1, self.err2, self.corr)
+
+    def __len__(self) -> int:
+        return int(self.t_yr.size)
+
+    def east_north(self) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """East and north offsets (mas) of every row, polar rows converted."""
+        theta = np.deg2rad(self.value2)
+        east = np.where(self.polar, self.value1 * np.sin(theta), self.value1)
+        north = np.where(self.polar, self.value1 * np.cos(theta), self.value2)
+        return east, north
+
+    def east_north_errors(self) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """Approximate 1-sigma east and north errors (mas), for plotting only."""
+        theta = np.deg2rad(self.value2)
+        sig_t = np.deg2rad(self.err2) * self.value1
+        s, c = np.sin(theta), np.cos(theta)
+        e_pol = np.sqrt((s * self.err1) ** 2 + (c * sig_t) ** 2)
+        n_pol = np.sqrt((c * self.err1) ** 2 + (s * sig_t) ** 2)
+        return np.where(self.polar, e_pol, self.err1), np.where(self.polar, n_pol, self.err2)
+
+
+@dataclass(frozen=True)
+class Velocities:
+    """Line-of-sight velocities (km/s, positive = receding) of one companion's system.
+
+    ``instrument`` holds the instrument name of every row; ``central`` is True
+    where the row measures the central body rather than the companion.
+    Arrays have shape ``(n,)`` and are sorted by epoch.
+    """
+
+    t_yr: NDArray[np.float64]
+    rv_kms: NDArray[np.float64]
+    rv_err_kms: NDArray[np.float64]
+    instrument: NDArray[np.str_]
+    central: NDArray[np.bool_]
+    source: str = ""
+    lines: NDArray[np.int64] = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+
+    def __post_init__(self) -> None:
+        _freeze(self.t_yr, self.rv_kms, self.rv_err_kms, self.instrument, self.central)
+
+    def __len__(self) -> int:
+        return int(self.t_yr.size)
+
+
+@dataclass(frozen=True)
+class Instrument:
+    """An RV instrument: zero-point ``offset`` and ``jitter`` priors (km/s)."""
+
+    name: str
+    offset: Prior
+    jitter: Prior
+
+
+@dataclass(frozen=True)
+class Companion:
+    """One tracked companion: its data and element priors.
+
+    ``priors`` maps each key of ``COMPANION_PRIOR_KEYS`` that applies to a
+    :class:`~orbitmass.priors.Prior` (defaults filled in by the reader).
+    Units: period in rest-frame Julian years, angles in radians,
+    ``periastron_time`` in Julian years (observed timeline), eccentricity and
+    mass ratio bare. Exactly one of ``mean_anomaly`` / ``periastron_time`` is
+    present. ``mass_ratio`` is present only when central-body velocities exist.
+    """
+
+    name: str
+    astrometry: Astrometry | None
+    velocities: Velocities | None
+    priors: dict[str, Prior]
+    plane: str | None = None
+
+    @property
+    def has_central_velocities(self) -> bool:
+        """True when some velocity rows measure the central body."""
+        return self.velocities is not None and bool(np.any(self.velocities.central))
+
+    @property
+    def has_velocities(self) -> bool:
+        """True when any velocity row exists for this companion's system."""
+        return self.velocities is not None and len(self.velocities) > 0
+
+
+@dataclass(frozen=True)
+class Distance:
+    """Distance information: at most one of ``prior`` (pc) and ``parallax`` (mas),
+    and/or a ``redshift`` with an astropy cosmology name."""
+
+    prior: Prior | None = None
+    parallax: Prior | None = None
+    redshift: float | None = None
+    cosmology: str = "Planck18"
+
+
+@dataclass(frozen=True)
+class Target:
+    """Everything a fit needs: data, priors and conventions of one target file.
+
+    ``central_priors`` maps keys of ``CENTRAL_PRIOR_KEYS`` to priors: always
+    ``mass`` (Msun, total mass); ``x0``, ``y0`` (mas), ``vx0``, ``vy0``
+    (mas/yr), ``vz0`` (km/s) when ``frame == "absolute"``; ``systemic``
+    (km/s) in the relative frame. ``instruments`` keeps declaration order
+    (the first is the zero point). ``reference_epoch`` is a Julian year,
+    already resolved to the mean data epoch when the file gave none.
+    """
+
+    name: str
+    reference_epoch: float
+    frame: str
+    central_priors: dict[str, Prior]
+    distance: Distance
+    instruments: dict[str, Instrument]
+    companions: tuple[Companion, ...]
+    source: str = ""
+    data_sha256: str = ""

@@ -1,0 +1,1 @@
+"""Readers and writers: target files, tables, run folders."""
