@@ -1,0 +1,590 @@
+"""Reader of target files (TOML), as in ``input-format.md``.
+
+:func:`read_target` parses the file with :mod:`tomllib` (no code is
+executed), reads every table it names (paths relative to the target file)
+and returns one validated :class:`~orbitmass.data.Target` with every prior
+filled in. Every error is one :class:`~orbitmass.exceptions.InputError` that
+names the file and the dotted key, or the table file and its line.
+
+Dotted key scheme of the error messages
+    TOML paths, with companions numbered from 0 in file order:
+    ``target.reference_epoch``, ``central.mass.low``, ``distance.parallax.sd``,
+    ``instruments.spec-a.offset.mean``, ``companion[0].period.low``,
+    ``companion[1].astrometry``. Table errors name the table file, its line
+    and the column.
+
+Units of the priors (internal units, :mod:`orbitmass.units`)
+    ``mass`` Msun; ``x0``, ``y0`` mas; ``vx0``, ``vy0`` mas/yr; ``vz0``,
+    ``systemic``, instrument ``offset`` and ``jitter`` km/s; distance
+    ``prior`` pc; ``parallax`` mas; ``period`` Julian years (rest frame);
+    ``inclination``, ``arg_periastron``, ``ascending_node``, ``mean_anomaly``
+    radians (given with any angle unit, e.g. ``"30 deg"``); bare numbers for
+    ``eccentricity``, ``mass_ratio`` and ``periastron_time`` (Julian year).
+
+Defaults where the target file gives no prior
+    ============================  ==============================================
+    ``mass``                      LogUniform(1e-3, 1e11) Msun
+    ``frame``                     ``"relative"``
+    ``systemic`` (relative frame) Fixed(0) km/s
+    ``x0``, ``y0`` (absolute)     Uniform(-1e4, 1e4) mas
+    ``vx0``, ``vy0`` (absolute)   Uniform(-1e3, 1e3) mas/yr
+    ``vz0`` (absolute)            Uniform(-1e4, 1e4) km/s
+    ``period``                    LogUniform(1 d, 1e4 yr), in yr
+    ``eccentricity``              Uniform(0, 1)
+    ``inclination``               Isotropic()
+    ``arg_periastron``            Uniform(0, 2 pi); Fixed(0) when the
+                                  eccentricity prior is fixed at 0
+    ``ascending_node``            Uniform(0, 2 pi)
+    ``mean_anomaly``              Uniform(0, 2 pi), absent when a
+                                  ``periastron_time`` prior is given
+    ``mass_ratio``                Uniform(0, 1), present only when the
+                                  companion's velocity table has
+                                  ``body = central`` rows
+    instrument ``offset``         Fixed(0) km/s for the zero-point instrument,
+                                  Uniform(-100, 100) km/s for every other one
+    instrument ``jitter``         Fixed(0) km/s
+    ``reference_epoch``           mean epoch of all rows of all tables
+    ``target.name``               the target file name without extension
+    ``distance.cosmology``        ``"Planck18"``
+    ============================  ==============================================
+
+Instruments are ordered as declared (``[instruments.NAME]`` tables in file
+order); rows of a velocity table without an ``instrument`` column belong to
+the instrument ``"default"``, which needs no declaration (a declared
+``[instruments.default]`` gives its priors) and, when undeclared, comes after
+the declared ones. The zero point is the first instrument in that order that
+some velocity row uses (declared but unused instruments are kept, logged, and
+never the zero point unless none is used). Companions sharing a ``plane``
+share one inclination and one ascending-node prior (given at most once, or
+identically). The tables ``[fit]`` and ``[output]`` are reserved for run
+options and are ignored here.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+import math
+import os
+import re
+import tomllib
+from pathlib import Path
+from typing import Any
+
+import astropy.units as u
+import numpy as np
+
+from orbitmass.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
+from orbitmass.exceptions import InputError
+from orbitmass.io.tables import (
+    DEFAULT_INSTRUMENT,
+    astrometry_from_bytes,
+    decode_text,
+    load_bytes,
+    velocities_from_bytes,
+)
+from orbitmass.priors import FAMILIES, Fixed, Isotropic, LogUniform, Prior, Uniform
+from orbitmass.units import DAYS_PER_YEAR, parse_quantity
+
+__all__ = ["read_target", "parse_prior", "DEFAULT_PRIORS"]
+
+logger = logging.getLogger(__name__)
+
+_TWO_PI = 2.0 * math.pi
+#: mas -> rad, for orientation angles (parse_quantity returns sky angles in mas)
+_MAS_TO_RAD = float((1.0 * u.mas).to_value(u.rad))
+
+#: Default priors (internal units) of the central body, companions and instruments.
+DEFAULT_PRIORS: dict[str, Prior] = {
+    "mass": LogUniform(1e-3, 1e11),
+    "systemic": Fixed(0.0),
+    "x0": Uniform(-1e4, 1e4),
+    "y0": Uniform(-1e4, 1e4),
+    "vx0": Uniform(-1e3, 1e3),
+    "vy0": Uniform(-1e3, 1e3),
+    "vz0": Uniform(-1e4, 1e4),
+    "period": LogUniform(1.0 / DAYS_PER_YEAR, 1e4),
+    "eccentricity": Uniform(0.0, 1.0),
+    "inclination": Isotropic(),
+    "arg_periastron": Uniform(0.0, _TWO_PI),
+    "ascending_node": Uniform(0.0, _TWO_PI),
+    "mean_anomaly": Uniform(0.0, _TWO_PI),
+    "mass_ratio": Uniform(0.0, 1.0),
+    "offset_first": Fixed(0.0),
+    "offset": Uniform(-100.0, 100.0),
+    "jitter": Fixed(0.0),
+}
+
+# key -> (physical type or None for bare numbers, factor applied after parse_quantity)
+_CENTRAL_UNITS: dict[str, tuple[str | None, float]] = {
+    "mass": ("mass", 1.0),
+    "x0": ("angle", 1.0),
+    "y0": ("angle", 1.0),
+    "vx0": ("angular speed", 1.0),
+    "vy0": ("angular speed", 1.0),
+    "vz0": ("speed", 1.0),
+    "systemic": ("speed", 1.0),
+}
+_COMPANION_UNITS: dict[str, tuple[str | None, float]] = {
+    "period": ("time", 1.0),
+    "eccentricity": (None, 1.0),
+    "inclination": ("angle", _MAS_TO_RAD),
+    "arg_periastron": ("angle", _MAS_TO_RAD),
+    "ascending_node": ("angle", _MAS_TO_RAD),
+    "mean_anomaly": ("angle", _MAS_TO_RAD),
+    "periastron_time": (None, 1.0),
+    "mass_ratio": (None, 1.0),
+}
+_ABSOLUTE_ONLY = ("x0", "y0", "vx0", "vy0", "vz0")
+_PLANE_KEYS = ("inclination", "ascending_node")
+
+# physical ranges: key -> (low, high, low included, high included)
+_RANGES: dict[str, tuple[float, float, bool, bool]] = {
+    "mass": (0.0, math.inf, False, False),
+    "period": (0.0, math.inf, False, False),
+    "distance": (0.0, math.inf, False, False),
+    "parallax": (0.0, math.inf, False, False),
+    "eccentricity": (0.0, 1.0, True, False),
+    "mass_ratio": (0.0, math.inf, True, False),
+    "jitter": (0.0, math.inf, True, False),
+    "inclination": (0.0, math.pi, True, True),
+}
+
+_TOP_LEVEL = ("target", "central", "distance", "instruments", "companion")
+_IGNORED = ("fit", "output")
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def _table(value: object, key: str, where: str) -> dict[str, Any]:
+    if not isinstance(value, dict):
+        raise InputError(f"expected a table ([{key}] or {{ ... }}), got {value!r}", file=where,
+                         key=key)
+    return value
+
+
+def _no_unknown(table: dict[str, Any], allowed: tuple[str, ...], prefix: str, where: str) -> None:
+    for k in table:
+        if k not in allowed:
+            raise InputError(f"unknown key '{k}'; allowed here: {', '.join(allowed)}",
+                             file=where, key=f"{prefix}.{k}" if prefix else k)
+
+
+def _bare_number(value: object, key: str, where: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise InputError(f"expected a bare number, got {value!r}", file=where, key=key)
+    if not math.isfinite(value):
+        raise InputError(f"expected a finite number, got {value!r}", file=where, key=key)
+    return float(value)
+
+
+def _string(value: object, key: str, where: str) -> str:
+    if not isinstance(value, str) or not value.strip():
+        raise InputError(f"expected a non-empty string, got {value!r}", file=where, key=key)
+    return value.strip()
+
+
+def _check_range(prior: Prior, kind: str, key: str, where: str) -> None:
+    low, high, low_in, high_in = _RANGES[kind]
+    if prior.fixed:
+        v = prior.support[0]
+        ok = (v > low or (low_in and v == low)) and (v < high or (high_in and v == high))
+    else:
+        a, b = prior.support
+        ok = b > low and a < high
+    if not ok:
+        span = f"{'[' if low_in else '('}{low:g}, {high:g}{']' if high_in else ')'}"
+        raise InputError(f"prior {prior.describe()} lies outside the allowed range {span} "
+                         "(internal units)", file=where, key=key)
+
+
+def parse_prior(
+    spec: object,
+    key: str,
+    physical_type: str | None,
+    where: str,
+    *,
+    factor: float = 1.0,
+    allow_isotropic: bool = False,
+) -> Prior:
+    """Build a prior from its inline table ``{ dist = ..., ... }``.
+
+    Parameters
+    ----------
+    spec : dict
+        The TOML inline table.
+    key : str
+        Dotted key of the prior (e.g. ``companion[0].period``), for messages.
+    physical_type : str or None
+        Physical type of the values (a key of ``orbitmass.units.INTERNAL_UNITS``),
+        or None when they are bare numbers.
+    where : str
+        The target file, for messages.
+    factor : float
+        Multiplies each parsed value (mas -> rad for orientation angles).
+    allow_isotropic : bool
+        Whether ``dist = "isotropic"`` is accepted (inclination only).
+
+    Returns
+    -------
+    Prior
+        The prior, values in internal units times ``factor``.
+
+    Raises
+    ------
+    InputError
+        On an unknown ``dist``, missing or unknown keys, a bare number where a
+        unit is required (or the reverse), ``sd <= 0``, ``low >= high`` or a
+        log-uniform ``low <= 0``.
+
+    Examples
+    --------
+    >>> parse_prior({"dist": "uniform", "low": "1 kpc", "high": "2 kpc"}, "distance.prior",
+    ...             "length", "t.toml")
+    Uniform(low=1000.0, high=2000.0)
+    """
+    if not isinstance(spec, dict):
+        raise InputError(f"expected a prior as an inline table like {{ dist = \"uniform\", "
+                         f"low = ..., high = ... }}, got {spec!r}", file=where, key=key)
+    dist = spec.get("dist")
+    allowed = [d for d in FAMILIES if allow_isotropic or d != "isotropic"]
+    if dist not in allowed:
+        hint = " ('isotropic' is for inclination only)" if dist == "isotropic" else ""
+        raise InputError(f"unknown prior dist {dist!r}{hint}; expected one of "
+                         f"{', '.join(allowed)}", file=where, key=f"{key}.dist")
+    cls, required = FAMILIES[dist]
+    _no_unknown(spec, ("dist",) + required, key, where)
+    values: dict[str, float] = {}
+    for name in required:
+        sub = f"{key}.{name}"
+        if name not in spec:
+            raise InputError(f"missing '{name}': a {dist} prior needs {', '.join(required)}",
+                             file=where, key=sub)
+        if physical_type is None:
+            values[name] = _bare_number(spec[name], sub, where)
+        else:
+            values[name] = parse_quantity(spec[name], physical_type, key=sub, where=where)
+        values[name] *= factor
+    if "sd" in values and not values["sd"] > 0.0:
+        raise InputError(f"sd must be positive, got {spec['sd']!r}", file=where, key=f"{key}.sd")
+    if "low" in values and not values["low"] < values["high"]:
+        raise InputError(f"low ({spec['low']!r}) must be below high ({spec['high']!r})",
+                         file=where, key=f"{key}.low")
+    if dist == "log-uniform" and not values["low"] > 0.0:
+        raise InputError(f"a log-uniform prior needs low > 0, got {spec['low']!r}", file=where,
+                         key=f"{key}.low")
+    return cls(**values)
+
+
+# --------------------------------------------------------------------------- sections
+
+
+def _read_toml(path: str | os.PathLike[str]) -> tuple[dict[str, Any], bytes, str]:
+    where = str(path)
+    data = load_bytes(path)
+    text = decode_text(data, where)
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        match = re.search(r"line (\d+)", str(exc))
+        line = int(match.group(1)) if match else None
+        raise InputError(f"TOML syntax error: {exc}", file=where, line=line) from None
+    for k in doc:
+        if k in _IGNORED:
+            continue
+        if k not in _TOP_LEVEL:
+            raise InputError(f"unknown top-level key '{k}'; expected "
+                             f"{', '.join(_TOP_LEVEL + _IGNORED)}", file=where, key=k)
+    return doc, data, where
+
+
+def _central(doc: dict[str, Any], where: str) -> tuple[str, dict[str, Prior]]:
+    central = _table(doc.get("central", {}), "central", where)
+    _no_unknown(central, ("frame",) + tuple(_CENTRAL_UNITS), "central", where)
+    frame = central.get("frame", "relative")
+    if frame not in ("relative", "absolute"):
+        raise InputError(f"frame must be \"relative\" or \"absolute\", got {frame!r}",
+                         file=where, key="central.frame")
+    if frame == "absolute":
+        keys: tuple[str, ...] = ("mass",) + _ABSOLUTE_ONLY
+        if "systemic" in central:
+            raise InputError("no 'systemic' in the absolute frame: vz0 is the line-of-sight "
+                             "velocity there", file=where, key="central.systemic")
+    else:
+        keys = ("mass", "systemic")
+        for k in _ABSOLUTE_ONLY:
+            if k in central:
+                raise InputError(f"'{k}' applies only with frame = \"absolute\"", file=where,
+                                 key=f"central.{k}")
+    priors: dict[str, Prior] = {}
+    for k in keys:
+        if k in central:
+            ptype, factor = _CENTRAL_UNITS[k]
+            priors[k] = parse_prior(central[k], f"central.{k}", ptype, where, factor=factor)
+        else:
+            priors[k] = DEFAULT_PRIORS[k]
+    _check_range(priors["mass"], "mass", "central.mass", where)
+    return frame, priors
+
+
+def _distance(doc: dict[str, Any], where: str) -> Distance:
+    if "distance" not in doc:
+        raise InputError("missing [distance] table: give prior, parallax and/or redshift",
+                         file=where, key="distance")
+    dist = _table(doc["distance"], "distance", where)
+    _no_unknown(dist, ("prior", "parallax", "redshift", "cosmology"), "distance", where)
+    if "prior" in dist and "parallax" in dist:
+        raise InputError("give ONE of 'prior' (distance) and 'parallax', not both", file=where,
+                         key="distance.parallax")
+    prior = parallax = redshift = None
+    if "prior" in dist:
+        prior = parse_prior(dist["prior"], "distance.prior", "length", where)
+        _check_range(prior, "distance", "distance.prior", where)
+    if "parallax" in dist:
+        parallax = parse_prior(dist["parallax"], "distance.parallax", "angle", where)
+        _check_range(parallax, "parallax", "distance.parallax", where)
+    if "redshift" in dist:
+        redshift = _bare_number(dist["redshift"], "distance.redshift", where)
+        if not redshift > -1.0:
+            raise InputError(f"redshift must be > -1, got {redshift!r}", file=where,
+                             key="distance.redshift")
+        if prior is None and parallax is None and not redshift > 0.0:
+            raise InputError(f"a redshift alone sets the distance and must be > 0, got "
+                             f"{redshift!r}; add a distance prior or parallax for a "
+                             "blueshifted or zero-redshift host", file=where,
+                             key="distance.redshift")
+    if prior is None and parallax is None and redshift is None:
+        raise InputError("no distance information: give prior, parallax and/or redshift",
+                         file=where, key="distance")
+    cosmology = "Planck18"
+    if "cosmology" in dist:
+        if redshift is None:
+            raise InputError("'cosmology' is used only with a redshift", file=where,
+                             key="distance.cosmology")
+        from astropy.cosmology import realizations
+
+        cosmology = dist["cosmology"]
+        if cosmology not in realizations.available:
+            raise InputError(f"unknown cosmology {cosmology!r}; expected one of "
+                             f"{', '.join(realizations.available)}", file=where,
+                             key="distance.cosmology")
+    return Distance(prior=prior, parallax=parallax, redshift=redshift, cosmology=cosmology)
+
+
+def _declared_instruments(doc: dict[str, Any], where: str) -> dict[str, dict[str, Prior]]:
+    table = _table(doc.get("instruments", {}), "instruments", where)
+    declared: dict[str, dict[str, Prior]] = {}
+    for name, spec in table.items():
+        key = f"instruments.{name}"
+        if not name.strip():
+            raise InputError("instrument names must not be empty", file=where, key=key)
+        spec = _table(spec, key, where)
+        _no_unknown(spec, ("offset", "jitter"), key, where)
+        declared[name] = {}
+        for k in ("offset", "jitter"):
+            if k in spec:
+                declared[name][k] = parse_prior(spec[k], f"{key}.{k}", "speed", where)
+        if "jitter" in declared[name]:
+            _check_range(declared[name]["jitter"], "jitter", f"{key}.jitter", where)
+    return declared
+
+
+def _companion_priors(
+    spec: dict[str, Any], key: str, where: str, velocities: Velocities | None
+) -> dict[str, Prior]:
+    given: dict[str, Prior] = {}
+    for k, (ptype, factor) in _COMPANION_UNITS.items():
+        if k in spec:
+            given[k] = parse_prior(spec[k], f"{key}.{k}", ptype, where, factor=factor,
+                                   allow_isotropic=k == "inclination")
+            if k in _RANGES:
+                _check_range(given[k], k, f"{key}.{k}", where)
+    if "mean_anomaly" in given and "periastron_time" in given:
+        raise InputError("give either mean_anomaly or periastron_time, not both", file=where,
+                         key=f"{key}.periastron_time")
+    has_central = velocities is not None and bool(np.any(velocities.central))
+    if "mass_ratio" in given and not has_central:
+        raise InputError("a mass_ratio prior needs central-body velocities (rows with "
+                         "body = central in the velocity table); without them the companion is "
+                         "a test particle", file=where, key=f"{key}.mass_ratio")
+    priors = dict(given)
+    for k in ("period", "eccentricity", "inclination", "arg_periastron", "ascending_node"):
+        priors.setdefault(k, DEFAULT_PRIORS[k])
+    if "periastron_time" not in priors:
+        priors.setdefault("mean_anomaly", DEFAULT_PRIORS["mean_anomaly"])
+    if has_central:
+        priors.setdefault("mass_ratio", DEFAULT_PRIORS["mass_ratio"])
+    circular = priors["eccentricity"] == Fixed(0.0)
+    if circular:
+        if "arg_periastron" in given and given["arg_periastron"] != Fixed(0.0):
+            raise InputError("with eccentricity fixed at 0 the argument of periastron is "
+                             "undefined; remove this prior (it is held at 0)", file=where,
+                             key=f"{key}.arg_periastron")
+        priors["arg_periastron"] = Fixed(0.0)
+    return priors
+
+
+def _companion_tables(
+    spec: dict[str, Any], key: str, where: str, base: Path
+) -> tuple[Astrometry | None, Velocities | None, list[bytes]]:
+    blobs: list[bytes] = []
+    tables: list[Astrometry | Velocities | None] = []
+    for k, parse in (("astrometry", astrometry_from_bytes), ("velocities", velocities_from_bytes)):
+        if k not in spec:
+            tables.append(None)
+            continue
+        rel = _string(spec[k], f"{key}.{k}", where)
+        path = base / rel
+        data = load_bytes(path, key=f"{key}.{k}", where=where)
+        blobs.append(data)
+        tables.append(parse(data, str(path)))
+    astrometry, velocities = tables
+    if astrometry is None and velocities is None:
+        raise InputError("companion has no data: give 'astrometry' and/or 'velocities' (paths "
+                         "to tables)", file=where, key=key)
+    return astrometry, velocities, blobs  # type: ignore[return-value]
+
+
+def _share_planes(drafts: list[dict[str, Any]], where: str) -> None:
+    planes: dict[str, list[int]] = {}
+    for i, d in enumerate(drafts):
+        if d["plane"] is not None:
+            planes.setdefault(d["plane"], []).append(i)
+    for members in planes.values():
+        for k in _PLANE_KEYS:
+            explicit = [(i, drafts[i]["given"][k]) for i in members if k in drafts[i]["given"]]
+            if not explicit:
+                continue
+            first_i, first = explicit[0]
+            for i, prior in explicit[1:]:
+                if prior != first:
+                    raise InputError(f"companions in plane {drafts[i]['plane']!r} share one {k}; "
+                                     f"its prior differs from that of companion[{first_i}]",
+                                     file=where, key=f"companion[{i}].{k}")
+            for i in members:
+                drafts[i]["priors"][k] = first
+
+
+def _instruments(
+    declared: dict[str, dict[str, Prior]], companions: list[Companion], where: str
+) -> dict[str, Instrument]:
+    names = list(declared)
+    for comp in companions:
+        v = comp.velocities
+        if v is None:
+            continue
+        unknown = [j for j, n in enumerate(v.instrument) if n not in declared
+                   and n != DEFAULT_INSTRUMENT]
+        if unknown:
+            j = min(unknown, key=lambda jj: v.lines[jj])
+            raise InputError(
+                f"instrument {str(v.instrument[j])!r} is not declared; add an "
+                f"[instruments.{v.instrument[j]}] table to {where}"
+                + (f" (declared: {', '.join(declared)})" if declared else ""),
+                file=v.source, line=int(v.lines[j]), key="instrument")
+        if DEFAULT_INSTRUMENT in v.instrument and DEFAULT_INSTRUMENT not in names:
+            names.append(DEFAULT_INSTRUMENT)
+    used = {str(n) for c in companions if c.velocities is not None for n in c.velocities.instrument}
+    for name in names:
+        if name not in used:
+            logger.warning("%s: instrument %r is declared but no velocity row uses it", where,
+                           name)
+    zero_point = next((n for n in names if n in used), names[0] if names else "")
+    out: dict[str, Instrument] = {}
+    for name in names:
+        spec = declared.get(name, {})
+        offset = spec.get("offset", DEFAULT_PRIORS["offset_first" if name == zero_point
+                                                   else "offset"])
+        out[name] = Instrument(name=name, offset=offset,
+                               jitter=spec.get("jitter", DEFAULT_PRIORS["jitter"]))
+    return out
+
+
+# --------------------------------------------------------------------------- public
+
+
+def read_target(path: str | os.PathLike[str]) -> Target:
+    """Read a target file and every table it names.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The target file (TOML); table paths in it are relative to its folder.
+
+    Returns
+    -------
+    Target
+        Data in internal units, every prior resolved (defaults in the module
+        docstring), ``reference_epoch`` resolved, ``data_sha256`` the SHA-256
+        of the target file bytes followed by each table's bytes in companion
+        order (astrometry before velocities).
+
+    Raises
+    ------
+    InputError
+        On any problem, naming the file and the dotted key or table line.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> d = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (d / "c1.csv").write_text("jyear,rv_kms,rv_err_kms\\n2020,1,0.1\\n2022,2,0.1\\n")
+    >>> _ = (d / "t.toml").write_text('[distance]\\nparallax = { dist = "fixed", '
+    ...     'value = "2 mas" }\\n[[companion]]\\nname = "C1"\\nvelocities = "c1.csv"\\n')
+    >>> t = read_target(d / "t.toml")
+    >>> t.reference_epoch, t.distance.parallax, list(t.instruments)
+    (2021.0, Fixed(value=2.0), ['default'])
+    """
+    doc, data, where = _read_toml(path)
+    base = Path(path).parent
+    head = _table(doc.get("target", {}), "target", where)
+    _no_unknown(head, ("name", "reference_epoch"), "target", where)
+    name = _string(head["name"], "target.name", where) if "name" in head else Path(path).stem
+    frame, central_priors = _central(doc, where)
+    distance = _distance(doc, where)
+    declared = _declared_instruments(doc, where)
+
+    entries = doc.get("companion")
+    if entries is None:
+        raise InputError("no companion: add at least one [[companion]] table", file=where,
+                         key="companion")
+    if not isinstance(entries, list) or not entries:
+        raise InputError("expected one or more [[companion]] tables (double brackets)",
+                         file=where, key="companion")
+    allowed = ("name", "astrometry", "velocities", "plane") + tuple(_COMPANION_UNITS)
+    drafts: list[dict[str, Any]] = []
+    blobs = [data]
+    for i, spec in enumerate(entries):
+        key = f"companion[{i}]"
+        spec = _table(spec, key, where)
+        _no_unknown(spec, allowed, key, where)
+        cname = _string(spec["name"], f"{key}.name", where) if "name" in spec else f"C{i + 1}"
+        if any(d["name"] == cname for d in drafts):
+            raise InputError(f"companion name {cname!r} is used twice", file=where,
+                             key=f"{key}.name")
+        plane = _string(spec["plane"], f"{key}.plane", where) if "plane" in spec else None
+        astrometry, velocities, table_bytes = _companion_tables(spec, key, where, base)
+        blobs.extend(table_bytes)
+        priors = _companion_priors(spec, key, where, velocities)
+        given = {k: priors[k] for k in _PLANE_KEYS if k in spec}
+        drafts.append(dict(name=cname, plane=plane, astrometry=astrometry,
+                           velocities=velocities, priors=priors, given=given))
+    _share_planes(drafts, where)
+    companions = [Companion(name=d["name"], astrometry=d["astrometry"],
+                            velocities=d["velocities"], priors=d["priors"], plane=d["plane"])
+                  for d in drafts]
+    instruments = _instruments(declared, companions, where)
+
+    if "reference_epoch" in head:
+        reference_epoch = _bare_number(head["reference_epoch"], "target.reference_epoch", where)
+    else:
+        epochs = [tab.t_yr for c in companions for tab in (c.astrometry, c.velocities)
+                  if tab is not None]
+        reference_epoch = float(np.mean(np.concatenate(epochs)))
+    digest = hashlib.sha256()
+    for blob in blobs:
+        digest.update(blob)
+    return Target(name=name, reference_epoch=reference_epoch, frame=frame,
+                  central_priors=central_priors, distance=distance, instruments=instruments,
+                  companions=tuple(companions), source=where, data_sha256=digest.hexdigest())
