@@ -150,6 +150,17 @@ def test_given_priors_in_other_units(tmp_path):
     assert "mean_anomaly" not in p
 
 
+def test_orientation_angles_converted_by_astropy(tmp_path):
+    toml = DIST + COMP + ('inclination = { dist = "fixed", value = "180 deg" }\n'
+                          'mean_anomaly = { dist = "uniform", low = "0 deg", high = "360 deg" }\n'
+                          'ascending_node = { dist = "uniform", low = "0 rad", high = "1 rad" }\n')
+    p = read_target(make(tmp_path, toml)).companions[0].priors
+    # astropy deg -> rad: 180 deg is pi and 360 deg is 2 pi to the last bit
+    assert p["inclination"] == Fixed((180 * u.deg).to_value(u.rad)) == Fixed(math.pi)
+    assert p["mean_anomaly"] == Uniform(0.0, 2 * math.pi)
+    assert p["ascending_node"] == Uniform(0.0, 1.0)
+
+
 def test_parallax_versus_distance_prior(tmp_path):
     toml = '[distance]\nparallax = { dist = "normal", mean = "125 uas", sd = "4 uas" }\n' + COMP
     t = read_target(make(tmp_path, toml))
@@ -250,7 +261,10 @@ def test_data_checksum(tmp_path):
                 {"pos.csv": POS, "rv.csv": RV, "rv2.csv": RV + "2024,1,1\n"})
     expected = hashlib.sha256(path.read_bytes() + POS.encode() + RV.encode()
                               + (RV + "2024,1,1\n").encode()).hexdigest()  # FIPS 180-4
+    before = {f.name: (f.read_bytes(), f.stat().st_mtime_ns) for f in tmp_path.iterdir()}
     assert read_target(path).data_sha256 == expected
+    # reading leaves the user's folder as it was: no file changed, added or removed
+    assert {f.name: (f.read_bytes(), f.stat().st_mtime_ns) for f in tmp_path.iterdir()} == before
 
 
 def test_paths_relative_to_target_and_fit_table_ignored(tmp_path, monkeypatch):

@@ -91,8 +91,6 @@ __all__ = ["read_target", "parse_prior", "DEFAULT_PRIORS"]
 logger = logging.getLogger(__name__)
 
 _TWO_PI = 2.0 * math.pi
-#: mas -> rad, for orientation angles (parse_quantity returns sky angles in mas)
-_MAS_TO_RAD = float((1.0 * u.mas).to_value(u.rad))
 
 #: Default priors (internal units) of the central body, companions and instruments.
 DEFAULT_PRIORS: dict[str, Prior] = {
@@ -115,25 +113,25 @@ DEFAULT_PRIORS: dict[str, Prior] = {
     "jitter": Fixed(0.0),
 }
 
-# key -> (physical type or None for bare numbers, factor applied after parse_quantity)
-_CENTRAL_UNITS: dict[str, tuple[str | None, float]] = {
-    "mass": ("mass", 1.0),
-    "x0": ("angle", 1.0),
-    "y0": ("angle", 1.0),
-    "vx0": ("angular speed", 1.0),
-    "vy0": ("angular speed", 1.0),
-    "vz0": ("speed", 1.0),
-    "systemic": ("speed", 1.0),
+# key -> physical type of its values (None: bare numbers; "orientation": angle in radians)
+_CENTRAL_UNITS: dict[str, str | None] = {
+    "mass": "mass",
+    "x0": "angle",
+    "y0": "angle",
+    "vx0": "angular speed",
+    "vy0": "angular speed",
+    "vz0": "speed",
+    "systemic": "speed",
 }
-_COMPANION_UNITS: dict[str, tuple[str | None, float]] = {
-    "period": ("time", 1.0),
-    "eccentricity": (None, 1.0),
-    "inclination": ("angle", _MAS_TO_RAD),
-    "arg_periastron": ("angle", _MAS_TO_RAD),
-    "ascending_node": ("angle", _MAS_TO_RAD),
-    "mean_anomaly": ("angle", _MAS_TO_RAD),
-    "periastron_time": (None, 1.0),
-    "mass_ratio": (None, 1.0),
+_COMPANION_UNITS: dict[str, str | None] = {
+    "period": "time",
+    "eccentricity": None,
+    "inclination": "orientation",
+    "arg_periastron": "orientation",
+    "ascending_node": "orientation",
+    "mean_anomaly": "orientation",
+    "periastron_time": None,
+    "mass_ratio": None,
 }
 _ABSOLUTE_ONLY = ("x0", "y0", "vx0", "vy0", "vz0")
 _PLANE_KEYS = ("inclination", "ascending_node")
@@ -205,7 +203,6 @@ def parse_prior(
     physical_type: str | None,
     where: str,
     *,
-    factor: float = 1.0,
     allow_isotropic: bool = False,
 ) -> Prior:
     """Build a prior from its inline table ``{ dist = ..., ... }``.
@@ -218,18 +215,17 @@ def parse_prior(
         Dotted key of the prior (e.g. ``companion[0].period``), for messages.
     physical_type : str or None
         Physical type of the values (a key of ``orbitmass.units.INTERNAL_UNITS``),
+        ``"orientation"`` for orbit angles (any angle unit, returned in radians),
         or None when they are bare numbers.
     where : str
         The target file, for messages.
-    factor : float
-        Multiplies each parsed value (mas -> rad for orientation angles).
     allow_isotropic : bool
         Whether ``dist = "isotropic"`` is accepted (inclination only).
 
     Returns
     -------
     Prior
-        The prior, values in internal units times ``factor``.
+        The prior, values in internal units (orientation angles in radians).
 
     Raises
     ------
@@ -263,9 +259,11 @@ def parse_prior(
                              file=where, key=sub)
         if physical_type is None:
             values[name] = _bare_number(spec[name], sub, where)
+        elif physical_type == "orientation":  # validated as an angle, converted by astropy
+            parse_quantity(spec[name], "angle", key=sub, where=where)
+            values[name] = float(u.Quantity(spec[name]).to_value(u.rad))
         else:
             values[name] = parse_quantity(spec[name], physical_type, key=sub, where=where)
-        values[name] *= factor
     if "sd" in values and not values["sd"] > 0.0:
         raise InputError(f"sd must be positive, got {spec['sd']!r}", file=where, key=f"{key}.sd")
     if "low" in values and not values["low"] < values["high"]:
@@ -320,8 +318,7 @@ def _central(doc: dict[str, Any], where: str) -> tuple[str, dict[str, Prior]]:
     priors: dict[str, Prior] = {}
     for k in keys:
         if k in central:
-            ptype, factor = _CENTRAL_UNITS[k]
-            priors[k] = parse_prior(central[k], f"central.{k}", ptype, where, factor=factor)
+            priors[k] = parse_prior(central[k], f"central.{k}", _CENTRAL_UNITS[k], where)
         else:
             priors[k] = DEFAULT_PRIORS[k]
     _check_range(priors["mass"], "mass", "central.mass", where)
@@ -394,9 +391,9 @@ def _companion_priors(
     spec: dict[str, Any], key: str, where: str, velocities: Velocities | None
 ) -> dict[str, Prior]:
     given: dict[str, Prior] = {}
-    for k, (ptype, factor) in _COMPANION_UNITS.items():
+    for k, ptype in _COMPANION_UNITS.items():
         if k in spec:
-            given[k] = parse_prior(spec[k], f"{key}.{k}", ptype, where, factor=factor,
+            given[k] = parse_prior(spec[k], f"{key}.{k}", ptype, where,
                                    allow_isotropic=k == "inclination")
             if k in _RANGES:
                 _check_range(given[k], k, f"{key}.{k}", where)
