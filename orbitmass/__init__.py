@@ -1,7 +1,40 @@
-"""orbitmass: weigh dark central objects from the orbits of things tracked around them."""
+"""orbitmass: weigh dark central objects from the orbits of things tracked around them.
+
+Fit Keplerian orbits (Thiele-Innes form, sampled with emcee) to measured
+positions and line-of-sight velocities of companions, and get posteriors for
+the enclosed mass, the distance and every orbital element.
+
+>>> import orbitmass
+>>> sorted(n for n in orbitmass.__all__ if n[0].islower())
+['load', 'read_target']
+"""
 
 from __future__ import annotations
 
 __version__ = "0.1.0"
 
-__all__ = ["__version__"]
+from orbitmass.exceptions import (  # noqa: E402
+    ConvergenceWarning,
+    DegeneracyWarning,
+    InputError,
+    NotFittedError,
+    OrbitmassError,
+    RunFolderError,
+)
+from orbitmass.fit import Fit, load  # noqa: E402
+from orbitmass.io.target import read_target  # noqa: E402
+from orbitmass.results import Results  # noqa: E402
+
+__all__ = [
+    "__version__",
+    "Fit",
+    "load",
+    "read_target",
+    "Results",
+    "OrbitmassError",
+    "InputError",
+    "NotFittedError",
+    "RunFolderError",
+    "ConvergenceWarning",
+    "DegeneracyWarning",
+]

@@ -1,0 +1,210 @@
+"""Convergence diagnostics of ensemble chains: autocorrelation time, ESS, split R-hat.
+
+All functions take a chain of shape ``(n_steps, n_walkers, n_dim)`` (or
+``(n_steps, n_walkers)`` for one parameter) and keep no sampler state.
+
+Estimators
+----------
+* Integrated autocorrelation time ``tau``: the walker-averaged normalised
+  autocorrelation function summed with Sokal's (1997) automatic window
+  (``c = 5``), as emcee's ``autocorr.integrated_time`` computes it.
+* Bulk effective sample size and rank-normalised split R-hat: Vehtari,
+  Gelman, Simpson, Carpenter & Buerkner (2021, Bayesian Analysis 16, 667).
+  Every walker is treated as a chain and split in halves; draws are
+  rank-normalised; ESS uses Geyer's initial monotone sequence on the
+  multi-chain autocorrelation. R-hat is the larger of the bulk and the
+  folded (tail) value.
+* The ESS reported for a parameter is the smaller of the bulk ESS and
+  ``n_steps * n_walkers / tau``: walkers of an ensemble sampler are not
+  independent chains, so neither estimate alone is trusted.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import special, stats
+
+__all__ = [
+    "autocorr_function",
+    "integrated_time",
+    "bulk_ess",
+    "split_rhat",
+    "effective_sample_size",
+    "walker_modes",
+]
+
+
+def _as3d(chain: NDArray[np.float64]) -> NDArray[np.float64]:
+    chain = np.asarray(chain, dtype=float)
+    if chain.ndim == 2:
+        chain = chain[:, :, None]
+    if chain.ndim != 3:
+        raise ValueError(f"chain must have shape (n_steps, n_walkers[, n_dim]), got {chain.shape}")
+    return chain
+
+
+def autocorr_function(x: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Normalised autocorrelation function along axis 0 (FFT), averaged over axis 1.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n_steps, n_chains)
+
+    Returns
+    -------
+    ndarray, shape (n_steps,)
+    """
+    x = np.asarray(x, dtype=float)
+    n = x.shape[0]
+    nfft = 1 << int(np.ceil(np.log2(2 * n)))
+    xc = x - x.mean(axis=0)
+    f = np.fft.rfft(xc, n=nfft, axis=0)
+    acf = np.fft.irfft(f * np.conjugate(f), n=nfft, axis=0)[:n]
+    acf = acf.mean(axis=1)
+    if acf[0] <= 0:
+        return np.zeros(n)
+    return acf / acf[0]
+
+
+def integrated_time(chain: NDArray[np.float64], c: float = 5.0) -> NDArray[np.float64]:
+    """Integrated autocorrelation time per parameter, Sokal's window.
+
+    Parameters
+    ----------
+    chain : ndarray, shape (n_steps, n_walkers, n_dim)
+    c : float
+        Window constant: the smallest M with M >= c * tau(M) is used.
+
+    Returns
+    -------
+    ndarray, shape (n_dim,)
+        tau in steps (at least 1).
+    """
+    chain = _as3d(chain)
+    n_dim = chain.shape[2]
+    taus = np.empty(n_dim)
+    for d in range(n_dim):
+        rho = autocorr_function(chain[:, :, d])
+        tau_m = 2.0 * np.cumsum(rho) - 1.0
+        window = np.arange(tau_m.size) < c * tau_m
+        m = int(np.argmin(window)) if not window.all() else tau_m.size - 1
+        taus[d] = max(tau_m[m], 1.0)
+    return taus
+
+
+def _rank_normalise(x: NDArray[np.float64]) -> NDArray[np.float64]:
+    s = x.size
+    flat = x.reshape(-1)
+    order = np.argsort(flat, kind="stable")
+    ranks = np.empty(s)
+    ranks[order] = np.arange(1, s + 1, dtype=float)
+    if np.any(flat[order][1:] == flat[order][:-1]):  # ties (e.g. rejected proposals): average ranks
+        ranks = stats.rankdata(flat, method="average")
+    return special.ndtri((ranks.reshape(x.shape) - 0.375) / (s + 0.25))
+
+
+def _split(x: NDArray[np.float64]) -> NDArray[np.float64]:
+    n = x.shape[0] // 2
+    return np.concatenate([x[:n], x[x.shape[0] - n:]], axis=1)
+
+
+def _rhat_basic(x: NDArray[np.float64]) -> float:
+    n = x.shape[0]
+    means = x.mean(axis=0)
+    w = x.var(axis=0, ddof=1).mean()
+    b = n * means.var(ddof=1)
+    if w <= 0:
+        return float("nan") if b > 0 else 1.0
+    var_plus = (n - 1) / n * w + b / n
+    return float(np.sqrt(var_plus / w))
+
+
+def split_rhat(chain: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Rank-normalised split R-hat per parameter (max of bulk and tail)."""
+    chain = _as3d(chain)
+    out = np.empty(chain.shape[2])
+    for d in range(chain.shape[2]):
+        x = _split(chain[:, :, d])
+        bulk = _rhat_basic(_rank_normalise(x))
+        folded = np.abs(x - np.median(x))
+        tail = _rhat_basic(_rank_normalise(folded))
+        out[d] = max(bulk, tail)
+    return out
+
+
+def _ess_geyer(x: NDArray[np.float64]) -> float:
+    """ESS of multi-chain draws ``x`` (n, m) with Geyer's initial monotone sequence."""
+    n, m = x.shape
+    if n < 4:
+        return float(n * m)
+    chain_var = x.var(axis=0, ddof=1)
+    w = chain_var.mean()
+    if w <= 0:
+        return float(n * m)
+    means = x.mean(axis=0)
+    b_over_n = means.var(ddof=1) if m > 1 else 0.0
+    var_plus = (n - 1) / n * w + b_over_n
+    xc = x - means
+    nfft = 1 << int(np.ceil(np.log2(2 * n)))
+    f = np.fft.rfft(xc, n=nfft, axis=0)
+    acov = np.fft.irfft(f * np.conjugate(f), n=nfft, axis=0)[:n] / n
+    acov_mean = acov.mean(axis=1)
+    rho = 1.0 - (w - acov_mean) / var_plus
+    rho[0] = 1.0
+    # Geyer: sums of adjacent pairs, truncated at the first negative, made monotone
+    n_pairs = (n - 1) // 2
+    pairs = rho[0: 2 * n_pairs: 2] + rho[1: 2 * n_pairs: 2]
+    neg = np.nonzero(pairs < 0)[0]
+    k = int(neg[0]) if neg.size else pairs.size
+    pairs = np.minimum.accumulate(pairs[:k]) if k > 0 else pairs[:1]
+    tau = -1.0 + 2.0 * pairs.sum()
+    tau = max(tau, 1.0 / np.log10(n * m))
+    return float(n * m / tau)
+
+
+def bulk_ess(chain: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Rank-normalised bulk effective sample size per parameter (split chains)."""
+    chain = _as3d(chain)
+    return np.array([_ess_geyer(_rank_normalise(_split(chain[:, :, d]))) for d in range(chain.shape[2])])
+
+
+def effective_sample_size(chain: NDArray[np.float64], tau: NDArray[np.float64] | None = None) -> NDArray[np.float64]:
+    """Conservative ESS per parameter: min(bulk ESS, n_steps * n_walkers / tau)."""
+    chain = _as3d(chain)
+    if tau is None:
+        tau = integrated_time(chain)
+    n_total = chain.shape[0] * chain.shape[1]
+    return np.minimum(bulk_ess(chain), n_total / np.asarray(tau))
+
+
+def walker_modes(x: NDArray[np.float64], min_walkers: int = 2, separation: float = 6.0) -> int:
+    """Count separated modes among walkers for one parameter (e.g. ln period).
+
+    Walkers are ordered by their mean over the chain; a gap between
+    consecutive walker means larger than ``separation`` times the median
+    within-walker standard deviation (and larger than 0.05 in the variable)
+    separates modes, counted only when each side holds ``min_walkers`` walkers.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n_steps, n_walkers)
+
+    Returns
+    -------
+    int
+        Number of modes (1 when the walkers form one group).
+    """
+    x = np.asarray(x, dtype=float)
+    means = np.sort(x.mean(axis=0))
+    scale = max(float(np.median(x.std(axis=0))), 1e-12)
+    gaps = np.diff(means)
+    cuts = np.nonzero((gaps > separation * scale) & (gaps > 0.05))[0]
+    modes, last = 1, -1
+    for c in cuts:
+        left = c - last
+        right = means.size - 1 - c
+        if left >= min_walkers and right >= min_walkers:
+            modes += 1
+            last = c
+    return modes

@@ -1,0 +1,327 @@
+"""The Fit object: options in, ``fit(target)`` -> self; plots and reports delegated.
+
+Examples
+--------
+>>> from orbitmass import Fit                                  # doctest: +SKIP
+>>> fit = Fit(seed=1).fit("examples/nucleus/target.toml")     # doctest: +SKIP
+>>> fit.summary_table().loc["mass_msun"]                      # doctest: +SKIP
+>>> fit.save("run-1")                                          # doctest: +SKIP
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import platform
+import time
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from orbitmass.data import Target
+from orbitmass.exceptions import InputError, NotFittedError
+from orbitmass.results import COLUMN_DOC, Results, derive_samples, quantile_block
+
+__all__ = ["Fit", "load", "redshift_distance_pc", "priors_used"]
+
+log = logging.getLogger(__name__)
+
+
+def redshift_distance_pc(z: float, cosmology: str) -> float:
+    """Angular-diameter distance (pc) at redshift ``z`` in a named astropy cosmology realisation."""
+    import astropy.cosmology as cosmo_mod
+    import astropy.units as u
+
+    cosmo = getattr(cosmo_mod, cosmology, None)
+    if cosmo is None or not hasattr(cosmo, "angular_diameter_distance"):
+        raise InputError(f"unknown cosmology {cosmology!r}; expected an astropy realisation such as "
+                         f"{', '.join(cosmo_mod.realizations.available)}", key="distance.cosmology")
+    return float(cosmo.angular_diameter_distance(z).to_value(u.pc))
+
+
+def _versions() -> dict[str, str]:
+    import astropy
+    import emcee
+    import scipy
+
+    from orbitmass import __version__
+
+    return {"orbitmass": __version__, "python": platform.python_version(), "numpy": np.__version__,
+            "scipy": scipy.__version__, "emcee": emcee.__version__, "astropy": astropy.__version__,
+            "pandas": pd.__version__}
+
+
+def priors_used(space) -> list[dict[str, str]]:
+    """Every prior in force, in report units: list of {"parameter", "prior"}."""
+    deg = 180.0 / math.pi
+    t = space.target
+    out = [{"parameter": "total mass", "prior": t.central_priors["mass"].describe("Msun")}]
+    d = t.distance
+    if d.parallax is not None:
+        out.append({"parameter": "parallax", "prior": d.parallax.describe("mas")})
+    if d.prior is not None:
+        out.append({"parameter": "distance", "prior": d.prior.describe("pc")})
+    if d.redshift is not None:
+        how = "fixes the distance (angular-diameter distance)" if space.distance_mode == "fixed" \
+            else "sets the time dilation"
+        out.append({"parameter": "redshift", "prior": f"z = {d.redshift} ({d.cosmology}); {how}"})
+    units = {"x0": "mas", "y0": "mas", "vx0": "mas/yr", "vy0": "mas/yr", "vz0": "km/s", "systemic": "km/s"}
+    for key in space.frame_idx:
+        out.append({"parameter": key, "prior": t.central_priors[key].describe(units[key])})
+    for name, inst in t.instruments.items():
+        out.append({"parameter": f"offset {name}", "prior": inst.offset.describe("km/s")})
+        out.append({"parameter": f"jitter {name}", "prior": inst.jitter.describe("km/s")})
+    for comp in t.companions:
+        for key, prior in comp.priors.items():
+            if key in ("inclination", "arg_periastron", "ascending_node", "mean_anomaly"):
+                text = prior.describe("deg", deg)
+            elif key == "period":
+                text = prior.describe("yr") + " (rest frame)"
+            elif key == "periastron_time":
+                text = prior.describe("Julian yr")
+            else:
+                text = prior.describe("")
+            out.append({"parameter": f"{comp.name} {key.replace('_', ' ')}", "prior": text})
+        if comp.plane:
+            out.append({"parameter": f"{comp.name} plane", "prior": f"shares inclination and node with plane {comp.plane!r}"})
+    return out
+
+
+class Fit:
+    """Fit Keplerian orbits to a target and hold the posterior.
+
+    Parameters
+    ----------
+    seed : int or None
+        Seed of every random choice of the fit (initialisation and sampler);
+        the same seed and data give the same result.
+    n_walkers : int or None
+        Ensemble size; default ``max(64, 4 * n_dim)``.
+    max_steps : int
+        Step cap of the sampler.
+    min_steps : int
+        Steps before the first convergence check.
+    progress : bool or None
+        Progress bar (default: only on a terminal).
+    max_periods : int
+        Period grid points per companion in the initial linear search.
+
+    Attributes
+    ----------
+    results_ : Results
+        Set by :meth:`fit` or :func:`load`.
+    """
+
+    def __init__(self, *, seed: int | None = None, n_walkers: int | None = None, max_steps: int = 20000,
+                 min_steps: int = 600, progress: bool | None = None, max_periods: int = 3000,
+                 checkpoint: str | Path | None = None, resume: bool = False):
+        self.seed = seed
+        self.n_walkers = n_walkers
+        self.max_steps = max_steps
+        self.min_steps = min_steps
+        self.progress = progress
+        self.max_periods = max_periods
+        self.checkpoint = checkpoint
+        self.resume = resume
+
+    # ------------------------------------------------------------------ fitting
+    def fit(self, target: str | Path | Target, *, stop_flag=None) -> Fit:
+        """Read ``target`` (a target file or a :class:`Target`) and sample its posterior.
+
+        Returns
+        -------
+        Fit
+            ``self``, with ``results_`` set.
+
+        Raises
+        ------
+        InputError
+            On malformed input (nothing is sampled).
+        """
+        from orbitmass.initialise import initialise_walkers
+        from orbitmass.likelihood import LogPosterior
+        from orbitmass.parameters import ParameterSpace
+        from orbitmass.sampler import SamplerOptions, run_sampler
+
+        t0 = time.perf_counter()
+        if not isinstance(target, Target):
+            from orbitmass.io.target import read_target
+
+            target = read_target(target)
+        z = target.distance.redshift
+        d_fixed = redshift_distance_pc(z, target.distance.cosmology) if z is not None else None
+        space = ParameterSpace(target, redshift_distance_pc=d_fixed)
+        post = LogPosterior(space)
+        seed = self.seed if self.seed is not None else int(np.random.SeedSequence().entropy % (2**31))
+        rng = np.random.default_rng(seed)
+        n_walkers = self.n_walkers or max(64, 4 * space.ndim)
+        n_walkers += n_walkers % 2
+        if n_walkers < 2 * space.ndim:
+            raise InputError(f"n_walkers = {n_walkers} is too small for {space.ndim} parameters; "
+                             f"use at least {2 * space.ndim}", key="walkers")
+        init = initialise_walkers(post, n_walkers, rng, max_periods=self.max_periods)
+        options = SamplerOptions(max_steps=self.max_steps, min_steps=min(self.min_steps, self.max_steps),
+                                 progress=self.progress)
+        backend = None
+        if self.checkpoint is not None:
+            from orbitmass.io.checkpoint import open_checkpoint
+
+            backend = open_checkpoint(self.checkpoint, n_walkers, space.ndim, resume=self.resume)
+        p0 = init.walkers if backend is None or backend.iteration == 0 else None
+        run = run_sampler(post, p0, seed=int(rng.integers(2**31 - 1)), options=options,
+                          backend=backend, stop_flag=stop_flag)
+        theta, lp = run.retained()
+        samples = derive_samples(space, theta, lp)
+        wall = time.perf_counter() - t0
+        summary = self._summary(target, space, samples, run, init, seed, wall)
+        info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
+                "n_evaluations": run.n_evaluations}
+        self.results_ = Results(target=target, space=space, samples=samples, theta=theta, chain=run.chain,
+                                log_prob=run.log_prob, burn=run.burn, thin=run.thin, summary=summary, info=info)
+        return self
+
+    @staticmethod
+    def _summary(target, space, samples, run, init, seed, wall) -> dict:
+        from orbitmass import __version__
+        from orbitmass.diagnostics import walker_modes
+
+        derived = {}
+        for col in samples.columns:
+            if "." not in col and col != "log_posterior":
+                derived[col] = quantile_block(samples[col].to_numpy())
+        companions = {}
+        for comp in target.companions:
+            prefix = comp.name + "."
+            companions[comp.name] = {col[len(prefix):]: quantile_block(samples[col].to_numpy())
+                                     for col in samples.columns if col.startswith(prefix)}
+        instruments = {}
+        for name in space.instrument_names:
+            instruments[name] = {"offset_kms": quantile_block(samples[f"offset_kms.{name}"].to_numpy()),
+                                 "jitter_kms": quantile_block(samples[f"jitter_kms.{name}"].to_numpy())}
+        kept = run.chain[run.burn:]
+        modes = {}
+        for lay in space.companions:
+            idx = lay.idx.get("ln_period", -1)
+            if idx >= 0 and kept.shape[0] > 4:
+                modes[lay.name] = walker_modes(kept[:, :, idx])
+        per_param = {name: {"tau": float(run.tau[i]), "ess": float(run.ess[i]), "rhat": float(run.rhat[i])}
+                     for i, name in enumerate(space.names)}
+        mass_idx = space.index.get("ln_mass")
+        ambiguous = [c.name for c in target.companions if not space.planes[space.companions[
+            [lay.name for lay in space.companions].index(c.name)].plane]["los"]]
+        diagnostics = {
+            "converged": bool(run.converged),
+            "n_samples": int(len(samples)),
+            "ess_min": float(np.min(run.ess)) if len(run.ess) else float("nan"),
+            "ess_mass": float(run.ess[mass_idx]) if mass_idx is not None else None,
+            "tau_max": float(np.nanmax(run.tau)) if len(run.tau) else float("nan"),
+            "rhat_max": float(np.nanmax(run.rhat)) if len(run.rhat) else float("nan"),
+            "acceptance_fraction": float(run.acceptance_fraction),
+            "wall_seconds": float(wall),
+            "sampling_seconds": float(run.sampling_seconds),
+            "n_steps": int(run.n_steps),
+            "n_walkers": int(run.chain.shape[1]),
+            "burn": int(run.burn),
+            "thin": int(run.thin),
+            "n_evaluations": int(run.n_evaluations),
+            "interrupted": bool(run.interrupted),
+            "multimodal": bool(any(m > 1 for m in modes.values())),
+            "period_modes": modes,
+            "other_modes": init.other_modes,
+            "per_parameter": per_param,
+            "omega_node_ambiguous": ambiguous,
+        }
+        return {
+            "orbitmass_version": __version__,
+            "target": target.name,
+            "reference_epoch": float(target.reference_epoch),
+            "frame": target.frame,
+            "derived": derived,
+            "companions": companions,
+            "instruments": instruments,
+            "diagnostics": diagnostics,
+            "priors": priors_used(space),
+            "units": {k: v[1] for k, v in COLUMN_DOC.items()},
+            "provenance": {
+                "seed": int(seed),
+                "data_sha256": target.data_sha256,
+                "versions": _versions(),
+                "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
+                "target_file": str(target.source),
+            },
+        }
+
+    # ------------------------------------------------------------------ access
+    @property
+    def results(self) -> Results:
+        """The :class:`Results`; raises :class:`NotFittedError` before :meth:`fit`."""
+        res = getattr(self, "results_", None)
+        if res is None:
+            raise NotFittedError("this Fit has no results yet: call fit(target) or orbitmass.load(run_dir)")
+        return res
+
+    @property
+    def summary(self) -> dict:
+        """The content of ``summary.json``."""
+        return self.results.summary
+
+    def summary_table(self) -> pd.DataFrame:
+        """Posterior summary, one row per quantity: median, quantiles and unit."""
+        rows = []
+        for col in self.results.samples.columns:
+            key = col
+            if "." in col:
+                head, tail = col.split(".", 1)
+                key = f"<C>.{tail}" if head in self.results.companion_names else f"{head}.<I>"
+            unit = COLUMN_DOC.get(key, ("", "", ""))[1]
+            block = quantile_block(self.results.samples[col].to_numpy())
+            rows.append({"quantity": col, "unit": unit, **block})
+        return pd.DataFrame(rows).set_index("quantity")
+
+    def corner(self, **kwargs):
+        """Corner plot of the key parameters (see :func:`orbitmass.plots.corner_figure`)."""
+        from orbitmass.plots import corner_figure
+
+        return corner_figure(self.results, **kwargs)
+
+    def plot_orbit(self, **kwargs):
+        """Sky-plane orbits, velocities and residuals (see :func:`orbitmass.plots.orbit_figure`)."""
+        from orbitmass.plots import orbit_figure
+
+        return orbit_figure(self.results, **kwargs)
+
+    def plot_trace(self, **kwargs):
+        """Walker traces (see :func:`orbitmass.plots.trace_figure`)."""
+        from orbitmass.plots import trace_figure
+
+        return trace_figure(self.results, **kwargs)
+
+    def report(self, out_dir: str | Path) -> Path:
+        """Write figures, tables, report.md and report.html into ``out_dir``; returns the report path."""
+        from orbitmass.io.rundir import write_products
+
+        return write_products(self.results, Path(out_dir))
+
+    def save(self, out_dir: str | Path, *, overwrite: bool = False) -> Path:
+        """Write the whole run folder (output contract) to ``out_dir``.
+
+        Raises
+        ------
+        RunFolderError
+            When ``out_dir`` exists, is not empty and ``overwrite`` is False.
+        """
+        from orbitmass.io.rundir import save_run
+
+        return save_run(self.results, Path(out_dir), overwrite=overwrite)
+
+
+def load(run_dir: str | Path) -> Fit:
+    """A :class:`Fit` from a saved run folder, without refitting."""
+    from orbitmass.io.rundir import load_run
+
+    fit = Fit(seed=None)
+    fit.results_ = load_run(Path(run_dir))
+    fit.seed = fit.results_.summary.get("provenance", {}).get("seed")
+    return fit

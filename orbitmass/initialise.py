@@ -1,0 +1,475 @@
+"""Starting walkers without a guess from the user.
+
+Method (stated in the README and the report):
+
+1. **Global linear search.** For every companion, on a grid of observed
+   period (uniform in frequency with five points per 1/baseline, at most
+   ``max_periods`` points, within the period prior), eccentricity and
+   mean anomaly at the reference epoch, the positions are linear in the
+   Thiele-Innes constants (A, B, F, G) and the velocities are linear in
+   (C, H) and the instrument zero points. Weighted linear least squares
+   gives chi^2 at every grid point (Lucy 2014, A&A 563, A126, uses the same
+   separation).
+2. **Candidates.** The best grid points at distinct periods are turned into
+   Campbell elements (the classical Thiele-Innes inversion; the velocity
+   solution fixes the (omega, Omega) ambiguity and, with the astrometric
+   size, the distance), then mass by Kepler III.
+3. **Optimisation.** Each candidate is polished by maximising the full log
+   posterior (Powell's method); the best wins, and other solutions within
+   ``10`` in log posterior are reported as competing period modes.
+4. **Walkers.** Drawn from a Gaussian around the optimum with the inverse of
+   a finite-difference Hessian as covariance (the Laplace approximation),
+   keeping only draws of finite posterior.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import optimize
+
+from orbitmass.elements import thiele_innes_to_campbell
+from orbitmass.kepler import kepler_cos_sin
+from orbitmass.likelihood import LogPosterior
+from orbitmass.physics import mass_msun as kepler_mass
+from orbitmass.units import KMS_PER_AU_PER_YR
+
+__all__ = ["initialise_walkers", "InitialSolution"]
+
+log = logging.getLogger(__name__)
+TWO_PI = 2.0 * math.pi
+
+
+@dataclass
+class InitialSolution:
+    """Result of the initialisation: the walkers and what the search found."""
+
+    walkers: NDArray[np.float64]
+    best: NDArray[np.float64]
+    best_log_post: float
+    other_modes: list[dict]
+    n_grid: int
+
+
+def _period_grid(t: NDArray[np.float64], prior, one_plus_z: float, max_periods: int) -> NDArray[np.float64]:
+    baseline = float(np.ptp(t)) if t.size > 1 else 1.0
+    baseline = max(baseline, 1e-3)
+    low, high = prior.support
+    low_obs, high_obs = low * one_plus_z, high * one_plus_z
+    if prior.fixed:
+        return np.array([float(prior.value) * one_plus_z])
+    spacing = np.diff(np.unique(t))
+    typical = float(np.median(spacing)) if spacing.size else baseline
+    p_min = max(low_obs, 2.0 * typical, 1e-6)
+    p_max = min(high_obs, 50.0 * baseline)
+    if p_max <= p_min:
+        p_min, p_max = low_obs, high_obs
+    f_lo, f_hi = 1.0 / p_max, 1.0 / p_min
+    n_f = int(min(max_periods, max(60, (f_hi - f_lo) * baseline * 5)))
+    if n_f >= max_periods:
+        return np.exp(np.linspace(np.log(p_min), np.log(p_max), max_periods))
+    return 1.0 / np.linspace(f_hi, f_lo, n_f)
+
+
+def _weighted_lsq(design, y, w):
+    """Batched weighted least squares. design (..., n, k), y (n,), w (n,) -> coef (..., k), chi2 (...)."""
+    dw = design * w[:, None]
+    normal = np.einsum("...nk,...nl->...kl", dw, design)
+    rhs = np.einsum("...nk,n->...k", dw, y)
+    k = design.shape[-1]
+    normal = normal + 1e-12 * np.trace(normal, axis1=-2, axis2=-1)[..., None, None] * np.eye(k) + 1e-300 * np.eye(k)
+    coef = np.linalg.solve(normal, rhs[..., None])[..., 0]
+    resid = y - np.einsum("...nk,...k->...n", design, coef)
+    chi2 = np.einsum("...n,n->...", resid * resid, w)
+    return coef, chi2
+
+
+def _companion_search(post: LogPosterior, comp, max_periods: int, rng: np.random.Generator):
+    """Grid search for one companion; returns candidate element dicts sorted by chi^2."""
+    space = post.space
+    ab = post.astro.get(comp.name)
+    vb = post.vel.get(comp.name)
+    ts = []
+    if ab is not None:
+        ts.append(ab.t)
+    if vb is not None:
+        ts.append(vb.t)
+    t_all = np.concatenate(ts)
+    pr = comp.priors
+    periods = _period_grid(t_all, pr["period"], space.one_plus_z, max_periods)
+    ecc_prior = pr["eccentricity"]
+    if ecc_prior.fixed:
+        eccs = np.array([float(ecc_prior.value)])
+    else:
+        lo, hi = ecc_prior.support
+        eccs = np.array([e for e in (0.0, 0.2, 0.4, 0.6, 0.75, 0.85, 0.92, 0.96) if lo <= e <= min(hi, 0.97)])
+        if eccs.size == 0:
+            eccs = np.array([0.5 * (lo + hi)])
+    n_m0 = 12 if eccs.size > 1 else 16
+    m0s = np.linspace(0.0, TWO_PI, n_m0, endpoint=False)
+    # grid axes: (period, ecc, m0)
+    P = periods[:, None, None]
+    E_ = eccs[None, :, None]
+    M0 = m0s[None, None, :]
+    chi2 = np.zeros((periods.size, eccs.size, m0s.size))
+    coef_ast = coef_rv = None
+    absolute = post.absolute
+    if ab is not None:
+        east, north = _approx_east_north(ab)
+        we, wn = _approx_weights(ab)
+        t = ab.t
+        mean = M0[..., None] + (TWO_PI / P[..., None]) * (t - space.t_ref)
+        cE, sE = kepler_cos_sin(mean, E_[..., None])
+        X = cE - E_[..., None]
+        Y = np.sqrt(1 - E_[..., None] ** 2) * sE
+        cols = [X, Y]
+        if absolute:
+            ones = np.broadcast_to(np.ones_like(t), X.shape)
+            cols += [ones, np.broadcast_to(t - space.t_ref, X.shape)]
+        design = np.stack(cols, axis=-1)
+        cn, chin = _weighted_lsq(design, north, wn)
+        ce, chie = _weighted_lsq(design, east, we)
+        chi2 += chin + chie
+        coef_ast = (cn, ce)
+    if vb is not None:
+        rows = vb.companion_rows
+        if rows.any():
+            t = vb.t[rows]
+            mean = M0[..., None] + (TWO_PI / P[..., None]) * (t - space.t_ref)
+            cE, sE = kepler_cos_sin(mean, E_[..., None])
+            root = np.sqrt(1 - E_[..., None] ** 2)
+            rate = (TWO_PI * KMS_PER_AU_PER_YR * space.one_plus_z / P[..., None]) / (1 - E_[..., None] * cE)
+            cols = [-rate * sE, rate * root * cE]
+            insts = vb.inst[rows]
+            for i in sorted(set(insts.tolist())):
+                cols.append(np.broadcast_to((insts == i).astype(float), cE.shape))
+            design = np.stack(cols, axis=-1)
+            crv, chirv = _weighted_lsq(design, vb.rv[rows], 1.0 / vb.var[rows])
+            chi2 += chirv
+            coef_rv = (crv, sorted(set(insts.tolist())))
+    flat = np.argsort(chi2, axis=None)
+    cands = []
+    used_lnp: list[float] = []
+    for idx in flat:
+        ip, ie, im = np.unravel_index(idx, chi2.shape)
+        lnp = math.log(periods[ip])
+        if any(abs(lnp - u) < 0.03 for u in used_lnp):
+            continue
+        used_lnp.append(lnp)
+        cand = {"period_obs": periods[ip], "ecc": eccs[ie], "m0": m0s[im], "chi2": chi2[ip, ie, im]}
+        if coef_ast is not None:
+            cn, ce = coef_ast
+            cand["ti"] = (cn[ip, ie, im, 0], ce[ip, ie, im, 0], cn[ip, ie, im, 1], ce[ip, ie, im, 1])
+            if absolute:
+                cand["x0"] = ce[ip, ie, im, 2]
+                cand["vx0"] = ce[ip, ie, im, 3]
+                cand["y0"] = cn[ip, ie, im, 2]
+                cand["vy0"] = cn[ip, ie, im, 3]
+        if coef_rv is not None:
+            crv, insts = coef_rv
+            cand["ch"] = (crv[ip, ie, im, 0], crv[ip, ie, im, 1])
+            cand["levels"] = {space.instrument_names[i]: crv[ip, ie, im, 2 + j] for j, i in enumerate(insts)}
+        cands.append(cand)
+        if len(cands) >= 6:
+            break
+    return cands, int(chi2.size)
+
+
+def _approx_east_north(ab):
+    east = np.where(ab.polar, ab.v1 * np.sin(np.deg2rad(ab.v2)), ab.v1)
+    north = np.where(ab.polar, ab.v1 * np.cos(np.deg2rad(ab.v2)), ab.v2)
+    return east, north
+
+
+def _approx_weights(ab):
+    # diagonal weights: correlation ignored in the search (only the start depends on it)
+    s1 = 1.0 / np.sqrt(ab.w11 * (1.0 - 0.0))
+    s2 = 1.0 / np.sqrt(ab.w22)
+    sig_pol = np.sqrt(s1 * s1 + (np.deg2rad(s2) * ab.v1) ** 2)
+    se = np.where(ab.polar, sig_pol, s1)
+    sn = np.where(ab.polar, sig_pol, s2)
+    return 1.0 / se**2, 1.0 / sn**2
+
+
+def _prior_centre(prior) -> float:
+    if prior.fixed:
+        return float(prior.value)
+    low, high = prior.support
+    if hasattr(prior, "mean") and math.isfinite(getattr(prior, "mean")):
+        m = float(prior.mean)
+        return min(max(m, low), high)
+    if prior.dist == "log-uniform":
+        return math.sqrt(low * high)
+    return 0.5 * (low + high)
+
+
+def _candidate_values(space, comp, cand, mass_dist):
+    """Physical values for one companion from a search candidate."""
+    one_plus_z = space.one_plus_z
+    period = cand["period_obs"] / one_plus_z
+    v: dict[str, float] = {f"{comp.name}.period_yr": period, f"{comp.name}.ecc": cand["ecc"],
+                           f"{comp.name}.m0": cand["m0"]}
+    a_mas = a_au = None
+    omega = node = None
+    cos_i = 0.5
+    if "ti" in cand:
+        A, B, F, G = cand["ti"]
+        a_mas, inc, omega, node = (float(x) for x in thiele_innes_to_campbell(A, B, F, G))
+        cos_i = math.cos(inc)
+    if "ch" in cand:
+        C, H = cand["ch"]
+        asini = math.hypot(C, H)
+        omega_rv = math.atan2(C, H)
+        if omega is None:
+            omega = omega_rv
+            node = 0.0
+        else:
+            diff = (omega_rv - omega + math.pi) % TWO_PI - math.pi
+            if abs(diff) > math.pi / 2:
+                omega += math.pi
+                node += math.pi
+        sin_i = math.sqrt(max(1 - cos_i**2, 0.05**2))
+        a_au = asini / sin_i
+    v[f"{comp.name}.omega"] = omega if omega is not None else 0.0
+    v[f"{comp.name}.node"] = node if node is not None else 0.0
+    v[f"{comp.name}.cos_i"] = cos_i
+    if a_mas is not None and a_au is not None and a_mas > 0:
+        mass_dist["distance_pc"].append(1000.0 * a_au / a_mas)
+    if a_au is not None:
+        mass_dist["mass_direct"].append(float(kepler_mass(a_au, period)))
+    if a_mas is not None:
+        mass_dist["a_mas"].append((a_mas, period))
+    if comp.name in [lay.name for lay in space.companions if lay.has_q]:
+        v[f"{comp.name}.q"] = _prior_centre(comp.priors["mass_ratio"])
+    return v
+
+
+def _assemble(space, per_comp_values, mass_dist, extra):
+    values = {}
+    for v in per_comp_values:
+        values.update(v)
+    target = space.target
+    cp = target.central_priors
+    # distance
+    if space.distance_mode == "fixed":
+        dist = space.fixed_distance_pc
+    elif mass_dist["distance_pc"] and space.distance_mode == "distance":
+        dist = float(np.median(mass_dist["distance_pc"]))
+    elif space.distance_mode == "parallax":
+        dist = 1000.0 / _prior_centre(target.distance.parallax)
+        if mass_dist["distance_pc"] and target.distance.parallax.dist in ("uniform", "log-uniform"):
+            dist = float(np.median(mass_dist["distance_pc"]))
+    else:
+        dist = _prior_centre(target.distance.prior)
+    dlo, dhi = (target.distance.prior.support if space.distance_mode == "distance" else (0, np.inf))
+    dist = float(np.clip(dist, max(dlo, 1e-9), dhi))
+    # mass: astrometric size at this distance, else the velocity amplitude
+    masses = [float(kepler_mass(a_mas * dist / 1000.0, p)) for a_mas, p in mass_dist["a_mas"]]
+    if not masses:
+        masses = mass_dist["mass_direct"]
+    mass = float(np.median(masses)) if masses else _prior_centre(cp["mass"])
+    mlo, mhi = cp["mass"].support
+    mass = float(np.clip(mass, mlo * 1.0001, mhi * 0.9999)) if not cp["mass"].fixed else float(cp["mass"].value)
+    values["mass_msun"] = mass
+    values["distance_pc"] = dist
+    for name in space.instrument_names:
+        inst = target.instruments[name]
+        values[f"offset.{name}"] = _prior_centre(inst.offset) if not inst.offset.fixed else inst.offset.value
+        jp = inst.jitter
+        values[f"jitter.{name}"] = _prior_centre(jp) if not jp.fixed else jp.value
+        if not jp.fixed and jp.dist == "log-uniform":
+            values[f"jitter.{name}"] = math.exp(0.25 * math.log(jp.support[1]) + 0.75 * math.log(jp.support[0]))
+    # levels from the velocity solution: first instrument level -> systemic, others -> offsets
+    levels = extra.get("levels", {})
+    zero = space.instrument_names[0] if space.instrument_names else None
+    base = levels.get(zero) if zero in levels else None
+    if base is not None:
+        for name, lev in levels.items():
+            if space.offset_idx.get(name) is not None:
+                values[f"offset.{name}"] = lev - base
+    for key in space.frame_idx:
+        pr = cp[key]
+        val = _prior_centre(pr)
+        if key in ("systemic", "vz0") and base is not None:
+            val = base
+        if key in extra:
+            val = extra[key]
+        values[key] = val
+    return values
+
+
+def _polish(post: LogPosterior, theta0: NDArray[np.float64], max_evals: int) -> tuple[NDArray, float]:
+    """Maximise the log posterior from ``theta0``: BFGS with a vectorised central-difference gradient.
+
+    One batched posterior call gives the value and the whole gradient, so an
+    iteration costs about one vectorised evaluation of 2 n_dim + 1 points.
+    """
+    d = theta0.size
+    big = 1e30
+
+    def value_and_grad(x):
+        h = 1e-6 * np.maximum(1.0, np.abs(x))
+        pts = np.repeat(x[None, :], 2 * d + 1, axis=0)
+        idx = np.arange(d)
+        pts[1 + idx, idx] += h
+        pts[1 + d + idx, idx] -= h
+        vals = post(pts)
+        f0 = vals[0]
+        if not np.isfinite(f0):
+            return big, np.zeros(d)
+        fp, fm = vals[1: d + 1], vals[d + 1:]
+        # one-sided differences where a wall (-inf) is hit on one side
+        grad = np.where(np.isfinite(fp) & np.isfinite(fm), (fp - fm) / (2 * h),
+                        np.where(np.isfinite(fp), (fp - f0) / h, np.where(np.isfinite(fm), (f0 - fm) / h, 0.0)))
+        return -f0, -grad
+
+    best = np.array(theta0, dtype=float)
+    best_val = value_and_grad(best)[0]
+    for _ in range(3):
+        res = optimize.minimize(value_and_grad, best, jac=True, method="BFGS",
+                                options={"maxiter": max_evals, "gtol": 1e-6})
+        if np.isfinite(res.fun) and res.fun < best_val - 1e-7:
+            gain = best_val - res.fun
+            best, best_val = res.x, res.fun
+            if gain < 1e-4:
+                break
+        else:
+            break
+    return best, -best_val
+
+
+def _hessian_cov(post: LogPosterior, x0: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Covariance from a vectorised central-difference Hessian of the log posterior."""
+    d = x0.size
+    h = 1e-4 * np.maximum(1.0, np.abs(x0))
+    h = np.minimum(h, 1e-3)
+    pts = [x0]
+    for i in range(d):
+        for j in range(i, d):
+            for si, sj in ((1, 1), (1, -1), (-1, 1), (-1, -1)):
+                p = x0.copy()
+                p[i] += si * h[i]
+                p[j] += sj * h[j]
+                pts.append(p)
+    vals = post(np.array(pts))
+    f0 = vals[0]
+    H = np.zeros((d, d))
+    k = 1
+    for i in range(d):
+        for j in range(i, d):
+            fpp, fpm, fmp, fmm = vals[k: k + 4]
+            k += 4
+            H[i, j] = H[j, i] = (fpp - fpm - fmp + fmm) / (4 * h[i] * h[j])
+    if not np.all(np.isfinite(H)) or not np.isfinite(f0):
+        return np.diag((0.01 * np.maximum(1.0, np.abs(x0))) ** 2)
+    w, V = np.linalg.eigh(-H)
+    floor = 1e-12
+    w = np.where(w > floor, w, np.nan)
+    if np.all(np.isnan(w)):
+        return np.diag((0.01 * np.maximum(1.0, np.abs(x0))) ** 2)
+    w = np.where(np.isnan(w), np.nanmin(w), w)
+    return (V / w) @ V.T
+
+
+def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Generator, *,
+                       max_periods: int = 3000, max_evals: int = 2000) -> InitialSolution:
+    """Find the posterior mode from scratch and scatter ``n_walkers`` around it.
+
+    Parameters
+    ----------
+    post : LogPosterior
+    n_walkers : int
+    rng : numpy.random.Generator
+    max_periods : int
+        Most period grid points per companion in the linear search.
+    max_evals : int
+        Posterior evaluations per Powell run.
+
+    Returns
+    -------
+    InitialSolution
+    """
+    space = post.space
+    searches = []
+    n_grid = 0
+    for comp in space.target.companions:
+        cands, ng = _companion_search(post, comp, max_periods, rng)
+        n_grid += ng
+        searches.append((comp, cands))
+    # combinations: best candidate for every companion, alternatives for one at a time
+    combos = [[0] * len(searches)]
+    for ci, (_, cands) in enumerate(searches):
+        for k in range(1, min(len(cands), 4)):
+            combo = [0] * len(searches)
+            combo[ci] = k
+            combos.append(combo)
+    results = []
+    for combo in combos:
+        mass_dist = {"distance_pc": [], "mass_direct": [], "a_mas": []}
+        per_comp, extra = [], {}
+        for (comp, cands), k in zip(searches, combo):
+            cand = cands[k]
+            per_comp.append(_candidate_values(space, comp, cand, mass_dist))
+            for key in ("x0", "y0", "vx0", "vy0"):
+                if key in cand and key not in extra:
+                    extra[key] = cand[key]
+            if "levels" in cand and "levels" not in extra:
+                extra["levels"] = cand["levels"]
+        values = _assemble(space, per_comp, mass_dist, extra)
+        theta = space.pack(values)
+        space.set_centres(theta)
+        theta = space.wrap_angles(theta)[0]
+        if not np.isfinite(post(theta[None, :])[0]):
+            # nudge into the prior support where the linear search left it
+            prior_draws = space.sample_prior(rng, 2000)
+            lp = post(prior_draws)
+            if np.isfinite(lp).any():
+                theta = prior_draws[int(np.argmax(lp))]
+        best, val = _polish(post, theta, max_evals)
+        results.append((val, best, combo))
+    results.sort(key=lambda r: -r[0])
+    best_val, best, _ = results[0]
+    # second polish with re-centred windows
+    space.set_centres(best[None, :])
+    best = space.wrap_angles(best[None, :])[0]
+    best, best_val = _polish(post, best, max_evals)
+    others = []
+    for val, theta, combo in results[1:]:
+        if best_val - val < 10.0:
+            periods = {c.name: float(space.unpack(theta[None, :])[f"{c.name}.period_yr"][0])
+                       for c in space.target.companions}
+            if all(abs(math.log(periods[c.name]) - math.log(float(space.unpack(best[None, :])[f"{c.name}.period_yr"][0]))) < 0.02
+                   for c in space.target.companions):
+                continue
+            others.append({"delta_log_posterior": float(best_val - val), "period_yr": periods})
+    cov = _hessian_cov(post, best)
+    walkers = _scatter(post, best, cov, n_walkers, rng)
+    log.info("initialised at log posterior %.3f (%d grid points, %d competing modes)",
+             best_val, n_grid, len(others))
+    return InitialSolution(walkers=walkers, best=best, best_log_post=float(best_val),
+                           other_modes=others, n_grid=n_grid)
+
+
+def _scatter(post, best, cov, n_walkers, rng):
+    d = best.size
+    out = []
+    scale = 1.0
+    tries = 0
+    while len(out) < n_walkers and tries < 50:
+        tries += 1
+        draws = rng.multivariate_normal(best, cov * scale, size=4 * n_walkers, method="eigh")
+        draws = post.space.wrap_angles(draws)
+        lp = post(draws)
+        good = draws[np.isfinite(lp) & (lp > np.max(lp[np.isfinite(lp)], initial=-np.inf) - 10.0 * d)] \
+            if np.isfinite(lp).any() else draws[:0]
+        out.extend(good[: n_walkers - len(out)])
+        if len(good) < n_walkers // 4:
+            scale *= 0.3
+    if len(out) < n_walkers:
+        tiny = best + 1e-6 * rng.standard_normal((n_walkers - len(out), d))
+        out.extend(tiny)
+    return np.array(out[:n_walkers])

@@ -1,0 +1,568 @@
+"""The sampled parameter vector: layout, transforms, priors and unpacking.
+
+A :class:`ParameterSpace` is built from a :class:`~orbitmass.data.Target`. It
+decides which quantities are sampled and in which variable, evaluates the log
+prior in the sampled variables (Jacobians included), and turns a block of
+sampled vectors ``theta`` of shape ``(n_sets, n_dim)`` into physical
+quantities (plain floats, internal units).
+
+Sampled variables
+-----------------
+=========================  ===================================================
+variable                   meaning (prior is always stated on the physical
+                           quantity; the Jacobian of the transform is added)
+=========================  ===================================================
+``ln_mass``                ln of the total mass (Msun)
+``ln_distance``            ln of the distance (pc), when a distance prior is given
+``ln_parallax``            ln of the parallax (mas), when a parallax prior is given
+``<C>.ln_period``          ln of the rest-frame period (yr)
+``<C>.sqrte_cosw``,        sqrt(e) cos(omega), sqrt(e) sin(omega): uniform on the
+``<C>.sqrte_sinw``         unit disc is uniform in e and omega (Jacobian 2)
+``<C>.omega``              omega alone, when e is fixed and non-zero
+``<P>.cos_i``              cos(inclination) of plane P (a companion's own plane by
+                           default); isotropic = uniform in cos i
+``<P>.node``               position angle of the ascending node Omega (rad)
+``<C>.mean_longitude``     lambda = M0 + omega at the reference epoch (rad); better
+                           defined than M0 for nearly circular orbits
+``<C>.mass_ratio``         companion / central body mass, with central-body velocities
+``offset.<inst>``          instrument zero point (km/s)
+``jitter.<inst>``          extra RV scatter (km/s), or ``ln_jitter.<inst>`` for a
+                           log-uniform prior
+``x0``, ``y0``, ``vx0``,   absolute frame: barycentre position (mas) and proper
+``vy0``, ``vz0``           motion (mas/yr) at the reference epoch, and its
+                           line-of-sight velocity (km/s)
+``systemic``               relative frame: barycentre velocity (km/s) if not fixed
+=========================  ===================================================
+
+Angles on the circle (``node``, ``mean_longitude``, ``omega``) are sampled on a
+window of one full turn centred where the initialisation put them, so the
+posterior is proper and has no wall at the mode. Without any line-of-sight
+information on a plane, (omega, Omega) and (omega + 180 deg, Omega + 180 deg)
+predict the same positions: the node window is then half a turn and the prior
+density sums the two equivalent points.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+
+from orbitmass.data import Companion, Target
+from orbitmass.exceptions import InputError
+from orbitmass.priors import Fixed, Isotropic, LogUniform, Prior, Uniform
+
+__all__ = ["Variable", "ParameterSpace"]
+
+TWO_PI = 2.0 * math.pi
+LN2 = math.log(2.0)
+
+
+@dataclass
+class Variable:
+    """One sampled variable.
+
+    ``kind`` is ``"linear"`` (the physical quantity itself), ``"log"`` (its
+    natural log), ``"angle"`` (an angle on a window ``[centre - width/2,
+    centre + width/2)``), or ``"special"`` (handled by the space: the
+    eccentricity vector and cos i).
+    """
+
+    name: str
+    kind: str
+    prior: Prior | None = None
+    centre: float = 0.0
+    width: float = TWO_PI
+    label: str = ""
+
+
+@dataclass
+class _CompanionLayout:
+    name: str
+    plane: str
+    ecc_mode: str  # "vector", "fixed-circular", "fixed"
+    ecc_fixed: float = 0.0
+    phase_from_tp: bool = False
+    tp_fixed: float | None = None
+    has_q: bool = False
+    idx: dict[str, int] = field(default_factory=dict)
+
+
+class ParameterSpace:
+    """Layout of the sampled vector for one target.
+
+    Parameters
+    ----------
+    target : Target
+        The validated target (data and priors).
+    redshift_distance_pc : float or None
+        Angular-diameter distance (pc) when the distance is fixed by a
+        redshift alone.
+    """
+
+    def __init__(self, target: Target, redshift_distance_pc: float | None = None):
+        self.target = target
+        self.t_ref = float(target.reference_epoch)
+        z = target.distance.redshift
+        self.one_plus_z = 1.0 + (float(z) if z is not None else 0.0)
+        self.variables: list[Variable] = []
+        self.index: dict[str, int] = {}
+        self.fixed_distance_pc = redshift_distance_pc
+        cp = target.central_priors
+
+        self._add_positive("ln_mass", cp["mass"], "total mass")
+        dist = target.distance
+        if dist.parallax is not None:
+            self.distance_mode = "parallax"
+            self._add_positive("ln_parallax", dist.parallax, "parallax")
+        elif dist.prior is not None:
+            self.distance_mode = "distance"
+            self._add_positive("ln_distance", dist.prior, "distance")
+        elif redshift_distance_pc is not None:
+            self.distance_mode = "fixed"
+        else:
+            raise InputError("no distance information: give [distance] prior, parallax or redshift",
+                             file=target.source, key="distance")
+
+        # planes: companions sharing a `plane` key share cos i and node
+        self.planes: dict[str, dict] = {}
+        for comp in target.companions:
+            pname = comp.plane if comp.plane else f"{comp.name}"
+            info = self.planes.setdefault(pname, {"members": [], "los": False})
+            info["members"].append(comp.name)
+            info["los"] = info["los"] or comp.has_velocities
+        for pname, info in self.planes.items():
+            first = next(c for c in target.companions if c.name == info["members"][0])
+            inc = first.priors["inclination"]
+            node = first.priors["ascending_node"]
+            info["inc_prior"] = inc
+            info["node_prior"] = node
+            info["i_var"] = None if inc.fixed else self._add(Variable(f"{pname}.cos_i", "special", inc, label="cos i"))
+            width = TWO_PI if info["los"] else math.pi
+            info["node_var"] = None if node.fixed else self._add(
+                Variable(f"{pname}.node", "angle", node, width=width, label="Omega"))
+
+        self.companions: list[_CompanionLayout] = []
+        for comp in target.companions:
+            self.companions.append(self._layout_companion(comp))
+
+        # instruments
+        self.instrument_names = list(target.instruments)
+        self.offset_idx: dict[str, int | None] = {}
+        self.jitter_idx: dict[str, int | None] = {}
+        for name, inst in target.instruments.items():
+            self.offset_idx[name] = None if inst.offset.fixed else self._add(
+                Variable(f"offset.{name}", "linear", inst.offset, label=f"offset {name}"))
+            if inst.jitter.fixed:
+                self.jitter_idx[name] = None
+            elif isinstance(inst.jitter, LogUniform):
+                self.jitter_idx[name] = self._add(Variable(f"ln_jitter.{name}", "log", inst.jitter,
+                                                           label=f"jitter {name}"))
+            else:
+                self.jitter_idx[name] = self._add(Variable(f"jitter.{name}", "linear", inst.jitter,
+                                                           label=f"jitter {name}"))
+        self.frame_idx: dict[str, int | None] = {}
+        keys = ("x0", "y0", "vx0", "vy0", "vz0") if target.frame == "absolute" else ("systemic",)
+        for key in keys:
+            pr = cp[key]
+            self.frame_idx[key] = None if pr.fixed else self._add(Variable(key, "linear", pr, label=key))
+        self.ndim = len(self.variables)
+        self.names = [v.name for v in self.variables]
+
+    # ------------------------------------------------------------------ layout
+    def _add(self, var: Variable) -> int:
+        if var.name in self.index:
+            raise InputError(f"duplicate parameter {var.name!r} (companion names must be unique)",
+                             file=self.target.source, key=var.name)
+        self.index[var.name] = len(self.variables)
+        self.variables.append(var)
+        return self.index[var.name]
+
+    def _add_positive(self, name: str, prior: Prior, label: str) -> int | None:
+        if prior.fixed:
+            return None
+        return self._add(Variable(name, "log", prior, label=label))
+
+    def _layout_companion(self, comp: Companion) -> _CompanionLayout:
+        pr = comp.priors
+        pname = comp.plane if comp.plane else comp.name
+        ecc = pr["eccentricity"]
+        if ecc.fixed and float(ecc.value) == 0.0:
+            mode, e0 = "fixed-circular", 0.0
+        elif ecc.fixed:
+            mode, e0 = "fixed", float(ecc.value)
+        else:
+            mode, e0 = "vector", 0.0
+        lay = _CompanionLayout(name=comp.name, plane=pname, ecc_mode=mode, ecc_fixed=e0)
+        n = comp.name
+        if pr["period"].fixed:
+            lay.idx["ln_period"] = -1
+        else:
+            lay.idx["ln_period"] = self._add(Variable(f"{n}.ln_period", "log", pr["period"], label=f"P {n}"))
+        if mode == "vector":
+            lay.idx["h"] = self._add(Variable(f"{n}.sqrte_cosw", "special", ecc, label="sqrt(e) cos w"))
+            lay.idx["k"] = self._add(Variable(f"{n}.sqrte_sinw", "special", ecc, label="sqrt(e) sin w"))
+        elif mode == "fixed" and not pr["arg_periastron"].fixed:
+            lay.idx["omega"] = self._add(Variable(f"{n}.omega", "angle", pr["arg_periastron"], label="omega"))
+        if "periastron_time" in pr:
+            lay.phase_from_tp = True
+            tp = pr["periastron_time"]
+            if tp.fixed:
+                lay.tp_fixed = float(tp.value)
+            else:
+                lay.idx["lambda"] = self._add(Variable(f"{n}.mean_longitude", "angle", tp, label="lambda"))
+        else:
+            m0 = pr["mean_anomaly"]
+            if m0.fixed:
+                lay.idx["lambda"] = -1
+            else:
+                lay.idx["lambda"] = self._add(Variable(f"{n}.mean_longitude", "angle", m0, label="lambda"))
+        if "mass_ratio" in pr:
+            lay.has_q = True
+            if not pr["mass_ratio"].fixed:
+                lay.idx["q"] = self._add(Variable(f"{n}.mass_ratio", "linear", pr["mass_ratio"], label="q"))
+        return lay
+
+    def companion(self, name: str) -> Companion:
+        """The data and priors of companion ``name``."""
+        return next(c for c in self.target.companions if c.name == name)
+
+    # --------------------------------------------------------------- unpacking
+    def unpack(self, theta: NDArray[np.float64]) -> dict[str, NDArray[np.float64]]:
+        """Physical quantities for a block of sampled vectors.
+
+        Parameters
+        ----------
+        theta : ndarray, shape (n_sets, n_dim)
+
+        Returns
+        -------
+        dict
+            Arrays of shape (n_sets,): ``mass_msun``, ``distance_pc``, and per
+            companion ``<C>.period_yr`` (rest frame), ``<C>.period_obs_yr``,
+            ``<C>.ecc``, ``<C>.omega``, ``<C>.cos_i``, ``<C>.sin_i``,
+            ``<C>.node``, ``<C>.m0`` (mean anomaly at the reference epoch),
+            ``<C>.q``; ``offset.<inst>``, ``jitter.<inst>``, frame terms.
+        """
+        theta = np.atleast_2d(theta)
+        n = theta.shape[0]
+        cp = self.target.central_priors
+        out: dict[str, NDArray[np.float64]] = {}
+
+        def get(idx, prior, kind="linear"):
+            if idx is None or idx == -1:
+                return np.full(n, float(prior.value))
+            col = theta[:, idx]
+            return np.exp(col) if kind == "log" else col
+
+        out["mass_msun"] = get(self.index.get("ln_mass"), cp["mass"], "log")
+        if self.distance_mode == "parallax":
+            plx = get(self.index.get("ln_parallax"), self.target.distance.parallax, "log")
+            out["distance_pc"] = 1000.0 / plx
+        elif self.distance_mode == "distance":
+            out["distance_pc"] = get(self.index.get("ln_distance"), self.target.distance.prior, "log")
+        else:
+            out["distance_pc"] = np.full(n, float(self.fixed_distance_pc))
+
+        for pname, info in self.planes.items():
+            if info["i_var"] is None:
+                inc = float(info["inc_prior"].value)
+                cos_i = np.full(n, math.cos(inc))
+            else:
+                cos_i = theta[:, info["i_var"]]
+            sin_i = np.sqrt(np.clip(1.0 - cos_i * cos_i, 0.0, None))
+            node = get(info["node_var"], info["node_prior"])
+            for member in info["members"]:
+                out[f"{member}.cos_i"] = cos_i
+                out[f"{member}.sin_i"] = sin_i
+                out[f"{member}.node"] = node
+
+        for lay in self.companions:
+            comp = self.companion(lay.name)
+            pr = comp.priors
+            c = lay.name
+            period = get(lay.idx["ln_period"], pr["period"], "log")
+            out[f"{c}.period_yr"] = period
+            out[f"{c}.period_obs_yr"] = period * self.one_plus_z
+            if lay.ecc_mode == "vector":
+                h = theta[:, lay.idx["h"]]
+                k = theta[:, lay.idx["k"]]
+                out[f"{c}.ecc"] = h * h + k * k
+                out[f"{c}.omega"] = np.arctan2(k, h)
+            else:
+                out[f"{c}.ecc"] = np.full(n, lay.ecc_fixed)
+                if lay.ecc_mode == "fixed-circular":
+                    out[f"{c}.omega"] = np.zeros(n)
+                else:
+                    out[f"{c}.omega"] = get(lay.idx.get("omega"), pr["arg_periastron"])
+            if lay.phase_from_tp and lay.tp_fixed is not None:
+                m0 = TWO_PI * (self.t_ref - lay.tp_fixed) / out[f"{c}.period_obs_yr"]
+            elif lay.idx["lambda"] == -1:
+                m0 = np.full(n, float(pr["mean_anomaly"].value))
+            else:
+                m0 = theta[:, lay.idx["lambda"]] - out[f"{c}.omega"]
+            out[f"{c}.m0"] = m0
+            if lay.has_q:
+                out[f"{c}.q"] = get(lay.idx.get("q"), pr["mass_ratio"])
+            else:
+                out[f"{c}.q"] = np.zeros(n)
+
+        for name in self.instrument_names:
+            inst = self.target.instruments[name]
+            out[f"offset.{name}"] = get(self.offset_idx[name], inst.offset)
+            jidx = self.jitter_idx[name]
+            kind = "log" if (jidx is not None and self.variables[jidx].kind == "log") else "linear"
+            out[f"jitter.{name}"] = get(jidx, inst.jitter, kind)
+        for key, idx in self.frame_idx.items():
+            out[key] = get(idx, cp[key])
+        return out
+
+    # ------------------------------------------------------------------ priors
+    def log_prior(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Log prior density in the sampled variables, shape (n_sets,).
+
+        Includes the Jacobian of every transform, so that the physical
+        quantities follow the stated priors exactly.
+        """
+        theta = np.atleast_2d(theta)
+        lp = np.zeros(theta.shape[0])
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            for var in self.variables:
+                x = theta[:, self.index[var.name]]
+                if var.kind == "log":
+                    val = np.exp(x)
+                    lp += var.prior.log_pdf(val) + x
+                elif var.kind == "linear":
+                    lp += var.prior.log_pdf(x)
+                elif var.kind == "angle":
+                    half = 0.5 * var.width
+                    inside = (x >= var.centre - half) & (x < var.centre + half)
+                    lp += np.where(inside, 0.0, -np.inf)
+            for pname, info in self.planes.items():
+                if info["i_var"] is not None:
+                    c = theta[:, info["i_var"]]
+                    inside = (c > -1.0) & (c < 1.0)
+                    prior = info["inc_prior"]
+                    if isinstance(prior, Isotropic):
+                        lp += np.where(inside, -LN2, -np.inf)
+                    else:
+                        cc = np.clip(c, -1.0, 1.0)
+                        inc = np.arccos(cc)
+                        lp += np.where(inside, prior.log_pdf(inc) - np.log(np.sqrt(1 - cc * cc)), -np.inf)
+                if info["node_var"] is not None:
+                    node = theta[:, info["node_var"]]
+                    lp += self._circular_log_pdf(info["node_prior"], node, info["los"], pname)
+            for lay in self.companions:
+                lp += self._companion_log_prior(lay, theta)
+        lp[~np.isfinite(lp)] = -np.inf
+        return lp
+
+    @staticmethod
+    def _wrapped_log_pdf(prior: Prior, angle: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Log density of an angle prior given on [0, 2 pi) (or any range) at ``angle`` mod 2 pi."""
+        if isinstance(prior, Uniform) and prior.high - prior.low >= TWO_PI - 1e-12:
+            return np.full(angle.shape, -math.log(TWO_PI))
+        low, _ = prior.support
+        base = low if math.isfinite(low) else -math.pi
+        wrapped = np.mod(angle - base, TWO_PI) + base
+        return prior.log_pdf(wrapped)
+
+    def _circular_log_pdf(self, prior: Prior, node, los: bool, pname: str):
+        lp = self._wrapped_log_pdf(prior, node)
+        if not los:
+            # (omega, Omega) ~ (omega + pi, Omega + pi): sum the equivalent points
+            lp = np.logaddexp(lp, self._wrapped_log_pdf(prior, node + math.pi))
+        return lp
+
+    def _companion_log_prior(self, lay: _CompanionLayout, theta):
+        comp = self.companion(lay.name)
+        pr = comp.priors
+        n = theta.shape[0]
+        lp = np.zeros(n)
+        if lay.ecc_mode == "vector":
+            h = theta[:, lay.idx["h"]]
+            k = theta[:, lay.idx["k"]]
+            e = h * h + k * k
+            omega = np.arctan2(k, h)
+            inside = e < 1.0
+            lp += np.where(inside, pr["eccentricity"].log_pdf(e) + LN2, -np.inf)
+            lp += self._wrapped_log_pdf(pr["arg_periastron"], omega)
+        elif lay.ecc_mode == "fixed" and "omega" in lay.idx:
+            lp += self._wrapped_log_pdf(pr["arg_periastron"], theta[:, lay.idx["omega"]])
+        if lay.idx.get("lambda", -1) >= 0:
+            lam = theta[:, lay.idx["lambda"]]
+            m0 = lam - self._omega(lay, theta)
+            if lay.phase_from_tp:
+                period = np.exp(theta[:, lay.idx["ln_period"]]) if lay.idx["ln_period"] >= 0 \
+                    else np.full(n, float(pr["period"].value))
+                lp += self._periastron_time_log_pdf(pr["periastron_time"], m0, period * self.one_plus_z)
+            else:
+                lp += self._wrapped_log_pdf(pr["mean_anomaly"], m0)
+        return lp
+
+    def _omega(self, lay: _CompanionLayout, theta):
+        n = theta.shape[0]
+        if lay.ecc_mode == "vector":
+            return np.arctan2(theta[:, lay.idx["k"]], theta[:, lay.idx["h"]])
+        if "omega" in lay.idx:
+            return theta[:, lay.idx["omega"]]
+        if lay.ecc_mode == "fixed-circular":
+            return np.zeros(n)
+        return np.full(n, float(self.companion(lay.name).priors["arg_periastron"].value))
+
+    def _periastron_time_log_pdf(self, prior: Prior, m0, period_obs):
+        """Density of M0 implied by a prior on the periastron time (periodic in P)."""
+        t0 = self.t_ref - np.mod(m0, TWO_PI) / TWO_PI * period_obs
+        low, high = prior.support
+        if isinstance(prior, Uniform):
+            count = np.floor((high - t0) / period_obs) - np.ceil((low - t0) / period_obs) + 1.0
+            with np.errstate(divide="ignore"):
+                return np.log(np.clip(count, 0.0, None)) - math.log(high - low) + np.log(period_obs / TWO_PI)
+        mean = getattr(prior, "mean", 0.5 * (low + high))
+        sd = getattr(prior, "sd", 0.25 * (high - low))
+        k0 = np.round((mean - t0) / period_obs)
+        span = int(min(50, math.ceil(8.0 * sd / max(float(np.min(period_obs)), 1e-12)) + 1))
+        acc = np.full(t0.shape, -np.inf)
+        for j in range(-span, span + 1):
+            acc = np.logaddexp(acc, prior.log_pdf(t0 + (k0 + j) * period_obs))
+        return acc + np.log(period_obs / TWO_PI)
+
+    # ----------------------------------------------------------------- packing
+    def pack(self, values: dict[str, NDArray[np.float64] | float]) -> NDArray[np.float64]:
+        """Sampled vectors from physical quantities (inverse of :meth:`unpack`).
+
+        ``values`` holds the keys :meth:`unpack` returns (per plane, those of
+        its first member are used); angles are placed in their windows.
+        """
+        arrays = {k: np.atleast_1d(np.asarray(v, dtype=float)) for k, v in values.items()}
+        n = max(a.size for a in arrays.values())
+        theta = np.zeros((n, self.ndim))
+
+        def put(name, val):
+            if name in self.index:
+                theta[:, self.index[name]] = val
+
+        put("ln_mass", np.log(arrays["mass_msun"]))
+        put("ln_distance", np.log(arrays["distance_pc"]))
+        put("ln_parallax", np.log(1000.0 / arrays["distance_pc"]))
+        for pname, info in self.planes.items():
+            first = info["members"][0]
+            if info["i_var"] is not None:
+                theta[:, info["i_var"]] = arrays[f"{first}.cos_i"]
+            if info["node_var"] is not None:
+                theta[:, info["node_var"]] = arrays[f"{first}.node"]
+        for lay in self.companions:
+            c = lay.name
+            if lay.idx["ln_period"] >= 0:
+                theta[:, lay.idx["ln_period"]] = np.log(arrays[f"{c}.period_yr"])
+            omega = arrays.get(f"{c}.omega", np.zeros(n))
+            if lay.ecc_mode == "vector":
+                s = np.sqrt(arrays[f"{c}.ecc"])
+                theta[:, lay.idx["h"]] = s * np.cos(omega)
+                theta[:, lay.idx["k"]] = s * np.sin(omega)
+            elif "omega" in lay.idx:
+                theta[:, lay.idx["omega"]] = omega
+            if lay.idx.get("lambda", -1) >= 0:
+                theta[:, lay.idx["lambda"]] = arrays[f"{c}.m0"] + omega
+            if "q" in lay.idx:
+                theta[:, lay.idx["q"]] = arrays[f"{c}.q"]
+        for name in self.instrument_names:
+            if self.offset_idx[name] is not None:
+                theta[:, self.offset_idx[name]] = arrays.get(f"offset.{name}", 0.0)
+            jidx = self.jitter_idx[name]
+            if jidx is not None:
+                j = arrays.get(f"jitter.{name}", np.full(n, 0.0))
+                theta[:, jidx] = np.log(j) if self.variables[jidx].kind == "log" else j
+        for key, idx in self.frame_idx.items():
+            if idx is not None:
+                theta[:, idx] = arrays.get(key, 0.0)
+        return self.wrap_angles(theta)
+
+    def wrap_angles(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Bring every angle into its window (the model is periodic, so this moves nothing physical).
+
+        For a half-turn node window the companion's omega (and mean longitude)
+        move by half a turn with the node, which leaves positions unchanged.
+        """
+        theta = np.array(theta, dtype=float, copy=True)
+        for var in self.variables:
+            if var.kind != "angle":
+                continue
+            j = self.index[var.name]
+            lo = var.centre - 0.5 * var.width
+            turns = np.floor((theta[:, j] - lo) / var.width)
+            theta[:, j] -= turns * var.width
+            if var.width < TWO_PI and var.name.endswith(".node"):
+                odd = np.mod(turns, 2.0) != 0
+                pname = var.name[: -len(".node")]
+                for member in self.planes[pname]["members"]:
+                    lay = next(l for l in self.companions if l.name == member)
+                    self._rotate_omega(lay, theta, odd)
+        return theta
+
+    def _rotate_omega(self, lay: _CompanionLayout, theta, mask):
+        """omega -> omega + pi (and lambda with it) where ``mask``."""
+        if lay.ecc_mode == "vector":
+            theta[mask, lay.idx["h"]] *= -1.0
+            theta[mask, lay.idx["k"]] *= -1.0
+        elif "omega" in lay.idx:
+            theta[mask, lay.idx["omega"]] += math.pi
+        if lay.idx.get("lambda", -1) >= 0:
+            theta[mask, lay.idx["lambda"]] += math.pi
+
+    def set_centres(self, theta0: NDArray[np.float64]) -> None:
+        """Centre every angle window on the circular mean of ``theta0`` rows."""
+        theta0 = np.atleast_2d(theta0)
+        for var in self.variables:
+            if var.kind == "angle":
+                col = theta0[:, self.index[var.name]]
+                factor = TWO_PI / var.width
+                var.centre = float(np.angle(np.mean(np.exp(1j * factor * col)))) / factor
+
+    def sample_prior(self, rng: np.random.Generator, n: int) -> NDArray[np.float64]:
+        """Draw ``n`` sampled vectors from the prior (for initialisation and calibration)."""
+        values: dict[str, NDArray[np.float64]] = {}
+        cp = self.target.central_priors
+        values["mass_msun"] = cp["mass"].sample(rng, n)
+        d = self.target.distance
+        if self.distance_mode == "parallax":
+            values["distance_pc"] = 1000.0 / np.abs(d.parallax.sample(rng, n))
+        elif self.distance_mode == "distance":
+            values["distance_pc"] = np.abs(d.prior.sample(rng, n))
+        else:
+            values["distance_pc"] = np.full(n, self.fixed_distance_pc)
+        for pname, info in self.planes.items():
+            first = info["members"][0]
+            values[f"{first}.cos_i"] = np.cos(info["inc_prior"].sample(rng, n))
+            values[f"{first}.node"] = info["node_prior"].sample(rng, n)
+        for lay in self.companions:
+            pr = self.companion(lay.name).priors
+            c = lay.name
+            values[f"{c}.period_yr"] = pr["period"].sample(rng, n)
+            values[f"{c}.ecc"] = pr["eccentricity"].sample(rng, n)
+            values[f"{c}.omega"] = pr["arg_periastron"].sample(rng, n)
+            if lay.phase_from_tp:
+                tp = pr["periastron_time"].sample(rng, n)
+                values[f"{c}.m0"] = TWO_PI * (self.t_ref - tp) / (values[f"{c}.period_yr"] * self.one_plus_z)
+            else:
+                values[f"{c}.m0"] = pr["mean_anomaly"].sample(rng, n)
+            if lay.has_q:
+                values[f"{c}.q"] = pr["mass_ratio"].sample(rng, n)
+        for name in self.instrument_names:
+            inst = self.target.instruments[name]
+            values[f"offset.{name}"] = inst.offset.sample(rng, n)
+            values[f"jitter.{name}"] = inst.jitter.sample(rng, n)
+        for key in self.frame_idx:
+            values[key] = cp[key].sample(rng, n)
+        return self.pack(values)
+
+    def semimajor_axes(self, phys: dict[str, NDArray[np.float64]], name: str):
+        """(a_au, a_mas) of companion ``name`` by Kepler III (rest-frame period)."""
+        from orbitmass.physics import semimajor_axis_au
+
+        a_au = semimajor_axis_au(phys["mass_msun"], phys[f"{name}.period_yr"])
+        a_mas = a_au / phys["distance_pc"] * 1000.0
+        return a_au, a_mas
+

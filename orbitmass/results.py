@@ -1,0 +1,251 @@
+"""Immutable posterior container: samples, summaries, diagnostics, provenance.
+
+:class:`Results` holds every retained posterior sample as a pandas
+``DataFrame`` whose column names carry the unit (``mass_msun``,
+``C1.period_yr``...; see :data:`COLUMN_DOC`), the raw chain for trace plots,
+and the ``summary`` dictionary written to ``summary.json``. It can predict
+the model for posterior draws (for orbit figures) without any sampler.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from orbitmass.data import Target
+from orbitmass.parameters import ParameterSpace
+from orbitmass.physics import (
+    periastron_au,
+    periastron_speed_kms,
+    schwarzschild_radius_au,
+    semimajor_axis_au,
+)
+
+__all__ = ["Results", "QUANTILES", "quantile_block", "derive_samples", "COLUMN_DOC"]
+
+#: summary.json quantile keys -> probability
+QUANTILES = {"median": 0.5, "q16": 0.15865525393145707, "q84": 0.8413447460685429,
+             "q2.5": 0.025, "q97.5": 0.975}
+
+#: column (with ``<C>.`` for a companion, ``<I>`` an instrument) -> (label, unit, meaning)
+COLUMN_DOC: dict[str, tuple[str, str, str]] = {
+    "mass_msun": ("M", "M_sun", "total mass of central body + companion (Kepler III)"),
+    "distance_pc": ("D", "pc", "distance (angular-diameter distance for a redshift)"),
+    "parallax_mas": ("varpi", "mas", "parallax 1000 / D"),
+    "schwarzschild_radius_au": ("R_S", "au", "Schwarzschild radius 2GM/c^2 of the total mass"),
+    "systemic_kms": ("v_sys", "km/s", "barycentre line-of-sight velocity (relative frame)"),
+    "x0_mas": ("x0", "mas", "barycentre east offset at the reference epoch"),
+    "y0_mas": ("y0", "mas", "barycentre north offset at the reference epoch"),
+    "vx0_mas_per_yr": ("vx0", "mas/yr", "barycentre east proper motion"),
+    "vy0_mas_per_yr": ("vy0", "mas/yr", "barycentre north proper motion"),
+    "vz0_kms": ("vz0", "km/s", "barycentre line-of-sight velocity (absolute frame)"),
+    "offset_kms.<I>": ("offset", "km/s", "zero-point offset of instrument <I>"),
+    "jitter_kms.<I>": ("jitter", "km/s", "extra velocity scatter of instrument <I>"),
+    "<C>.period_yr": ("P", "yr", "orbital period (rest frame)"),
+    "<C>.period_obs_yr": ("P_obs", "yr", "orbital period on the observed timeline (1+z) P"),
+    "<C>.eccentricity": ("e", "", "eccentricity"),
+    "<C>.inclination_deg": ("i", "deg", "inclination; < 90 deg: position angle increases"),
+    "<C>.arg_periastron_deg": ("omega", "deg", "argument of periastron of the companion"),
+    "<C>.ascending_node_deg": ("Omega", "deg", "position angle of the ascending (receding) node"),
+    "<C>.mean_anomaly_deg": ("M0", "deg", "mean anomaly at the reference epoch"),
+    "<C>.periastron_time_jyr": ("T_p", "Julian yr", "epoch of periastron nearest the reference epoch"),
+    "<C>.semimajor_axis_mas": ("a", "mas", "angular semimajor axis of the relative orbit"),
+    "<C>.semimajor_axis_au": ("a", "au", "semimajor axis of the relative orbit"),
+    "<C>.periastron_au": ("r_p", "au", "periastron distance a (1 - e)"),
+    "<C>.periastron_rs": ("r_p", "R_S", "periastron in Schwarzschild radii of the total mass"),
+    "<C>.periastron_speed_kms": ("v_p", "km/s", "relative speed at periastron (vis-viva)"),
+    "<C>.semi_amplitude_kms": ("K", "km/s", "velocity semi-amplitude of the relative orbit"),
+    "<C>.mass_ratio": ("q", "", "companion / central body mass"),
+    "<C>.central_mass_msun": ("M_c", "M_sun", "central body mass M / (1 + q)"),
+    "<C>.companion_mass_msun": ("m", "M_sun", "companion mass q M / (1 + q)"),
+    "<C>.A_mas": ("A", "mas", "Thiele-Innes constant A"),
+    "<C>.B_mas": ("B", "mas", "Thiele-Innes constant B"),
+    "<C>.F_mas": ("F", "mas", "Thiele-Innes constant F"),
+    "<C>.G_mas": ("G", "mas", "Thiele-Innes constant G"),
+    "log_posterior": ("ln p", "", "log posterior density (sampled variables)"),
+}
+
+
+def quantile_block(x: NDArray[np.float64]) -> dict[str, float]:
+    """The five quantiles of the output contract for samples ``x``."""
+    x = np.asarray(x, dtype=float)
+    x = x[np.isfinite(x)]
+    if x.size == 0:
+        return {k: float("nan") for k in QUANTILES}
+    q = np.quantile(x, list(QUANTILES.values()))
+    return {k: float(v) for k, v in zip(QUANTILES, q)}
+
+
+def _circular_centre_deg(x_deg: NDArray[np.float64], period: float = 360.0) -> float:
+    ang = np.asarray(x_deg) * (2 * math.pi / period)
+    c = math.degrees(math.atan2(np.mean(np.sin(ang)), np.mean(np.cos(ang)))) * period / 360.0
+    return c % period
+
+
+def _wrap_around(x_deg, centre, period=360.0):
+    return (np.asarray(x_deg) - centre + period / 2) % period - period / 2 + centre
+
+
+def derive_samples(space: ParameterSpace, theta: NDArray[np.float64],
+                   log_post: NDArray[np.float64] | None = None) -> pd.DataFrame:
+    """Every sampled and derived quantity for posterior samples ``theta`` (n, n_dim).
+
+    Angles are wrapped around their circular mean (so intervals do not
+    straddle the 0/360 deg cut); with the (omega, Omega) ambiguity Omega is
+    reported on a half turn. Columns are listed in :data:`COLUMN_DOC`.
+    """
+    from orbitmass.model import thiele_innes
+
+    phys = space.unpack(theta)
+    cols: dict[str, NDArray[np.float64]] = {}
+    mass = phys["mass_msun"]
+    dist = phys["distance_pc"]
+    cols["mass_msun"] = mass
+    cols["distance_pc"] = dist
+    cols["parallax_mas"] = 1000.0 / dist
+    cols["schwarzschild_radius_au"] = schwarzschild_radius_au(mass)
+    for key, col in (("systemic", "systemic_kms"), ("x0", "x0_mas"), ("y0", "y0_mas"),
+                     ("vx0", "vx0_mas_per_yr"), ("vy0", "vy0_mas_per_yr"), ("vz0", "vz0_kms")):
+        if key in phys:
+            cols[col] = phys[key]
+    for name in space.instrument_names:
+        cols[f"offset_kms.{name}"] = phys[f"offset.{name}"]
+        cols[f"jitter_kms.{name}"] = phys[f"jitter.{name}"]
+    for lay in space.companions:
+        c = lay.name
+        plane_info = space.planes[lay.plane]
+        p = phys[f"{c}.period_yr"]
+        e = phys[f"{c}.ecc"]
+        a_au = semimajor_axis_au(mass, p)
+        a_mas = a_au / dist * 1000.0
+        cos_i = np.clip(phys[f"{c}.cos_i"], -1, 1)
+        inc = np.degrees(np.arccos(cos_i))
+        omega = np.degrees(phys[f"{c}.omega"]) % 360.0
+        node = np.degrees(phys[f"{c}.node"]) % 360.0
+        m0 = np.degrees(phys[f"{c}.m0"]) % 360.0
+        node_period = 360.0 if plane_info["los"] else 180.0
+        if node_period == 180.0:
+            flip = node >= 180.0
+            node = np.where(flip, node - 180.0, node)
+            omega = np.where(flip, (omega + 180.0) % 360.0, omega)
+        cols[f"{c}.period_yr"] = p
+        if space.one_plus_z != 1.0:
+            cols[f"{c}.period_obs_yr"] = phys[f"{c}.period_obs_yr"]
+        cols[f"{c}.eccentricity"] = e
+        cols[f"{c}.inclination_deg"] = inc
+        cols[f"{c}.arg_periastron_deg"] = _wrap_around(omega, _circular_centre_deg(omega))
+        cols[f"{c}.ascending_node_deg"] = _wrap_around(node, _circular_centre_deg(node, node_period), node_period)
+        m0_centre = _circular_centre_deg(m0)
+        cols[f"{c}.mean_anomaly_deg"] = _wrap_around(m0, m0_centre)
+        # periastron nearest the reference epoch: M0 on (-180, 180] around its circular mean
+        m0_near = _wrap_around(m0, (m0_centre + 180.0) % 360.0 - 180.0)
+        cols[f"{c}.periastron_time_jyr"] = space.t_ref - np.radians(m0_near) / (2 * math.pi) * phys[f"{c}.period_obs_yr"]
+        cols[f"{c}.semimajor_axis_mas"] = a_mas
+        cols[f"{c}.semimajor_axis_au"] = a_au
+        rp = periastron_au(a_au, e)
+        cols[f"{c}.periastron_au"] = rp
+        cols[f"{c}.periastron_rs"] = rp / schwarzschild_radius_au(mass)
+        cols[f"{c}.periastron_speed_kms"] = periastron_speed_kms(mass, a_au, e)
+        sin_i = np.sqrt(1 - cos_i**2)
+        from orbitmass.units import KMS_PER_AU_PER_YR
+
+        cols[f"{c}.semi_amplitude_kms"] = 2 * math.pi * a_au * sin_i / (p * np.sqrt(1 - e**2)) * KMS_PER_AU_PER_YR
+        if lay.has_q:
+            q = phys[f"{c}.q"]
+            cols[f"{c}.mass_ratio"] = q
+            cols[f"{c}.central_mass_msun"] = mass / (1 + q)
+            cols[f"{c}.companion_mass_msun"] = mass * q / (1 + q)
+        w, W = phys[f"{c}.omega"], phys[f"{c}.node"]
+        A, B, F, G, _, _ = thiele_innes(a_mas, cos_i, sin_i, np.cos(w), np.sin(w), np.cos(W), np.sin(W))
+        cols[f"{c}.A_mas"], cols[f"{c}.B_mas"], cols[f"{c}.F_mas"], cols[f"{c}.G_mas"] = A, B, F, G
+    if log_post is not None:
+        cols["log_posterior"] = np.asarray(log_post, dtype=float)
+    return pd.DataFrame(cols)
+
+
+@dataclass(frozen=True)
+class Results:
+    """Posterior of one fit.
+
+    Attributes
+    ----------
+    target : Target
+        Data and priors that were fitted.
+    space : ParameterSpace
+        Layout of the sampled vector (needed to predict from samples).
+    samples : DataFrame
+        Retained samples, one row each; columns as :data:`COLUMN_DOC`.
+    theta : ndarray, shape (n_samples, n_dim)
+        The same samples in the sampled variables.
+    chain : ndarray, shape (n_steps, n_walkers, n_dim)
+        The whole chain (burn-in included) for trace plots.
+    log_prob : ndarray, shape (n_steps, n_walkers)
+    burn, thin : int
+        Steps discarded and thinning of the retained samples.
+    summary : dict
+        The content of ``summary.json``.
+    info : dict
+        Further run facts (initialisation, priors used, per-parameter diagnostics).
+    """
+
+    target: Target
+    space: ParameterSpace
+    samples: pd.DataFrame
+    theta: NDArray[np.float64]
+    chain: NDArray[np.float64]
+    log_prob: NDArray[np.float64]
+    burn: int
+    thin: int
+    summary: dict
+    info: dict = field(default_factory=dict)
+
+    @property
+    def companion_names(self) -> list[str]:
+        """Names of the companions, in target order."""
+        return [c.name for c in self.target.companions]
+
+    def draws(self, n: int, rng: np.random.Generator) -> NDArray[np.int64]:
+        """Indices of ``n`` random retained samples (without replacement when possible)."""
+        size = len(self.samples)
+        return rng.choice(size, size=min(n, size), replace=False)
+
+    def predict(self, companion: str, *, t_astro: NDArray | None = None, t_vel: NDArray | None = None,
+                central: bool = False, rows: NDArray[np.int64] | None = None) -> dict[str, NDArray[np.float64]]:
+        """Model curves for posterior samples.
+
+        Parameters
+        ----------
+        companion : str
+            Companion name.
+        t_astro, t_vel : ndarray, optional
+            Julian-year epochs for positions and velocities.
+        central : bool
+            Velocities of the central body instead of the companion.
+        rows : ndarray of int, optional
+            Which retained samples (default: all).
+
+        Returns
+        -------
+        dict
+            ``east_mas``, ``north_mas`` (frame of the data) and ``rv_kms``
+            (barycentric, systemic included, no instrument offset), each of
+            shape (n_rows, n_epochs).
+        """
+        from orbitmass.likelihood import LogPosterior
+
+        theta = self.theta if rows is None else self.theta[rows]
+        post = LogPosterior(self.space)
+        phys = self.space.unpack(theta)
+        phys["_companions"] = self.companion_names
+        tv = None if t_vel is None else np.asarray(t_vel, float)
+        central_rows = None if tv is None else np.full(tv.size, bool(central))
+        return post.predict(phys, companion, t_astro=None if t_astro is None else np.asarray(t_astro, float),
+                            t_vel=tv, central_rows=central_rows)
+
+    def velocity_offsets(self) -> dict[str, float]:
+        """Posterior-median zero-point offset (km/s) of every instrument."""
+        return {n: float(np.median(self.samples[f"offset_kms.{n}"])) for n in self.space.instrument_names}
