@@ -1,0 +1,303 @@
+"""Batch fits on dask.distributed: catalogue, failure isolation, retries, resume, seeds.
+
+The dask tests share one local cluster of 2 worker processes (one thread
+each) and fit a small invented sample with a short step cap (the fits do not
+converge; a not-converged fit still writes its whole run folder, which is all
+a batch needs). Outside references: target seeds are recomputed here with
+numpy's SeedSequence and hashlib's SHA-256 (FIPS 180-4); "a target gives the
+same result alone" is checked against a plain in-process Fit; catalogue values
+against the run folders' summary.json read with the json module; Parquet
+against pandas/pyarrow reading it back.
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import json
+import os
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from orbitmass import batch
+from orbitmass.batch import (
+    STATUS_FAILED,
+    STATUS_NOT_CONVERGED,
+    add_batch_parser,
+    cmd_batch,
+    expand_targets,
+    fit_batch,
+    fit_target,
+    open_client,
+    plan_batch,
+    target_seed,
+    write_example_sample,
+)
+from orbitmass.exceptions import InputError, OrbitmassError
+from orbitmass.io.rundir import is_complete_run
+
+MAX_STEPS = 300  # short chains: a few seconds per fit
+BAD_TARGET = """\
+[target]
+name = "Vell 9 AB"
+[central]
+mass = { dist = "log-uniform", low = 0.05, high = "50 solMass" }
+[distance]
+parallax = { dist = "normal", mean = "30 mas", sd = "0.3 mas" }
+[[companion]]
+name = "B"
+astrometry = "positions.csv"
+"""
+
+
+@pytest.fixture(scope="module")
+def sample(tmp_path_factory) -> dict:
+    """Three invented good targets and one with a bare number where a mass is required."""
+    data = tmp_path_factory.mktemp("sample")
+    good = write_example_sample(data / "good", 3, seed=11)
+    bad_dir = data / "bad" / "vell9"
+    bad_dir.mkdir(parents=True)
+    (bad_dir / "target.toml").write_text(BAD_TARGET, encoding="utf-8")
+    (bad_dir / "positions.csv").write_text(
+        (good[0].parent / "positions.csv").read_text(encoding="utf-8"), encoding="utf-8"
+    )
+    return {
+        "good": good,
+        "bad": bad_dir / "target.toml",
+        "glob": str(data / "good" / "*" / "target.toml"),
+    }
+
+
+@pytest.fixture(scope="module")
+def client():
+    """A local dask cluster of 2 worker processes, closed after the module."""
+    pytest.importorskip("distributed")
+    with open_client(workers=2, dashboard_address=None) as c:
+        yield c
+
+
+# ------------------------------------------------------------------ no dask needed
+def test_target_seed_is_seedsequence_of_batch_seed_and_sha256_words():
+    name = "Orrin 101 AB"
+    # reference: hashlib SHA-256 (FIPS 180-4) and numpy.random.SeedSequence, computed independently
+    digest = hashlib.sha256(name.encode("utf-8")).digest()
+    words = list(np.frombuffer(digest, dtype=">u4").astype(int))
+    expected = int(np.random.SeedSequence([7, *words]).generate_state(1, dtype=np.uint32)[0]) >> 1
+    assert target_seed(7, name) == expected
+    assert 0 <= target_seed(7, name) < 2**31
+    assert target_seed(7, name) != target_seed(8, name)
+    assert target_seed(7, name) != target_seed(7, "Orrin 102 AB")
+    with pytest.raises(InputError) as err:
+        target_seed(-1, name)
+    assert err.value.key == "seed"
+
+
+def test_expand_targets_orders_globs_and_drops_repeats(tmp_path):
+    for sub in ("b", "a", "c"):
+        (tmp_path / sub).mkdir()
+        (tmp_path / sub / "target.toml").write_text("", encoding="utf-8")
+    pattern = str(tmp_path / "*" / "target.toml")
+    got = expand_targets([str(tmp_path / "c" / "target.toml"), pattern])
+    assert [p.parent.name for p in got] == ["c", "a", "b"]
+    with pytest.raises(InputError, match="matches no file") as err:
+        expand_targets([str(tmp_path / "*.nothing")])
+    assert err.value.key == "targets"
+
+
+def test_plan_batch_names_folders_and_rejects_unknown_options(tmp_path):
+    for sub in ("one", "two"):
+        (tmp_path / sub).mkdir()
+        (tmp_path / sub / "target.toml").write_text(
+            '[target]\nname = "Kesh 4/5 AB"\n', encoding="utf-8"
+        )
+    jobs = plan_batch([str(tmp_path / "*" / "target.toml")], tmp_path / "out", seed=3)
+    assert [Path(j.run_dir).name for j in jobs] == ["Kesh-4-5-AB", "Kesh-4-5-AB-2"]
+    assert all(Path(j.run_dir).parent == (tmp_path / "out" / "runs").resolve() for j in jobs)
+    assert jobs[0].seed == jobs[1].seed == target_seed(3, "Kesh 4/5 AB")
+    with pytest.raises(InputError) as err:
+        plan_batch(
+            [str(tmp_path / "one" / "target.toml")], tmp_path / "out", fit_options={"sed": 1}
+        )
+    assert err.value.key == "fit_options.sed"
+
+
+def test_missing_dask_names_the_extra(monkeypatch):
+    monkeypatch.setitem(sys.modules, "distributed", None)  # makes "import distributed" fail
+    with pytest.raises(OrbitmassError, match=r'pip install "orbitmass\[cluster\]"'):
+        with open_client(workers=1):
+            pass
+
+
+# ------------------------------------------------------------------ on the cluster
+def _summary(run_dir: str) -> dict:
+    return json.loads((Path(run_dir) / "summary.json").read_text(encoding="utf-8"))
+
+
+@pytest.mark.slow
+def test_batch_catalogue_failure_interruption_and_resume(sample, client, tmp_path):
+    out = tmp_path / "batch"
+    names = [batch._target_name(p) for p in sample["good"]]
+    # an interrupted earlier batch: a half-written run folder and a staging leftover
+    broken = out / "runs" / batch._folder_name(names[1])
+    broken.mkdir(parents=True)
+    (broken / "posterior.h5").write_bytes(b"half")
+    staging = out / "runs" / f".{batch._folder_name(names[2])}.staging-x1y2z3"
+    staging.mkdir()
+    (staging / "posterior.h5").write_bytes(b"half")
+
+    cat = fit_batch(
+        [sample["glob"], str(sample["bad"])],
+        out,
+        client=client,
+        seed=5,
+        fit_options={"max_steps": MAX_STEPS},
+        products=False,
+        progress=False,
+    )
+
+    assert list(cat["name"]) == [*names, "Vell 9 AB"]
+    good, bad = cat.iloc[:3], cat.iloc[3]
+    # failure record: the bad target failed with its InputError naming file and key; others ran
+    assert bad["status"] == STATUS_FAILED
+    assert bad["error"].startswith("InputError:")
+    assert "central.mass.low" in bad["error"] and str(sample["bad"]) in bad["error"]
+    assert np.isnan(bad["mass_msun_median"])
+    assert (good["status"] == STATUS_NOT_CONVERGED).all()  # 300 steps < 50 tau: not converged
+    assert not good["skipped"].any()
+    # interrupted run redone, staging leftover gone
+    assert is_complete_run(broken) and not staging.exists()
+    for row in good.itertuples():
+        assert is_complete_run(Path(row.run_dir))
+        s = _summary(row.run_dir)
+        assert row.mass_msun_median == s["derived"]["mass_msun"]["median"]
+        assert row.mass_msun_q16 == s["derived"]["mass_msun"]["q16"]
+        assert row.distance_pc_q84 == s["derived"]["distance_pc"]["q84"]
+        assert row.c1_name == "B"
+        assert row.c1_period_yr_median == s["companions"]["B"]["period_yr"]["median"]
+        assert row.c1_semimajor_axis_mas_q84 == s["companions"]["B"]["semimajor_axis_mas"]["q84"]
+        assert row.ess_min == s["diagnostics"]["ess_min"]
+        assert row.seed == s["provenance"]["seed"] == target_seed(5, row.name)
+    # the files on disk hold the same table
+    csv = pd.read_csv(out / "catalogue.csv")
+    pq = pd.read_parquet(out / "catalogue.parquet")
+    for table in (csv, pq):
+        assert list(table["status"]) == list(cat["status"])
+        np.testing.assert_array_equal(
+            table["mass_msun_median"].to_numpy(float), cat["mass_msun_median"].to_numpy(float)
+        )
+        assert list(table["seed"]) == list(cat["seed"])
+
+    # a target alone, with the seed from the catalogue, gives the same posterior as in the batch
+    from orbitmass.fit import Fit
+
+    first = good.iloc[0]
+    alone = Fit(seed=int(first["seed"]), max_steps=MAX_STEPS, progress=False).fit(
+        first["target_file"]
+    )
+    assert alone.summary["derived"]["mass_msun"]["median"] == pytest.approx(
+        first["mass_msun_median"], rel=1e-12
+    )
+
+    # resume through the command line: finished runs are skipped, untouched; the bad one fails again
+    mtimes = {
+        row.run_dir: {
+            f: (Path(row.run_dir) / f).stat().st_mtime_ns for f in ("summary.json", "posterior.h5")
+        }
+        for row in good.itertuples()
+    }
+    parser = argparse.ArgumentParser(prog="orbitmass")
+    add_batch_parser(parser.add_subparsers(dest="command"))
+    args = parser.parse_args(
+        [
+            "batch",
+            sample["glob"],
+            str(sample["bad"]),
+            "--out",
+            str(out),
+            "--scheduler",
+            client.scheduler.address,
+            "--seed",
+            "5",
+            "--max-steps",
+            str(MAX_STEPS),
+            "--no-figures",
+            "--no-progress",
+        ]
+    )
+    assert cmd_batch(args) == 1  # not all converged
+    again = pd.read_csv(out / "catalogue.csv")
+    assert list(again["skipped"]) == [True, True, True, False]
+    assert list(again["status"]) == list(cat["status"])
+    np.testing.assert_array_equal(
+        again["mass_msun_median"].to_numpy(float), cat["mass_msun_median"].to_numpy(float)
+    )
+    for run_dir, stamps in mtimes.items():
+        for f, ns in stamps.items():
+            assert (Path(run_dir) / f).stat().st_mtime_ns == ns
+
+
+# Task wrappers that misbehave once; they run on the workers, so this module is
+# shipped by value (the workers cannot import the tests folder).
+def _dies_once(job):
+    marker = Path(job.run_dir).parent.parent / f"died-{Path(job.run_dir).name}"
+    if job.name == "Orrin 101 AB" and not marker.exists():
+        marker.write_text("the worker process exits here once", encoding="utf-8")
+        os._exit(3)
+    if job.name == "Orrin 102 AB":
+        marker = Path(job.run_dir).parent.parent / "raised-once"
+        if not marker.exists():
+            marker.write_text("raised", encoding="utf-8")
+            raise RuntimeError("a crash the retry should get past")
+    if job.name == "Orrin 103 AB":
+        raise RuntimeError("this fit crashes every time")
+    return fit_target(job)
+
+
+@pytest.mark.slow
+@pytest.mark.filterwarnings("ignore::ResourceWarning")  # sockets of the killed worker
+def test_dead_worker_and_crashes_are_retried_then_recorded(sample, client, tmp_path):
+    import cloudpickle
+
+    cloudpickle.register_pickle_by_value(sys.modules[__name__])
+    try:
+        cat = fit_batch(
+            [sample["glob"]],
+            tmp_path,
+            client=client,
+            seed=1,
+            retries=1,
+            fit_options={"max_steps": MAX_STEPS},
+            products=False,
+            progress=False,
+            fit_function=_dies_once,
+        )
+    finally:
+        cloudpickle.unregister_pickle_by_value(sys.modules[__name__])
+    rows = cat.set_index("name")
+    # the worker died on the first attempt (marker written), dask ran the task again elsewhere
+    assert (tmp_path / "died-Orrin-101-AB").exists()
+    assert rows.loc["Orrin 101 AB", "status"] == STATUS_NOT_CONVERGED
+    # an exception on the first attempt is retried (retries=1)
+    assert (tmp_path / "raised-once").exists()
+    assert rows.loc["Orrin 102 AB", "status"] == STATUS_NOT_CONVERGED
+    # a fit that always crashes is recorded as failed, with its message, and stops nothing
+    assert rows.loc["Orrin 103 AB", "status"] == STATUS_FAILED
+    assert rows.loc["Orrin 103 AB", "error"] == "RuntimeError: this fit crashes every time"
+    assert not is_complete_run(Path(rows.loc["Orrin 103 AB", "run_dir"]))
+    client.wait_for_workers(2, timeout=60)  # the nanny replaced the dead worker
+
+
+@pytest.mark.slow
+def test_interrupted_batch_writes_catalogue_then_reraises(sample, client, tmp_path):
+    def interrupt(_client):
+        raise KeyboardInterrupt
+
+    with pytest.raises(KeyboardInterrupt):
+        fit_batch([sample["glob"]], tmp_path, client=client, on_client=interrupt, progress=False)
+    cat = pd.read_csv(tmp_path / "catalogue.csv")
+    assert (cat["status"] == STATUS_FAILED).all()
+    assert cat["error"].str.contains("rerun the same command to resume").all()
