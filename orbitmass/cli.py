@@ -90,11 +90,22 @@ def _fmt_mass(block: dict) -> str:
 
 def _cmd_fit(args) -> int:
     from orbitmass.fit import Fit
+    from orbitmass.io.checkpoint import CHECKPOINT_NAME
     from orbitmass.io.rundir import save_run
+    from orbitmass.io.target import read_target
 
     out = Path(args.out)
-    if out.exists() and (not out.is_dir() or any(out.iterdir())) and not (args.overwrite or args.resume):
-        raise OrbitmassError(f"{out}: folder exists and is not empty; choose another --out or pass --overwrite")
+    if out.exists() and not out.is_dir():
+        raise OrbitmassError(f"{out}: exists and is not a folder; choose another --out")
+    non_empty = out.is_dir() and any(out.iterdir())
+    if non_empty and not (args.overwrite or args.resume):
+        raise OrbitmassError(f"{out}: folder exists and is not empty; choose another --out, pass --overwrite "
+                             "to replace it, or --resume to continue a stopped fit")
+    checkpoint = out / CHECKPOINT_NAME
+    if args.resume and not checkpoint.is_file():
+        raise OrbitmassError(f"{out}: no checkpoint ({CHECKPOINT_NAME}) to resume from")
+    target = read_target(args.target)  # bad input stops here, before anything is written
+    out.mkdir(parents=True, exist_ok=True)
     stop = {"flag": False}
 
     def handler(signum, frame):
@@ -104,13 +115,14 @@ def _cmd_fit(args) -> int:
     old_term = signal.signal(signal.SIGTERM, handler)
     try:
         fit = Fit(seed=args.seed, n_walkers=args.walkers, max_steps=args.max_steps,
-                  progress=False if args.no_progress else None)
-        fit.fit(args.target, stop_flag=lambda: stop["flag"])
+                  progress=False if args.no_progress else None, checkpoint=checkpoint, resume=args.resume)
+        fit.fit(target, stop_flag=lambda: stop["flag"])
     finally:
         signal.signal(signal.SIGINT, old_int)
         signal.signal(signal.SIGTERM, old_term)
-    save_run(fit.results, out, overwrite=True if (args.overwrite or args.resume) else False)
     d = fit.summary["diagnostics"]
+    keep = (CHECKPOINT_NAME,) if not d["converged"] else ()
+    save_run(fit.results, out, overwrite=True, keep=keep)
     print(f"total mass: {_fmt_mass(fit.summary['derived']['mass_msun'])} Msun")
     print(f"distance:   {_fmt_mass(fit.summary['derived']['distance_pc'])} pc")
     print(f"converged: {'yes' if d['converged'] else 'NO'} (min ESS {d['ess_min']:.0f}, "
@@ -119,10 +131,12 @@ def _cmd_fit(args) -> int:
         print("warning: walkers sit in separated period modes; see the report", file=sys.stderr)
     print(f"report: {out / 'report.md'}")
     if d.get("interrupted"):
-        print("interrupted: samples so far are saved, marked not converged", file=sys.stderr)
+        print(f"interrupted after {d['n_steps']} steps: samples so far are saved, marked not converged; "
+              f"continue with: orbitmass fit {args.target} --out {out} --resume", file=sys.stderr)
         return EXIT_INTERRUPTED
     if not d["converged"]:
-        print("warning: the fit did not converge (see report.md); results are provisional", file=sys.stderr)
+        print("warning: the fit did not converge (see report.md); results are provisional; "
+              "continue with --resume and a larger --max-steps", file=sys.stderr)
         return EXIT_NOT_CONVERGED
     return EXIT_OK
 
@@ -137,8 +151,9 @@ def _cmd_demo(args) -> int:
         s = res.summary
         d = s["diagnostics"]
         print(f"\n{s['target']}")
-        print(f"  total mass: {_fmt_mass(s['derived']['mass_msun'])} Msun   (invented truth {res.truth.mass_msun:.4g})")
-        print(f"  distance:   {_fmt_mass(s['derived']['distance_pc'])} pc   (invented truth {res.truth.distance_pc:.4g})")
+        truth = res.truth
+        print(f"  total mass: {_fmt_mass(s['derived']['mass_msun'])} Msun   (invented truth {truth.mass_msun:.4g})")
+        print(f"  distance:   {_fmt_mass(s['derived']['distance_pc'])} pc   (invented truth {truth.distance_pc:.4g})")
         print(f"  converged: {'yes' if d['converged'] else 'NO'}; ESS of the mass {d['ess_mass']:.0f}; "
               f"{d['wall_seconds']:.1f} s")
         print(f"  report: {res.run_dir / 'report.md'}  (also report.html)")

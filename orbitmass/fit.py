@@ -85,8 +85,18 @@ def priors_used(space) -> list[dict[str, str]]:
                 text = prior.describe("")
             out.append({"parameter": f"{comp.name} {key.replace('_', ' ')}", "prior": text})
         if comp.plane:
-            out.append({"parameter": f"{comp.name} plane", "prior": f"shares inclination and node with plane {comp.plane!r}"})
+            out.append({"parameter": f"{comp.name} plane",
+                        "prior": f"shares inclination and node with plane {comp.plane!r}"})
     return out
+
+
+class _ResumedInit:
+    """What the initialisation found, as recorded in a checkpoint."""
+
+    def __init__(self, meta: dict):
+        self.best_log_post = float(meta.get("init_best_log_posterior", float("nan")))
+        self.other_modes = list(meta.get("other_modes", []))
+        self.n_grid = int(meta.get("n_grid", 0))
 
 
 class Fit:
@@ -107,6 +117,13 @@ class Fit:
         Progress bar (default: only on a terminal).
     max_periods : int
         Period grid points per companion in the initial linear search.
+    checkpoint : path or None
+        HDF5 file the chain is checkpointed to while sampling (every minute,
+        at every convergence check and when stopped).
+    resume : bool
+        Continue the chain in ``checkpoint`` instead of starting anew; the
+        data and priors must be those of the checkpointed run. The result
+        equals that of an uninterrupted run with the same seed and length.
 
     Attributes
     ----------
@@ -161,20 +178,49 @@ class Fit:
         if n_walkers < 2 * space.ndim:
             raise InputError(f"n_walkers = {n_walkers} is too small for {space.ndim} parameters; "
                              f"use at least {2 * space.ndim}", key="walkers")
-        init = initialise_walkers(post, n_walkers, rng, max_periods=self.max_periods)
         options = SamplerOptions(max_steps=self.max_steps, min_steps=min(self.min_steps, self.max_steps),
                                  progress=self.progress)
+        ckpt_path = Path(self.checkpoint) if self.checkpoint is not None else None
         backend = None
-        if self.checkpoint is not None:
-            from orbitmass.io.checkpoint import open_checkpoint
+        if self.resume:
+            from orbitmass.io.checkpoint import backend_from_checkpoint, load_checkpoint
 
-            backend = open_checkpoint(self.checkpoint, n_walkers, space.ndim, resume=self.resume)
-        p0 = init.walkers if backend is None or backend.iteration == 0 else None
+            if ckpt_path is None:
+                raise InputError("resume=True needs a checkpoint path", key="checkpoint")
+            ckpt = load_checkpoint(ckpt_path)
+            meta = ckpt["meta"]
+            if meta.get("data_sha256") != target.data_sha256 or meta.get("names") != space.names:
+                raise InputError(f"{ckpt_path}: the checkpoint belongs to other data or priors "
+                                 "(checksum or parameters differ); start a new fit instead of --resume",
+                                 file=str(ckpt_path))
+            for var in space.variables:
+                if var.name in meta["windows"]:
+                    var.centre, var.width = meta["windows"][var.name]
+            seed = int(meta["seed"])
+            backend = backend_from_checkpoint(ckpt)
+            p0 = None
+            init = _ResumedInit(meta)
+        else:
+            init = initialise_walkers(post, n_walkers, rng, max_periods=self.max_periods)
+            p0 = init.walkers
+            meta = {"seed": int(seed), "data_sha256": target.data_sha256, "names": space.names,
+                    "windows": {v.name: [v.centre, v.width] for v in space.variables if v.kind == "angle"},
+                    "init_best_log_posterior": init.best_log_post, "other_modes": init.other_modes,
+                    "n_grid": init.n_grid, "elapsed_seconds": 0.0}
+        elapsed_before = float(meta.get("elapsed_seconds", 0.0))
+        checkpoint_fn = None
+        if ckpt_path is not None:
+            from orbitmass.io.checkpoint import save_checkpoint
+
+            def checkpoint_fn(b):
+                meta["elapsed_seconds"] = elapsed_before + time.perf_counter() - t0
+                save_checkpoint(ckpt_path, b, meta)
+
         run = run_sampler(post, p0, seed=int(rng.integers(2**31 - 1)), options=options,
-                          backend=backend, stop_flag=stop_flag)
+                          backend=backend, stop_flag=stop_flag, checkpoint=checkpoint_fn)
         theta, lp = run.retained()
         samples = derive_samples(space, theta, lp)
-        wall = time.perf_counter() - t0
+        wall = time.perf_counter() - t0 + elapsed_before
         summary = self._summary(target, space, samples, run, init, seed, wall)
         info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
                 "n_evaluations": run.n_evaluations}

@@ -199,7 +199,7 @@ def _prior_centre(prior) -> float:
     if prior.fixed:
         return float(prior.value)
     low, high = prior.support
-    if hasattr(prior, "mean") and math.isfinite(getattr(prior, "mean")):
+    if hasattr(prior, "mean") and math.isfinite(prior.mean):
         m = float(prior.mean)
         return min(max(m, low), high)
     if prior.dist == "log-uniform":
@@ -440,10 +440,11 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
     others = []
     for val, theta, combo in results[1:]:
         if best_val - val < 10.0:
-            periods = {c.name: float(space.unpack(theta[None, :])[f"{c.name}.period_yr"][0])
-                       for c in space.target.companions}
-            if all(abs(math.log(periods[c.name]) - math.log(float(space.unpack(best[None, :])[f"{c.name}.period_yr"][0]))) < 0.02
-                   for c in space.target.companions):
+            names = [c.name for c in space.target.companions]
+            here = space.unpack(theta[None, :])
+            there = space.unpack(best[None, :])
+            periods = {n: float(here[f"{n}.period_yr"][0]) for n in names}
+            if all(abs(math.log(periods[n] / float(there[f"{n}.period_yr"][0]))) < 0.02 for n in names):
                 continue
             others.append({"delta_log_posterior": float(best_val - val), "period_yr": periods})
     cov = _hessian_cov(post, best)

@@ -153,19 +153,27 @@ class LogPosterior:
         rate = (TWO_PI * KMS_PER_AU_PER_YR / parts["period"]) / (1.0 - parts["ecc"] * cos_E)
         return rate * (H * parts["root"] * cos_E - C * sin_E)
 
-    def predict(self, phys, name, t_astro=None, t_vel=None, central_rows=None):
+    def predict(self, phys, name, t_astro=None, t_vel=None, central_rows=None, all_parts=None):
         """Model positions and velocities of companion ``name``'s system.
 
         Returns east/north (mas) at ``t_astro`` in the frame of the data
         (relative or absolute), and the modelled velocity (km/s, without
         instrument offsets, with systemic/vz0) at ``t_vel`` for companion rows
-        and central-body rows as ``central_rows`` says.
+        and central-body rows as ``central_rows`` says. ``all_parts`` caches
+        :meth:`_orbit_parts` of every companion across calls.
         """
-        all_parts = {c: self._orbit_parts(phys, c) for c in phys["_companions"]}
+        if all_parts is None:
+            all_parts = {c: self._orbit_parts(phys, c) for c in phys["_companions"]}
         parts = all_parts[name]
         out = {}
-        if t_astro is not None and len(t_astro):
-            cE, sE = self._anomaly(parts, t_astro)
+        n_a = 0 if t_astro is None else len(t_astro)
+        n_v = 0 if t_vel is None else len(t_vel)
+        if n_a and n_v:  # one Kepler solve for both kinds of epoch
+            cE_all, sE_all = self._anomaly(parts, np.concatenate([t_astro, t_vel]))
+        elif n_a or n_v:
+            cE_all, sE_all = self._anomaly(parts, t_astro if n_a else t_vel)
+        if n_a:
+            cE, sE = cE_all[:, :n_a], sE_all[:, :n_a]
             east, north = self._positions(parts, cE, sE)
             if self.absolute:
                 dt = (t_astro - self.t_ref)[None, :]
@@ -178,8 +186,8 @@ class LogPosterior:
                     east = east - f * ej
                     north = north - f * nj
             out["east_mas"], out["north_mas"] = east, north
-        if t_vel is not None and len(t_vel):
-            cE, sE = self._anomaly(parts, t_vel)
+        if n_v:
+            cE, sE = cE_all[:, n_a:], sE_all[:, n_a:]
             v_rel = self._velocity(parts, cE, sE)
             comp_mask = np.ones(len(t_vel), bool) if central_rows is None else ~np.asarray(central_rows)
             v = v_rel * comp_mask[None, :]
@@ -204,6 +212,7 @@ class LogPosterior:
         phys = self.space.unpack(theta)
         phys["_companions"] = [c.name for c in self.space.target.companions]
         ll = np.zeros(n)
+        all_parts = {c: self._orbit_parts(phys, c) for c in phys["_companions"]}
         for comp in self.space.target.companions:
             name = comp.name
             ab = self.astro.get(name)
@@ -211,7 +220,8 @@ class LogPosterior:
             pred = self.predict(phys, name,
                                 t_astro=None if ab is None else ab.t,
                                 t_vel=None if vb is None else vb.t,
-                                central_rows=None if vb is None else vb.central)
+                                central_rows=None if vb is None else vb.central,
+                                all_parts=all_parts)
             if ab is not None:
                 ll += self._astro_ll(ab, pred["east_mas"], pred["north_mas"])
             if vb is not None:

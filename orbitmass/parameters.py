@@ -52,7 +52,7 @@ from numpy.typing import NDArray
 
 from orbitmass.data import Companion, Target
 from orbitmass.exceptions import InputError
-from orbitmass.priors import Fixed, Isotropic, LogUniform, Prior, Uniform
+from orbitmass.priors import Isotropic, LogUniform, Prior, Uniform
 
 __all__ = ["Variable", "ParameterSpace"]
 

@@ -143,7 +143,8 @@ def derive_samples(space: ParameterSpace, theta: NDArray[np.float64],
         cols[f"{c}.mean_anomaly_deg"] = _wrap_around(m0, m0_centre)
         # periastron nearest the reference epoch: M0 on (-180, 180] around its circular mean
         m0_near = _wrap_around(m0, (m0_centre + 180.0) % 360.0 - 180.0)
-        cols[f"{c}.periastron_time_jyr"] = space.t_ref - np.radians(m0_near) / (2 * math.pi) * phys[f"{c}.period_obs_yr"]
+        p_obs = phys[f"{c}.period_obs_yr"]
+        cols[f"{c}.periastron_time_jyr"] = space.t_ref - np.radians(m0_near) / (2 * math.pi) * p_obs
         cols[f"{c}.semimajor_axis_mas"] = a_mas
         cols[f"{c}.semimajor_axis_au"] = a_au
         rp = periastron_au(a_au, e)

@@ -127,61 +127,80 @@ def assess(chain, options: SamplerOptions) -> dict:
     return {"burn": burn, "tau": tau, "ess": ess, "rhat": rhat, "converged": converged}
 
 
-def run_sampler(log_prob, p0: NDArray[np.float64], *, seed: int, options: SamplerOptions,
-                backend=None, stop_flag=None, pool=None) -> SamplerRun:
+def run_sampler(log_prob, p0: NDArray[np.float64] | None, *, seed: int, options: SamplerOptions,
+                backend=None, stop_flag=None, pool=None, checkpoint=None,
+                checkpoint_seconds: float = 60.0) -> SamplerRun:
     """Run emcee from walkers ``p0`` until converged, the step cap, or a stop request.
 
     Parameters
     ----------
     log_prob : callable
         Vectorised log posterior: (n_walkers, n_dim) -> (n_walkers,).
-    p0 : ndarray, shape (n_walkers, n_dim)
-        Starting walkers; ``None`` continues from ``backend``.
+    p0 : ndarray, shape (n_walkers, n_dim), or None
+        Starting walkers; ``None`` continues the chain held by ``backend``.
     seed : int
-        Seed of emcee's random state (so runs repeat exactly).
+        Seed of emcee's random state (so runs repeat exactly); unused when
+        continuing from ``backend``, whose saved random state is used.
     options : SamplerOptions
-    backend : emcee backend, optional
-        For checkpoints; the chain is read back from it.
+    backend : emcee.backends.Backend, optional
+        In-memory backend holding a chain to continue (see
+        :func:`orbitmass.io.checkpoint.backend_from_checkpoint`).
     stop_flag : callable, optional
         Returns True when the run should stop early (e.g. after SIGINT).
     pool : object with ``map``, optional
         Evaluates walkers in parallel (then the posterior is called per walker).
+    checkpoint : callable, optional
+        ``checkpoint(backend)`` is called every ``checkpoint_seconds``, at
+        every convergence check and when the run stops.
 
     Returns
     -------
     SamplerRun
     """
     t_start = time.perf_counter()
-    if p0 is not None:
-        n_walkers, n_dim = p0.shape
-    else:
+    if backend is None:
+        backend = emcee.backends.Backend()
+    resuming = p0 is None
+    if resuming:
+        if not backend.initialized or backend.iteration == 0:
+            raise ValueError("no starting walkers and no chain to continue")
         n_walkers, n_dim = backend.shape
+    else:
+        n_walkers, n_dim = p0.shape
+        backend.reset(n_walkers, n_dim)
     vectorize = pool is None
     fn = log_prob if vectorize else _Scalar(log_prob)
     sampler = emcee.EnsembleSampler(n_walkers, n_dim, fn, vectorize=vectorize, moves=default_moves(),
                                     backend=backend, pool=pool)
-    if p0 is not None or backend is None or backend.iteration == 0:
-        sampler._random = np.random.RandomState(seed)  # emcee keeps a RandomState; seed it
-        state = emcee.State(p0, random_state=sampler._random.get_state())
-    else:
+    if resuming:
         state = sampler._previous_state
-        sampler._random.set_state(backend.random_state)
+    else:
+        rs = np.random.RandomState(seed)  # emcee draws from a legacy RandomState; seed it
+        state = emcee.State(p0, random_state=rs.get_state())
     progress = sys.stderr.isatty() if options.progress is None else options.progress
-    done = 0 if backend is None else backend.iteration
+    done = backend.iteration
     chunk = max(options.min_steps - done, 200)
     interrupted = False
     verdict = None
     n_eval_start = getattr(log_prob, "n_sets", 0)
+    last_save = time.perf_counter()
     while done < options.max_steps:
         chunk = int(min(chunk, options.max_steps - done))
-        for state in sampler.sample(state, iterations=chunk, progress=progress, store=True):
+        for step_state in sampler.sample(state, iterations=chunk, progress=progress, store=True):
+            state = step_state
             if stop_flag is not None and stop_flag():
                 interrupted = True
                 break
+            if checkpoint is not None and time.perf_counter() - last_save > checkpoint_seconds:
+                checkpoint(backend)
+                last_save = time.perf_counter()
         done = sampler.iteration
         if interrupted:
             break
         verdict = assess(sampler.get_chain(), options)
+        if checkpoint is not None:
+            checkpoint(backend)
+            last_save = time.perf_counter()
         if verdict["converged"]:
             break
         tau_max = float(np.max(verdict["tau"]))
@@ -192,6 +211,8 @@ def run_sampler(log_prob, p0: NDArray[np.float64], *, seed: int, options: Sample
         chunk = int(np.clip(max(need, done // 3), 300, max(done, 500)))
         log.info("step %d: tau_max %.1f, min ESS %.0f, max R-hat %.3f; continuing %d steps",
                  done, tau_max, float(np.min(verdict["ess"])), float(np.max(verdict["rhat"])), chunk)
+    if interrupted and checkpoint is not None and backend.iteration > 0:
+        checkpoint(backend)
     chain = sampler.get_chain()
     lp = sampler.get_log_prob()
     if verdict is None or interrupted:
@@ -204,11 +225,10 @@ def run_sampler(log_prob, p0: NDArray[np.float64], *, seed: int, options: Sample
     tau_max = float(np.nanmax(verdict["tau"])) if np.isfinite(verdict["tau"]).any() else 1.0
     while kept_steps // thin * n_walkers > options.max_retained and thin < max(1.0, tau_max / 2):
         thin += 1
-    thin = max(1, thin)
     return SamplerRun(
         chain=chain,
         log_prob=lp,
-        acceptance_fraction=float(np.mean(sampler.acceptance_fraction)),
+        acceptance_fraction=float(np.mean(backend.accepted / max(backend.iteration, 1))),
         burn=verdict["burn"],
         thin=thin,
         tau=verdict["tau"],

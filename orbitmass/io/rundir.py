@@ -47,6 +47,18 @@ log = logging.getLogger(__name__)
 
 
 # ----------------------------------------------------------------- atomic I/O
+def _umask() -> int:
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+def _publish(tmp: str | Path, path: Path, *, folder: bool = False) -> None:
+    """Give a temporary file or folder the permissions a plain open() would, then rename it."""
+    os.chmod(tmp, (0o777 if folder else 0o666) & ~_umask())
+    os.replace(tmp, path)
+
+
 def write_json_atomic(obj, path: Path) -> None:
     """Write ``obj`` as JSON to ``path`` via a temporary file and a rename."""
     path = Path(path)
@@ -56,7 +68,7 @@ def write_json_atomic(obj, path: Path) -> None:
             json.dump(_jsonable(obj), fh, indent=2, allow_nan=True)
             fh.flush()
             os.fsync(fh.fileno())
-        os.replace(tmp, path)
+        _publish(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
             os.unlink(tmp)
@@ -170,7 +182,7 @@ def write_posterior(results, path: Path) -> None:
             f.create_dataset("log_prob", data=np.asarray(results.log_prob, dtype=float), compression="gzip",
                              compression_opts=4)
             _write_target(f.create_group("target"), results.target)
-        os.replace(tmp, path)
+        _publish(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
             os.unlink(tmp)
@@ -262,12 +274,14 @@ def _copy_inputs(target: Target, dest: Path) -> None:
         shutil.copyfile(src, dest / name)
 
 
-def save_run(results, out_dir: Path, *, overwrite: bool = False, products: bool = True) -> Path:
+def save_run(results, out_dir: Path, *, overwrite: bool = False, products: bool = True,
+             keep: tuple[str, ...] = ()) -> Path:
     """Write the whole run folder ``out_dir``.
 
     The folder is assembled beside ``out_dir`` and renamed into place. An
     existing non-empty ``out_dir`` is replaced only with ``overwrite=True``
     (it is moved aside first and removed only after the new one is in place).
+    Files of the old folder named in ``keep`` (e.g. a checkpoint) are carried over.
 
     Raises
     ------
@@ -289,14 +303,17 @@ def save_run(results, out_dir: Path, *, overwrite: bool = False, products: bool 
         if products:
             write_products(results, staging)
         write_json_atomic(results.summary, staging / "summary.json")
+        for name in keep:
+            if (out_dir / name).is_file():
+                shutil.copy2(out_dir / name, staging / name)
         if out_dir.exists():
             aside = Path(tempfile.mkdtemp(dir=parent, prefix=f".{out_dir.name}.old-"))
             os.rmdir(aside)
             os.replace(out_dir, aside)
-            os.replace(staging, out_dir)
+            _publish(staging, out_dir, folder=True)
             shutil.rmtree(aside, ignore_errors=True)
         else:
-            os.replace(staging, out_dir)
+            _publish(staging, out_dir, folder=True)
     except BaseException:
         shutil.rmtree(staging, ignore_errors=True)
         raise
