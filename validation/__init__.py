@@ -1,0 +1,1 @@
+"""Validation studies of orbitmass (simulation-based calibration); run as scripts."""
