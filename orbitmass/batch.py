@@ -176,14 +176,8 @@ def target_seed(batch_seed: int, name: str) -> int:
     >>> target_seed(0, "Tessaly 41 AB") != target_seed(1, "Tessaly 41 AB")
     True
     """
-    if (
-        isinstance(batch_seed, bool)
-        or not isinstance(batch_seed, (int, np.integer))
-        or batch_seed < 0
-    ):
-        raise InputError(
-            f"the batch seed must be a whole number >= 0, got {batch_seed!r}", key="seed"
-        )
+    if isinstance(batch_seed, bool) or not isinstance(batch_seed, (int, np.integer)) or batch_seed < 0:
+        raise InputError(f"the batch seed must be a whole number >= 0, got {batch_seed!r}", key="seed")
     digest = hashlib.sha256(name.encode("utf-8")).digest()
     words = [int.from_bytes(digest[k : k + 4], "big") for k in range(0, 32, 4)]
     state = np.random.SeedSequence([int(batch_seed), *words]).generate_state(1, dtype=np.uint32)
@@ -329,9 +323,7 @@ def _float(value: Any) -> float:
         return math.nan
 
 
-def _base_row(
-    job: BatchJob, status: str, error: str | None, seed: int | None, skipped: bool
-) -> dict:
+def _base_row(job: BatchJob, status: str, error: str | None, seed: int | None, skipped: bool) -> dict:
     return {
         "name": job.name,
         "target_file": job.target_file,
@@ -343,9 +335,7 @@ def _base_row(
     }
 
 
-def catalogue_row(
-    job: BatchJob, summary: Mapping[str, Any], *, skipped: bool = False
-) -> dict[str, Any]:
+def catalogue_row(job: BatchJob, summary: Mapping[str, Any], *, skipped: bool = False) -> dict[str, Any]:
     """One catalogue row from a run's ``summary.json`` content.
 
     Parameters
@@ -428,9 +418,7 @@ def fit_target(job: BatchJob) -> dict[str, Any]:
         return _row_from_run(job, skipped=True)
     try:
         fit = Fit(seed=job.seed, progress=False, **job.fit_options).fit(job.target_file)
-        if is_complete_run(
-            run_dir
-        ):  # finished meanwhile by a duplicate of this task: keep that one
+        if is_complete_run(run_dir):  # finished meanwhile by a duplicate of this task: keep that one
             return _row_from_run(job, skipped=True)
         save_run(fit.results, run_dir, overwrite=True, products=job.products)
     except OrbitmassError as exc:
@@ -445,8 +433,7 @@ def _import_distributed():
         import distributed
     except ImportError:
         raise OrbitmassError(
-            "fitting a batch on dask needs dask.distributed, an optional dependency; "
-            f"install it with: {INSTALL_HINT}"
+            f"fitting a batch on dask needs dask.distributed, an optional dependency; install it with: {INSTALL_HINT}"
         ) from None
     return distributed
 
@@ -463,7 +450,7 @@ def open_client(
     *,
     workers: int | None = None,
     scheduler: str | None = None,
-    dashboard_address: str | None = ":0",
+    dashboard_address: str = ":0",
 ) -> Iterator[Any]:
     """A dask client for a batch, closed (with its local cluster) on exit.
 
@@ -475,9 +462,11 @@ def open_client(
     scheduler : str, optional
         Address of a running scheduler (``tcp://host:8786``); nothing is
         started, the cluster stays up after the batch.
-    dashboard_address : str or None
-        Dashboard address of a new local cluster (``":0"``: a free port;
-        ``None``: no dashboard).
+    dashboard_address : str
+        Address of the dashboard (HTTP server) of a new local cluster;
+        ``":0"``, the default, takes a free port (the usual ``":8787"``
+        may be taken by another cluster). The link is
+        ``client.dashboard_link``; the pages need bokeh.
 
     Yields
     ------
@@ -570,9 +559,7 @@ def _collect(
             if fut.status == "finished":
                 rows[index] = fut.result()
             elif fut.status == "cancelled":
-                rows[index] = failed_row(
-                    job, "the dask task was cancelled (scheduler or client lost)"
-                )
+                rows[index] = failed_row(job, "the dask task was cancelled (scheduler or client lost)")
             else:
                 exc = fut.exception()
                 log.warning(
@@ -675,8 +662,7 @@ def fit_batch(
             rows[index] = _row_from_run(job, skipped=True)
             if rows[index]["seed"] != job.seed and rows[index]["status"] != STATUS_FAILED:
                 log.warning(
-                    "%s: keeping the complete run %s made with seed %s (this batch would use %s); "
-                    "remove it to refit",
+                    "%s: keeping the complete run %s made with seed %s (this batch would use %s); remove it to refit",
                     job.name,
                     job.run_dir,
                     rows[index]["seed"],
@@ -685,9 +671,7 @@ def fit_batch(
         else:
             _remove_staging_leftovers(job)
             todo.append((index, job))
-    log.info(
-        "%d targets: %d complete runs kept, %d to fit", len(jobs), len(jobs) - len(todo), len(todo)
-    )
+    log.info("%d targets: %d complete runs kept, %d to fit", len(jobs), len(jobs) - len(todo), len(todo))
     try:
         if todo:
             with contextlib.ExitStack() as stack:
@@ -708,9 +692,7 @@ def fit_batch(
         for index, job in todo:
             rows.setdefault(
                 index,
-                failed_row(
-                    job, "interrupted before this target finished; rerun the same command to resume"
-                ),
+                failed_row(job, "interrupted before this target finished; rerun the same command to resume"),
             )
         write_catalogue(catalogue_frame([rows[i] for i in range(len(jobs))]), out)
         raise
@@ -799,9 +781,7 @@ def write_catalogue(catalogue: pd.DataFrame, out_dir: str | os.PathLike) -> list
             )
         return written
     written.append(out / "catalogue.parquet")
-    _replace_atomic(
-        lambda tmp: catalogue.to_parquet(tmp, index=False, engine="pyarrow"), written[1]
-    )
+    _replace_atomic(lambda tmp: catalogue.to_parquet(tmp, index=False, engine="pyarrow"), written[1])
     return written
 
 
@@ -874,7 +854,7 @@ def write_example_sample(
         )
         target.write_text(
             f"# {name}: an invented visual binary, astrometry only, with a parallax.\n"
-            f'[target]\nname = "{name}"\n\n'
+            f'[target]\nname = "{name}"\nreference_epoch = 2020.0\n\n'
             '[central]\nmass = { dist = "log-uniform", low = "0.05 solMass", '
             'high = "50 solMass" }\n\n'
             f'[distance]\nparallax = {{ dist = "normal", mean = "{parallax_mas:.3f} mas", '
@@ -916,9 +896,7 @@ def add_batch_parser(subparsers) -> argparse.ArgumentParser:
         "and status. Rerunning the same command skips finished targets. Needs "
         f"{INSTALL_HINT}.",
     )
-    p.add_argument(
-        "targets", nargs="+", metavar="TARGET_OR_GLOB", help="target files or glob patterns"
-    )
+    p.add_argument("targets", nargs="+", metavar="TARGET_OR_GLOB", help="target files or glob patterns")
     p.add_argument("--out", required=True, metavar="DIR", help="batch folder (runs/ and catalogue)")
     where = p.add_mutually_exclusive_group()
     where.add_argument(

@@ -23,7 +23,6 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from orbitmass import batch
 from orbitmass.batch import (
     STATUS_FAILED,
     STATUS_NOT_CONVERGED,
@@ -76,7 +75,7 @@ def sample(tmp_path_factory) -> dict:
 def client():
     """A local dask cluster of 2 worker processes, closed after the module."""
     pytest.importorskip("distributed")
-    with open_client(workers=2, dashboard_address=None) as c:
+    with open_client(workers=2) as c:
         yield c
 
 
@@ -111,17 +110,13 @@ def test_expand_targets_orders_globs_and_drops_repeats(tmp_path):
 def test_plan_batch_names_folders_and_rejects_unknown_options(tmp_path):
     for sub in ("one", "two"):
         (tmp_path / sub).mkdir()
-        (tmp_path / sub / "target.toml").write_text(
-            '[target]\nname = "Kesh 4/5 AB"\n', encoding="utf-8"
-        )
+        (tmp_path / sub / "target.toml").write_text('[target]\nname = "Kesh 4/5 AB"\n', encoding="utf-8")
     jobs = plan_batch([str(tmp_path / "*" / "target.toml")], tmp_path / "out", seed=3)
     assert [Path(j.run_dir).name for j in jobs] == ["Kesh-4-5-AB", "Kesh-4-5-AB-2"]
     assert all(Path(j.run_dir).parent == (tmp_path / "out" / "runs").resolve() for j in jobs)
     assert jobs[0].seed == jobs[1].seed == target_seed(3, "Kesh 4/5 AB")
     with pytest.raises(InputError) as err:
-        plan_batch(
-            [str(tmp_path / "one" / "target.toml")], tmp_path / "out", fit_options={"sed": 1}
-        )
+        plan_batch([str(tmp_path / "one" / "target.toml")], tmp_path / "out", fit_options={"sed": 1})
     assert err.value.key == "fit_options.sed"
 
 
@@ -138,14 +133,15 @@ def _summary(run_dir: str) -> dict:
 
 
 @pytest.mark.slow
-def test_batch_catalogue_failure_interruption_and_resume(sample, client, tmp_path):
+def test_batch_catalogue_failure_interruption_and_resume(sample, client, tmp_path, capsys):
     out = tmp_path / "batch"
-    names = [batch._target_name(p) for p in sample["good"]]
+    planned = plan_batch([sample["glob"]], out)
+    names = [job.name for job in planned]
     # an interrupted earlier batch: a half-written run folder and a staging leftover
-    broken = out / "runs" / batch._folder_name(names[1])
+    broken = Path(planned[1].run_dir)
     broken.mkdir(parents=True)
     (broken / "posterior.h5").write_bytes(b"half")
-    staging = out / "runs" / f".{batch._folder_name(names[2])}.staging-x1y2z3"
+    staging = broken.parent / f".{Path(planned[2].run_dir).name}.staging-x1y2z3"
     staging.mkdir()
     (staging / "posterior.h5").write_bytes(b"half")
 
@@ -195,18 +191,12 @@ def test_batch_catalogue_failure_interruption_and_resume(sample, client, tmp_pat
     from orbitmass.fit import Fit
 
     first = good.iloc[0]
-    alone = Fit(seed=int(first["seed"]), max_steps=MAX_STEPS, progress=False).fit(
-        first["target_file"]
-    )
-    assert alone.summary["derived"]["mass_msun"]["median"] == pytest.approx(
-        first["mass_msun_median"], rel=1e-12
-    )
+    alone = Fit(seed=int(first["seed"]), max_steps=MAX_STEPS, progress=False).fit(first["target_file"])
+    assert alone.summary["derived"]["mass_msun"]["median"] == pytest.approx(first["mass_msun_median"], rel=1e-12)
 
     # resume through the command line: finished runs are skipped, untouched; the bad one fails again
     mtimes = {
-        row.run_dir: {
-            f: (Path(row.run_dir) / f).stat().st_mtime_ns for f in ("summary.json", "posterior.h5")
-        }
+        row.run_dir: {f: (Path(row.run_dir) / f).stat().st_mtime_ns for f in ("summary.json", "posterior.h5")}
         for row in good.itertuples()
     }
     parser = argparse.ArgumentParser(prog="orbitmass")
@@ -228,13 +218,16 @@ def test_batch_catalogue_failure_interruption_and_resume(sample, client, tmp_pat
             "--no-progress",
         ]
     )
+    capsys.readouterr()
     assert cmd_batch(args) == 1  # not all converged
+    printed = capsys.readouterr()
+    assert "dask dashboard: http" in printed.err  # a client was opened for the bad target
+    assert "4 targets: 0 converged, 3 not converged, 1 failed (3 complete runs kept" in printed.out
+    assert "failed: Vell 9 AB: InputError:" in printed.err
     again = pd.read_csv(out / "catalogue.csv")
     assert list(again["skipped"]) == [True, True, True, False]
     assert list(again["status"]) == list(cat["status"])
-    np.testing.assert_array_equal(
-        again["mass_msun_median"].to_numpy(float), cat["mass_msun_median"].to_numpy(float)
-    )
+    np.testing.assert_array_equal(again["mass_msun_median"].to_numpy(float), cat["mass_msun_median"].to_numpy(float))
     for run_dir, stamps in mtimes.items():
         for f, ns in stamps.items():
             assert (Path(run_dir) / f).stat().st_mtime_ns == ns
