@@ -254,7 +254,6 @@ def corner_figure(
             label_kwargs={"fontsize": 9},
             hist_kwargs={"linewidth": 0.9},
             contour_kwargs={"linewidths": 0.7},
-            labelpad=0.08,
         )
         opts.update(corner_kwargs)
         fig = corner.corner(xs, fig=fig, **opts)
@@ -270,6 +269,15 @@ def corner_figure(
             hspace=0.06,
         )
         axes = np.asarray(fig.axes).reshape(n, n)
+        # labels at fixed distances (inches) from the panels; y tick labels upright, so
+        # the lowest tick of one row cannot run into the highest of the next
+        panel_in = (width - 0.83) / (n + (n - 1) * 0.06)
+        for i in range(n):
+            axes[-1, i].xaxis.set_label_coords(0.5, -0.5 / panel_in)
+            if i > 0:
+                axes[i, 0].yaxis.set_label_coords(-0.56 / panel_in, 0.5)
+                for lab in axes[i, 0].get_yticklabels():
+                    lab.set_rotation(0)
         tkw = {"fontsize": 8, "pad": 3}
         tkw.update(title_kwargs or {})
         for i in range(n):

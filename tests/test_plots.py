@@ -303,3 +303,61 @@ def test_products_saved_for_a_paper(tmp_path, wide):
     for p in written:
         head = p.read_bytes()[:8]
         assert head == b"\x89PNG\r\n\x1a\n" or head.startswith(b"%PDF-")
+
+
+def test_orbit_figure_absolute_frame(tmp_path):
+    # positions on an external frame: the orbit rides on the barycentre's proper motion
+    res = make_results(tmp_path, kind="absolute", scatter=0.2)
+    fig = plots.orbit_figure(res, n_draws=N_DRAWS)
+    sky = fig.axes[0]
+    assert sky.xaxis_inverted()
+    labels = [t.get_text() for sub in fig.subfigs for leg in sub.legends for t in leg.get_texts()]
+    assert "barycentre (median track)" in labels and "central body" not in labels
+    dashed = [ln for ln in sky.get_lines() if ln.get_linestyle() == "--"]
+    assert len(dashed) == 1
+    # the track is x0 + vx0 (t - t_ref): its ends move by vx0 x (data span) = 2 mas/yr x 16 yr
+    x, y = dashed[0].get_xdata(), dashed[0].get_ydata()
+    assert x[-1] - x[0] == pytest.approx(2.0 * 16.0, rel=0.02)
+    assert y[-1] - y[0] == pytest.approx(-1.5 * 16.0, rel=0.02)
+    east, north = res.target.companions[0].astrometry.east_north()
+    orbits = [ln for ln in sky.get_lines() if len(ln.get_xdata()) >= 100]
+    assert len(orbits) >= N_DRAWS
+    track = np.concatenate([np.column_stack([ln.get_xdata(), ln.get_ydata()]) for ln in orbits])
+    dist = np.min(np.hypot(track[:, :1].T - east[:, None], track[:, 1:].T - north[:, None]), axis=1)
+    assert np.all(dist < 5 * 0.3)
+
+
+@pytest.mark.slow
+def test_figures_and_reports_of_a_real_fit(tmp_path):
+    from orbitmass import Fit
+    from orbitmass.reports import write_report, write_tables
+
+    try:
+        from .test_reports import _write_wide
+    except ImportError:
+        from test_reports import _write_wide
+
+    path = _write_wide(tmp_path, "Fitted pair", np.random.default_rng(5))
+    fit = Fit(seed=2, max_steps=400, min_steps=200, progress=False, max_periods=300).fit(path)
+    res = fit.results_
+    out = tmp_path / "out"
+    out.mkdir()
+    figures = {}
+    for name, func in (
+        ("corner", plots.corner_figure),
+        ("orbit", plots.orbit_figure),
+        ("trace", plots.trace_figure),
+    ):
+        save_figure(func(res), out / name, dpi=72)
+        figures[name] = f"{name}.png"
+    write_tables(res, out)
+    paths = write_report(res, out, figures)
+    mass = res.summary["derived"]["mass_msun"]
+    med, _, _ = format_value(
+        mass["median"], mass["median"] - mass["q16"], mass["q84"] - mass["median"]
+    )
+    page = paths["html"].read_text(encoding="utf-8")
+    assert med in page and med in paths["md"].read_text(encoding="utf-8")
+    assert page.count("data:image/png;base64,") == 3
+    # the invented total mass (2 Msun) lies inside the reported 95 % interval
+    assert mass["q2.5"] < 2.0 < mass["q97.5"]

@@ -95,6 +95,20 @@ WIDE = {
         periastron_time=2011.0,
     ),
 }
+#: invented companion tracked on an external (absolute) frame; barycentre terms invented
+ABSOLUTE = {
+    "A1": TrueOrbit(
+        mass_msun=5.0e5,
+        distance_pc=3000.0,
+        period_yr=8.0,
+        eccentricity=0.5,
+        inclination_deg=40.0,
+        arg_periastron_deg=250.0,
+        ascending_node_deg=160.0,
+        periastron_time=2012.5,
+    ),
+}
+FRAME = {"x0": 3.0, "y0": -2.0, "vx0": 2.0, "vy0": -1.5, "vz0": 20.0}
 OFFSET_B_KMS = 12.0
 T_REF = 2010.0
 
@@ -207,6 +221,43 @@ def _write_wide(folder: Path, name: str, rng: np.random.Generator, c2_extra: str
     return path
 
 
+def _write_absolute(folder: Path, name: str, rng: np.random.Generator, c2_extra: str = "") -> Path:
+    a1 = ABSOLUTE["A1"]
+    t_pos = np.linspace(2002.0, 2018.0, 12)
+    sim = simulate(a1, t_pos)
+    dt = t_pos - T_REF
+    east = FRAME["x0"] + FRAME["vx0"] * dt + sim["east_mas"] + rng.normal(0, 0.3, 12)
+    north = FRAME["y0"] + FRAME["vy0"] * dt + sim["north_mas"] + rng.normal(0, 0.3, 12)
+    write_positions_csv(folder / "a1_pos.csv", t_pos, east, north, 0.3)
+    t_rv = np.linspace(2004.0, 2016.0, 9)
+    rv = FRAME["vz0"] + simulate(a1, t_rv)["rv_companion_kms"] + rng.normal(0, 3.0, 9)
+    write_velocities_csv(folder / "a1_rv.csv", t_rv, rv, 3.0)
+    text = f"""
+    [target]
+    name = "{name}"
+    reference_epoch = {T_REF}
+
+    [central]
+    frame = "absolute"
+    x0 = {{ dist = "normal", mean = "0 mas", sd = "10 mas" }}
+    y0 = {{ dist = "normal", mean = "0 mas", sd = "10 mas" }}
+    vx0 = {{ dist = "normal", mean = "0 mas / yr", sd = "5 mas / yr" }}
+    vy0 = {{ dist = "normal", mean = "0 mas / yr", sd = "5 mas / yr" }}
+    vz0 = {{ dist = "normal", mean = "0 km / s", sd = "50 km / s" }}
+
+    [distance]
+    prior = {{ dist = "normal", mean = "3 kpc", sd = "0.2 kpc" }}
+
+    [[companion]]
+    name = "A1"
+    astrometry = "a1_pos.csv"
+    velocities = "a1_rv.csv"
+    """
+    path = folder / "target.toml"
+    path.write_text(textwrap.dedent(text), encoding="utf-8")
+    return path
+
+
 def _truth_values(system: dict[str, TrueOrbit]) -> dict[str, float]:
     first = next(iter(system.values()))
     values = {
@@ -214,6 +265,7 @@ def _truth_values(system: dict[str, TrueOrbit]) -> dict[str, float]:
         "distance_pc": first.distance_pc,
         "offset.spec-b": OFFSET_B_KMS,
         "jitter.spec-b": 1.0,
+        **FRAME,
     }
     for name, orb in system.items():
         values[f"{name}.period_yr"] = orb.period_yr
@@ -242,10 +294,10 @@ def make_results(
     """A Results built without sampling (see the module docstring)."""
     rng = np.random.default_rng(seed)
     folder.mkdir(parents=True, exist_ok=True)
-    writer = _write_nucleus if kind == "nucleus" else _write_wide
+    writer = {"nucleus": _write_nucleus, "wide": _write_wide, "absolute": _write_absolute}[kind]
     target = read_target(writer(folder, name, rng, c2_extra))
     space = ParameterSpace(target)
-    system = NUCLEUS if kind == "nucleus" else WIDE
+    system = {"nucleus": NUCLEUS, "wide": WIDE, "absolute": ABSOLUTE}[kind]
     theta0 = space.pack(_truth_values(system))
     space.set_centres(theta0)
     sd = np.array([0.3 if n.startswith("offset.") else 0.002 * scatter for n in space.names])
