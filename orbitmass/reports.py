@@ -740,12 +740,19 @@ def _data_rows(results: Results) -> list[tuple[str, ...]]:
     return rows
 
 
+_MODE_KEYS = {"delta_log_posterior": "Δ ln p below the best", "period_yr": "period [yr]"}
+
+
 def _mode_text(mode: Any) -> str:
+    """Readable text of a recorded mode (numbers, lists and nested mappings)."""
     if isinstance(mode, Mapping):
-        return ", ".join(
-            f"{k} = {_fmt_num(v, '.6g') if isinstance(v, (int, float)) else v}"
-            for k, v in mode.items()
-        )
+        parts = []
+        for k, v in mode.items():
+            key = _MODE_KEYS.get(str(k), str(k))
+            parts.append(
+                f"{key}: {_mode_text(v)}" if isinstance(v, Mapping) else f"{key} = {_mode_text(v)}"
+            )
+        return ", ".join(parts)
     if isinstance(mode, (list, tuple)):
         return ", ".join(_mode_text(m) for m in mode)
     return _fmt_num(mode, ".6g") if isinstance(mode, (int, float)) else str(mode)
@@ -796,11 +803,7 @@ def _diagnostic_blocks(results: Results) -> list[Any]:
         modes = diag.get("period_modes") or {}
         text = "The posterior may be MULTIMODAL"
         if modes:
-            text += (
-                " (walker groups in period: "
-                + "; ".join(f"{k}: {_mode_text(v)}" for k, v in modes.items())
-                + ")"
-            )
+            text += " (separate walker groups in period: " + _mode_text(modes) + ")"
         other = diag.get("other_modes") or []
         if other:
             text += ". Other modes found during initialisation: " + "; ".join(

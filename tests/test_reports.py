@@ -346,7 +346,8 @@ def make_results(
                 "burn": 5,
                 "thin": 1,
                 "multimodal": not converged,
-                "other_modes": [{"C1.period_yr": 5.6, "log_posterior": -120.5}]
+                "period_modes": {"C1": 1 if converged else 2, "C2": 1},
+                "other_modes": [{"delta_log_posterior": 3.25, "period_yr": {"C1": 5.6, "C2": 27.4}}]
                 if not converged
                 else [],
                 "per_parameter": {
@@ -683,7 +684,8 @@ def test_report_not_converged_and_multimodal(tmp_path):
     md = paths["md"].read_text(encoding="utf-8")
     page = paths["html"].read_text(encoding="utf-8")
     assert "> **WARNING:** NOT CONVERGED" in md
-    assert "MULTIMODAL" in md and "C1.period\\_yr = 5.6" in md
+    assert "MULTIMODAL" in md and "separate walker groups in period: C1 = 2, C2 = 1" in md
+    assert "Δ ln p below the best = 3.25, period \\[yr\\]: C1 = 5.6, C2 = 27.4" in md
     assert page.count('class="warn"') >= 3
     assert "No figures were made." in md
 
