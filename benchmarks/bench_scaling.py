@@ -1,0 +1,174 @@
+"""How the cost grows: with the number of epochs, and with the number of companions.
+
+1. Time per likelihood evaluation (one parameter set, in a block of 64 as
+   emcee passes them) for 10, 100, 1000 and 10000 epochs, each epoch with a
+   position and a velocity (:func:`benchmarks.bench_likelihood.simulated_problem`).
+2. Wall time to a converged posterior of a joint fit of 1, 2 and 4 companions
+   around one central mass (several ``[[companion]]`` blocks in one target:
+   they share the mass and the distance), 25 epochs of astrometry and 12 of
+   velocities per companion, distance with a 3 % prior. ``--quick`` fits only 1
+   and 2 companions.
+
+Usage::
+
+    python benchmarks/bench_scaling.py [--quick]
+"""
+
+from __future__ import annotations
+
+import argparse
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from benchmarks.bench_likelihood import (
+    N_SETS,
+    median_seconds,
+    parameter_sets,
+    posteriors,
+    simulated_problem,
+)
+from benchmarks.bench_problems import CompanionData, Problem, baseline_to_theta, make_problem
+from orbitmass.simulate import TrueOrbit
+
+__all__ = ["JOINT_MASS_MSUN", "JOINT_DISTANCE_PC", "JOINT_ORBITS", "joint_problem", "epoch_scaling",
+           "companion_scaling", "run"]
+
+JOINT_MASS_MSUN = 3.1e6
+JOINT_DISTANCE_PC = 9800.0
+#: invented orbits of the joint-fit companions: (period yr, e, i deg, omega deg, Omega deg, T_p)
+JOINT_ORBITS = [
+    (12.0, 0.55, 62.0, 30.0, 210.0, 2014.2),
+    (17.5, 0.35, 128.0, 300.0, 95.0, 2019.6),
+    (9.0, 0.7, 40.0, 150.0, 330.0, 2011.9),
+    (24.0, 0.25, 101.0, 75.0, 20.0, 2008.4),
+]
+
+
+def joint_problem(folder: Path, n_companions: int, *, n_pos: int = 25, n_rv: int = 12,
+                  seed: int = 31) -> Problem:
+    """A target with ``n_companions`` companions of one central mass (data simulated, written)."""
+    rng = np.random.default_rng([seed, n_companions])
+    comps = []
+    for k in range(n_companions):
+        period, ecc, inc, omega, node, tp = JOINT_ORBITS[k]
+        truth = TrueOrbit(mass_msun=JOINT_MASS_MSUN, distance_pc=JOINT_DISTANCE_PC, period_yr=period,
+                          eccentricity=ecc, inclination_deg=inc, arg_periastron_deg=omega,
+                          ascending_node_deg=node, periastron_time=tp)
+        t_pos = np.sort(rng.uniform(2004.0, 2026.5, n_pos))
+        t_rv = np.sort(rng.uniform(2008.0, 2026.5, n_rv))
+        comps.append(CompanionData(f"S{k + 1}", truth, t_pos, t_rv, 0.15, 15.0))
+    return make_problem(folder, f"joint-{n_companions}", comps, reference_epoch=2016.0,
+                        distance_mode="distance-normal",
+                        distance_prior=(JOINT_DISTANCE_PC, 0.03 * JOINT_DISTANCE_PC),
+                        mass_prior_msun=(1e4, 1e9), period_prior_yr=(1.0, 200.0), rng=rng)
+
+
+def epoch_scaling(sizes: tuple[int, ...], repeats: int, n_sets: int = N_SETS) -> list[dict]:
+    """Microseconds per parameter set of the vectorised posterior for each epoch count."""
+    out = []
+    with tempfile.TemporaryDirectory(prefix="orbitmass-bench-scale-") as tmp:
+        for n in sizes:
+            prob = simulated_problem(Path(tmp) / f"n{n}", n)
+            space, post, base = posteriors(prob)
+            theta = baseline_to_theta(space, base, parameter_sets(base, n_sets, np.random.default_rng(5)))
+            seconds = median_seconds(lambda post=post, theta=theta: post(theta), repeats)
+            us = seconds / n_sets * 1e6
+            out.append({"n_epochs": n, "us_per_set": us, "ns_per_set_epoch": us * 1e3 / n,
+                        "evaluations_per_s": n_sets / seconds})
+    return out
+
+
+def companion_scaling(counts: tuple[int, ...], repeats: int, *, n_pos: int = 25, n_rv: int = 12,
+                      max_steps: int = 20000) -> list[dict]:
+    """Wall time to convergence of joint fits with each number of companions (median of repeats)."""
+    from orbitmass.fit import Fit
+
+    out = []
+    with tempfile.TemporaryDirectory(prefix="orbitmass-bench-joint-") as tmp:
+        for n in counts:
+            prob = joint_problem(Path(tmp) / f"c{n}", n, n_pos=n_pos, n_rv=n_rv)
+            runs = []
+            for k in range(repeats):
+                fit = Fit(seed=301 + k, progress=False, max_steps=max_steps).fit(prob.target)
+                d = fit.summary["diagnostics"]
+                runs.append({"wall_seconds": float(d["wall_seconds"]), "converged": bool(d["converged"]),
+                             "n_steps": int(d["n_steps"]), "n_walkers": int(d["n_walkers"]),
+                             "n_evaluations": int(d["n_evaluations"]), "ess_mass": float(d["ess_mass"]),
+                             "mass_median_msun": float(fit.summary["derived"]["mass_msun"]["median"])})
+            walls = [r["wall_seconds"] for r in runs]
+            out.append({
+                "n_companions": n,
+                "n_dim": fit.results.space.ndim,
+                "n_pos_per_companion": n_pos,
+                "n_rv_per_companion": n_rv,
+                "wall_seconds": float(np.median(walls)),
+                "converged": all(r["converged"] for r in runs),
+                "hit_cap": not all(r["converged"] for r in runs),
+                "n_steps": float(np.median([r["n_steps"] for r in runs])),
+                "ess_mass": float(np.median([r["ess_mass"] for r in runs])),
+                "ess_mass_per_s": float(np.median([r["ess_mass"] / r["wall_seconds"] for r in runs])),
+                "true_mass_msun": JOINT_MASS_MSUN,
+                "runs": runs,
+            })
+    return out
+
+
+def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
+        counts: tuple[int, ...] | None = None, repeats: int | None = None,
+        fit_repeats: int | None = None, n_pos: int = 25, n_rv: int = 12, max_steps: int = 20000) -> dict:
+    """Run both scalings.
+
+    Parameters
+    ----------
+    quick : bool
+        Companions 1 and 2 only, one fit each, three timing repeats; otherwise
+        1, 2 and 4 companions, three fits each (the median is reported), seven
+        timing repeats.
+    sizes, counts, repeats, fit_repeats, n_pos, n_rv, max_steps
+        Override the settings (for smoke tests).
+
+    Returns
+    -------
+    dict
+        ``"epochs"`` (list of per-size figures), ``"companions"`` (list of
+        per-count figures), ``"settings"``.
+    """
+    counts = counts or ((1, 2) if quick else (1, 2, 4))
+    repeats = repeats or (3 if quick else 7)
+    fit_repeats = fit_repeats or (1 if quick else 3)
+    return {
+        "epochs": epoch_scaling(sizes, repeats),
+        "companions": companion_scaling(counts, fit_repeats, n_pos=n_pos, n_rv=n_rv, max_steps=max_steps),
+        "settings": {"timing_repeats": repeats, "fit_repeats": fit_repeats, "n_sets": N_SETS,
+                     "epochs": "each epoch has a position and a velocity",
+                     "joint": f"{n_pos} positions and {n_rv} velocities per companion, 3 % distance prior",
+                     "quick": quick},
+    }
+
+
+def table(result: dict) -> str:
+    """Plain-text table of :func:`run` output."""
+    lines = [f"Likelihood cost against epochs ({result['settings']['n_sets']} sets per call)",
+             f"{'epochs':>7} {'us/set':>10} {'ns/set/epoch':>13}"]
+    for r in result["epochs"]:
+        lines.append(f"{r['n_epochs']:>7d} {r['us_per_set']:>10.2f} {r['ns_per_set_epoch']:>13.1f}")
+    lines.append(f"Joint fits (median of {result['settings']['fit_repeats']}; {result['settings']['joint']})")
+    lines.append(f"{'companions':>10} {'n_dim':>6} {'wall s':>8} {'steps':>7} {'ESS(M)':>8} {'conv':>5}")
+    for r in result["companions"]:
+        lines.append(f"{r['n_companions']:>10d} {r['n_dim']:>6d} {r['wall_seconds']:>8.1f} {r['n_steps']:>7.0f} "
+                     f"{r['ess_mass']:>8.0f} {'yes' if r['converged'] else 'no':>5}")
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Command-line entry: run and print the table."""
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="1 and 2 companions, fewer repeats")
+    args = parser.parse_args(argv)
+    print(table(run(args.quick)))  # noqa: T201 (benchmark script output)
+
+
+if __name__ == "__main__":
+    main()
