@@ -29,16 +29,26 @@ __all__ = ["Fit", "load", "redshift_distance_pc", "priors_used"]
 log = logging.getLogger(__name__)
 
 
-def redshift_distance_pc(z: float, cosmology: str) -> float:
-    """Angular-diameter distance (pc) at redshift ``z`` in a named astropy cosmology realisation."""
+def cosmology_from_spec(spec: str):
+    """An astropy cosmology from a realisation name (``"Planck18"``) or ``"flat-lcdm:H0=..,Om0=..,Tcmb0=.."``."""
     import astropy.cosmology as cosmo_mod
+
+    if spec.startswith("flat-lcdm:"):
+        params = dict(item.split("=", 1) for item in spec[len("flat-lcdm:"):].split(","))
+        return cosmo_mod.FlatLambdaCDM(H0=float(params["H0"]), Om0=float(params["Om0"]),
+                                       Tcmb0=float(params.get("Tcmb0", 0.0)))
+    cosmo = getattr(cosmo_mod, spec, None) if spec in cosmo_mod.realizations.available else None
+    if cosmo is None:
+        raise InputError(f"unknown cosmology {spec!r}; expected an astropy realisation such as "
+                         f"{', '.join(cosmo_mod.realizations.available)}", key="distance.cosmology")
+    return cosmo
+
+
+def redshift_distance_pc(z: float, cosmology: str) -> float:
+    """Angular-diameter distance (pc) at redshift ``z`` in the cosmology ``cosmology`` (see :func:`cosmology_from_spec`)."""
     import astropy.units as u
 
-    cosmo = getattr(cosmo_mod, cosmology, None)
-    if cosmo is None or not hasattr(cosmo, "angular_diameter_distance"):
-        raise InputError(f"unknown cosmology {cosmology!r}; expected an astropy realisation such as "
-                         f"{', '.join(cosmo_mod.realizations.available)}", key="distance.cosmology")
-    return float(cosmo.angular_diameter_distance(z).to_value(u.pc))
+    return float(cosmology_from_spec(cosmology).angular_diameter_distance(z).to_value(u.pc))
 
 
 def _versions() -> dict[str, str]:

@@ -362,11 +362,46 @@ def _distance(doc: dict[str, Any], where: str) -> Distance:
         from astropy.cosmology import realizations
 
         cosmology = dist["cosmology"]
-        if cosmology not in realizations.available:
+        if isinstance(cosmology, dict):
+            cosmology = _flat_lcdm_spec(cosmology, where)
+        elif not isinstance(cosmology, str) or cosmology not in realizations.available:
             raise InputError(f"unknown cosmology {cosmology!r}; expected one of "
-                             f"{', '.join(realizations.available)}", file=where,
-                             key="distance.cosmology")
+                             f"{', '.join(realizations.available)}, or an inline table "
+                             "{ H0 = \"70 km / (s Mpc)\", Om0 = 0.3 } for a flat Lambda-CDM model",
+                             file=where, key="distance.cosmology")
     return Distance(prior=prior, parallax=parallax, redshift=redshift, cosmology=cosmology)
+
+
+def _flat_lcdm_spec(table: dict, where: str) -> str:
+    """``{ H0 = "70 km / (s Mpc)", Om0 = 0.3, Tcmb0 = "0 K" }`` -> ``"flat-lcdm:H0=70.0,Om0=0.3,Tcmb0=0.0"``.
+
+    H0 in km/s/Mpc, Om0 bare in (0, 1], Tcmb0 in K (default 0: no radiation).
+    """
+    _no_unknown(table, ("H0", "Om0", "Tcmb0"), "distance.cosmology", where)
+    for key in ("H0", "Om0"):
+        if key not in table:
+            raise InputError(f"missing key {key!r} of the flat Lambda-CDM model", file=where,
+                             key=f"distance.cosmology.{key}")
+    try:
+        h0 = u.Quantity(table["H0"]).to_value(u.km / u.s / u.Mpc) if isinstance(table["H0"], str) else None
+    except (TypeError, ValueError, u.UnitsError):
+        h0 = None
+    if h0 is None or not math.isfinite(h0) or h0 <= 0:
+        raise InputError(f"expected a Hubble constant such as '70 km / (s Mpc)', got {table['H0']!r}",
+                         file=where, key="distance.cosmology.H0")
+    om0 = _bare_number(table["Om0"], "distance.cosmology.Om0", where)
+    if not 0.0 < om0 <= 1.0:
+        raise InputError(f"Om0 must be in (0, 1], got {om0!r}", file=where, key="distance.cosmology.Om0")
+    tcmb = 0.0
+    if "Tcmb0" in table:
+        try:
+            tcmb = u.Quantity(table["Tcmb0"]).to_value(u.K) if isinstance(table["Tcmb0"], str) else -1.0
+        except (TypeError, ValueError, u.UnitsError):
+            tcmb = -1.0
+        if not (math.isfinite(tcmb) and tcmb >= 0):
+            raise InputError(f"expected a temperature such as '2.725 K', got {table['Tcmb0']!r}",
+                             file=where, key="distance.cosmology.Tcmb0")
+    return f"flat-lcdm:H0={float(h0)!r},Om0={float(om0)!r},Tcmb0={float(tcmb)!r}"
 
 
 def _declared_instruments(doc: dict[str, Any], where: str) -> dict[str, dict[str, Prior]]:
