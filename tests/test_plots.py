@@ -294,7 +294,7 @@ def test_products_saved_for_a_paper(tmp_path, wide):
     written = []
     figures = {
         "corner": plots.corner_figure(wide, columns=["mass_msun", "B.period_yr"]),
-        "orbit": plots.orbit_figure(wide, n_draws=5),
+        "orbit": plots.orbit_figure(wide, n_draws=3, n_grid=100),
         "trace": plots.trace_figure(wide, max_params=3),
     }
     for name, fig in figures.items():
