@@ -23,6 +23,7 @@ from __future__ import annotations
 import math
 
 import astropy.units as u
+import numpy as np
 from astropy import constants as const
 
 from orbitmass.exceptions import InputError
@@ -144,7 +145,8 @@ def parse_quantity(text: object, physical_type: str, *, key: str, where: str = "
             key=key,
         )
     try:
-        value = float(q.to_value(target_unit))
+        with np.errstate(over="ignore", invalid="ignore"):
+            value = float(q.to_value(target_unit))
     except u.UnitConversionError:
         raise InputError(
             f"{text!r} is not a {physical_type} (cannot convert {q.unit} to {target_unit})",

@@ -68,6 +68,8 @@ logger = logging.getLogger(__name__)
 DEFAULT_INSTRUMENT = "default"
 #: Accepted epoch columns.
 EPOCH_COLUMNS = ("jyear", "mjd", "jd", "date")
+#: plausible epochs (Julian years): catches MJD or JD values in a jyear column
+EPOCH_RANGE_JYEAR = (-5000.0, 10000.0)
 
 #: MJD of J2000.0 (MJD = JD - 2400000.5).
 _MJD_J2000 = JD_J2000 - 2400000.5
@@ -327,10 +329,18 @@ def _epochs(grid: _Grid, found: dict[str, tuple[str, _Scale]]) -> NDArray[np.flo
         return np.array([_date_to_jyear(grid, i, t) for i, t in enumerate(grid.cells("date"))])
     values = _values(grid, column)
     if column == "mjd":
-        return 2000.0 + (values - _MJD_J2000) / DAYS_PER_YEAR
-    if column == "jd":
-        return 2000.0 + (values - JD_J2000) / DAYS_PER_YEAR
-    return values
+        t = 2000.0 + (values - _MJD_J2000) / DAYS_PER_YEAR
+    elif column == "jd":
+        t = 2000.0 + (values - JD_J2000) / DAYS_PER_YEAR
+    else:
+        t = values
+    bad = np.nonzero(~((t >= EPOCH_RANGE_JYEAR[0]) & (t <= EPOCH_RANGE_JYEAR[1])))[0]
+    if bad.size:
+        row = int(bad[0])
+        raise grid.error(f"epoch {values[row]!r} ({column}) lies outside the Julian years "
+                         f"{EPOCH_RANGE_JYEAR[0]:.0f} to {EPOCH_RANGE_JYEAR[1]:.0f}; is the column named for "
+                         "its format (jyear, mjd, jd or date)?", row=row, column=column)
+    return t
 
 
 def _sorted(t_yr: NDArray, lines: list[int], *arrays: NDArray) -> list[NDArray]:

@@ -172,9 +172,13 @@ def _no_unknown(table: dict[str, Any], allowed: tuple[str, ...], prefix: str, wh
 def _bare_number(value: object, key: str, where: str) -> float:
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise InputError(f"expected a bare number, got {value!r}", file=where, key=key)
-    if not math.isfinite(value):
+    try:
+        number = float(value)
+    except OverflowError:
+        raise InputError(f"number too large for a float: {str(value)[:20]}...", file=where, key=key) from None
+    if not math.isfinite(number):
         raise InputError(f"expected a finite number, got {value!r}", file=where, key=key)
-    return float(value)
+    return number
 
 
 def _string(value: object, key: str, where: str) -> str:
@@ -284,6 +288,8 @@ def _read_toml(path: str | os.PathLike[str]) -> tuple[dict[str, Any], bytes, str
     text = decode_text(data, where)
     try:
         doc = tomllib.loads(text)
+    except RecursionError:
+        raise InputError("TOML nested too deeply to read", file=where) from None
     except tomllib.TOMLDecodeError as exc:
         match = re.search(r"line (\d+)", str(exc))
         line = int(match.group(1)) if match else None
