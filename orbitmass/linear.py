@@ -1,0 +1,795 @@
+"""Astrometry-only fast path: the four Thiele-Innes constants handled analytically.
+
+For one companion seen in sky positions only, the model is linear in the
+Thiele-Innes constants ``beta = (A, B, F, G)`` (mas) once the period, the
+eccentricity and the phase are fixed::
+
+    north = A X + F Y,    east = B X + G Y,
+    X = cos E - e,        Y = sqrt(1 - e^2) sin E.
+
+So for fixed ``(P, e, M0)`` the Gaussian likelihood is a Gaussian in ``beta``
+that can be integrated exactly, and the sampler needs only three dimensions.
+This is the separation of Lucy (2014, A&A 563, A126): linear least squares in
+the Thiele-Innes constants for fixed ``P, e, T``. What follows keeps the
+posterior the one stated in the target file (the same as
+:class:`~orbitmass.likelihood.LogPosterior` samples), by importance weights.
+
+When it applies (:func:`applies`)
+---------------------------------
+Exactly one companion; relative frame; no velocity rows; at least three
+astrometry rows, all east/north (a separation/position-angle row is not linear
+in ``beta``); the mass prior, period prior, eccentricity prior and the phase
+prior (``mean_anomaly`` or ``periastron_time``) not fixed; the inclination prior
+``isotropic``; the ``arg_periastron`` and ``ascending_node`` priors uniform over
+a whole turn (or more); no other sampled variable (instrument terms, systemic
+velocity). Anything else goes to the normal path.
+
+Sampled variables
+-----------------
+``theta = (ln P, sqrt(e) cos M0, sqrt(e) sin M0)`` with ``P`` the rest-frame
+period (yr) and ``M0`` the mean anomaly at the reference epoch (rad). As for
+the eccentricity vector of :class:`~orbitmass.parameters.ParameterSpace`, a
+uniform density on the unit disc is uniform in ``e`` and ``M0`` (Jacobian 2);
+the polar form has no wall at ``e = 0``, where ``M0`` is undefined (a circular
+orbit's phase is absorbed into ``beta``), and no angle window to manage.
+
+The three-dimensional target
+----------------------------
+With ``N`` the 4x4 weighted normal matrix (the 2x2 east/north covariance of
+each row included, correlation too), ``beta_hat = N^-1 b`` and ``chi2_min`` the
+least-squares minimum, the likelihood integrated over ``beta`` with a flat
+(improper, unit) prior is exactly::
+
+    ln Z_flat = c_data - chi2_min / 2 + (1/2) ln det(2 pi N^-1)
+
+(``c_data`` the data normalisation of :class:`LogPosterior`). The sampler
+targets ``pi(P, e, M0) Z_flat(P, e, M0) h(P, e, M0)``, with ``pi`` the stated
+priors in the sampled variables. ``h`` is any positive function: it only
+shapes the proposal and cancels in the importance weights below (choice 2).
+
+Expansion to all elements (:func:`expand`)
+------------------------------------------
+For every retained ``(P, e, M0)``: draw ``beta ~ N(beta_hat, N^-1)`` (its
+conditional under the flat prior) and the distance ``d`` from its prior (with
+positions only, ``d`` enters the data only through ``beta``, i.e. through the
+mass); convert ``beta -> (a_mas, i, omega, Omega)`` with
+:func:`~orbitmass.elements.thiele_innes_to_campbell` (``Omega`` in ``[0, pi)``,
+the half-turn node window ParameterSpace uses without line-of-sight data) and
+get the mass from Kepler III with ``a_au = a_mas d / 1000``. The proposal
+density of ``(P, e, M0, beta, d)`` is then ``pi Z_flat h N(beta) p(d) /
+const = pi L(beta) h p(d) / const``, while the stated posterior of the same
+point, written in ``(beta, d)`` instead of ``(M, i, omega, Omega)``, is
+``pi L(beta) p(d) g(beta, d, P)`` with::
+
+    g = p_M(M) |dM/da_mas| p_i(i) sum_{2 solutions} p_omega p_Omega / |d(A,B,F,G)/d(a,i,omega,Omega)|
+      = p_M(M) (3 M / a_mas) (sin i / 2) (2 / (4 pi^2)) / (a_mas^3 sin^3 i)
+
+(``|dM/da_mas| = 3 M / a_mas`` at fixed ``P`` and ``d``; the Jacobian
+``a^3 sin^3 i`` is :func:`~orbitmass.elements.thiele_innes_jacobian_log`; the
+sum runs over ``(omega, Omega)`` and ``(omega + pi, Omega + pi)``, which give the
+same ``beta``; ``g = 0`` outside the mass prior's support). The importance
+weight of a draw is ``w = g / h``. Weighted draws are turned into equally
+weighted ones by systematic resampling (Kitagawa 1996, J. Comput. Graph.
+Stat. 5, 1) with the seeded generator, packed into the full ParameterSpace
+layout, and their angles put in the windows, so that everything downstream
+(derived quantities, plots, run folders) is unchanged.
+
+Choices
+-------
+1. **Flat-beta marginal plus reweighting, not a Gaussian prior on beta.** The
+   stated priors (isotropic orientation, a prior on the mass, not on ``a``)
+   are not Gaussian in ``beta``; any tractable prior on ``beta`` needs the same
+   reweighting, and the flat one makes ``Z`` exact and cheap.
+2. **Proposal shaping h = E[g].** With ``h = 1`` the 3-D marginal is that of a
+   flat prior on ``beta``, which for weak data (partial arcs) rewards long
+   periods without bound (``det N^-1`` grows like ``P^4``) while the stated
+   priors do not (``g ~ a^-4`` for a log-uniform mass prior), and the weights
+   would then carry all the information. So ``h`` is a Monte Carlo estimate of
+   the conditional mean of ``g`` given ``(P, e, M0)``, with ``n_draws`` (default 8)
+   *common random numbers* fixed when the posterior is built (standard normal
+   4-vectors and distances from the prior), so that ``h`` is a smooth,
+   deterministic function of ``theta``. The 3-D target is then close to the
+   true marginal posterior and the weights only correct within-``beta``
+   scatter. ``h`` uses the mass prior's density at the mass clipped into the
+   prior's support, so it never vanishes where the true posterior does not
+   (importance sampling needs ``h > 0`` wherever ``g > 0``); draws outside the
+   support get weight 0. ``n_draws = 0`` gives ``h = 1``.
+3. **Kish effective sample size.** ``(sum w)^2 / sum w^2`` (Kish 1965, Survey
+   Sampling) over the retained draws. The effective sample size of a quantity
+   after weighting is approximated by its ESS on the (unweighted) expanded
+   chain times ``Kish / N``: exact for independent draws, an approximation
+   for a correlated chain (it assumes the weights are not correlated with the
+   chain's autocorrelation structure). It is reported beside the raw numbers.
+   Near face-on orbits ``g ~ 1 / sin^2 i`` and the weights have a heavy tail;
+   the Kish fraction then drops and :func:`fit_linear` says so
+   (``fallback_recommended``) so the caller can use the normal path.
+4. **Distance.** Parallax and distance priors are drawn by rejection of
+   non-positive values: the normal path samples ``ln parallax`` (or ``ln d``),
+   i.e. the prior truncated to positive values.
+5. **Chain of the full layout.** The whole 3-D chain is expanded (one ``beta``
+   and ``d`` draw per step and walker), so trace plots and per-parameter
+   ``tau``, ESS (scaled by ``Kish / N``) and R-hat exist for every sampled
+   variable of the full layout. The chain's log probability is that of the
+   3-D target; the ``log_posterior`` of the retained samples is the full
+   posterior of :class:`LogPosterior`, as on the normal path.
+
+Public functions: :func:`applies`, :class:`LinearAstrometryPosterior`,
+:func:`expand`, :func:`systematic_resample`, :func:`kish_ess`,
+:func:`initialise_linear`, :func:`fit_linear`.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import time
+
+import numpy as np
+from numpy.typing import NDArray
+
+from orbitmass import diagnostics
+from orbitmass.elements import thiele_innes_jacobian_log, thiele_innes_to_campbell
+from orbitmass.kepler import kepler_cos_sin
+from orbitmass.parameters import ParameterSpace
+from orbitmass.physics import mass_msun as kepler_mass
+from orbitmass.priors import Isotropic, Uniform
+
+__all__ = [
+    "applies",
+    "ineligible_reasons",
+    "LinearAstrometryPosterior",
+    "expand",
+    "systematic_resample",
+    "kish_ess",
+    "initialise_linear",
+    "fit_linear",
+]
+
+log = logging.getLogger(__name__)
+
+TWO_PI = 2.0 * math.pi
+LN2 = math.log(2.0)
+LOG_2PI = math.log(TWO_PI)
+#: ln of M / (a_au^3 / P^2), i.e. ln(4 pi^2 / GM_sun) in Msun, au, yr (Kepler III).
+LOG_KEPLER = float(np.log(kepler_mass(1.0, 1.0)))
+#: ln of the constant factors of g: 3 (dM/da) x 1/2 (isotropic) x 2 / (4 pi^2) (two node solutions).
+LOG_G_CONST = math.log(3.0) - LN2 + LN2 - math.log(4.0 * math.pi**2)
+#: Relative size of a Cholesky pivot below which the normal matrix counts as singular.
+PIVOT_TOL = 1e-10
+
+
+# --------------------------------------------------------------- eligibility
+def _full_turn(prior) -> bool:
+    return isinstance(prior, Uniform) and prior.high - prior.low >= TWO_PI - 1e-12
+
+
+def ineligible_reasons(space: ParameterSpace) -> list[str]:
+    """Why the fast path does not apply to ``space`` (empty list: it applies).
+
+    Parameters
+    ----------
+    space : ParameterSpace
+
+    Returns
+    -------
+    list of str
+        One short reason per failed condition (module docstring).
+    """
+    target = space.target
+    reasons: list[str] = []
+    if len(target.companions) != 1:
+        return ["needs exactly one companion"]
+    if target.frame != "relative":
+        reasons.append("needs the relative frame")
+    comp = target.companions[0]
+    if comp.velocities is not None and len(comp.velocities):
+        reasons.append("has velocity rows")
+    astro = comp.astrometry
+    if astro is None or len(astro) < 3:
+        reasons.append("needs at least three astrometry rows")
+    elif bool(np.any(astro.polar)):
+        reasons.append("has separation/position-angle rows (not linear in A, B, F, G)")
+    if target.central_priors["mass"].fixed:
+        reasons.append("mass is fixed")
+    pr = comp.priors
+    if pr["period"].fixed:
+        reasons.append("period is fixed")
+    ecc = pr["eccentricity"]
+    if ecc.fixed:
+        reasons.append("eccentricity is fixed")
+    elif ecc.support[0] < 0.0 or ecc.support[1] > 1.0:
+        reasons.append("eccentricity prior reaches outside [0, 1]")
+    if not isinstance(pr["inclination"], Isotropic):
+        reasons.append("inclination prior is not isotropic")
+    for key in ("arg_periastron", "ascending_node"):
+        if not _full_turn(pr[key]):
+            reasons.append(f"{key} prior is not uniform over the whole circle")
+    phase = pr.get("periastron_time", pr.get("mean_anomaly"))
+    if phase is None or phase.fixed:
+        reasons.append("phase (mean_anomaly / periastron_time) is fixed")
+    if not reasons:
+        lay = space.companions[0]
+        plane = space.planes[lay.plane]
+        expected = {"ln_mass", f"{comp.name}.ln_period", f"{comp.name}.sqrte_cosw",
+                    f"{comp.name}.sqrte_sinw", f"{comp.name}.mean_longitude", f"{lay.plane}.cos_i",
+                    f"{lay.plane}.node"}
+        if space.distance_mode == "parallax":
+            expected.add("ln_parallax")
+        elif space.distance_mode == "distance":
+            expected.add("ln_distance")
+        if set(space.names) != expected or plane["los"]:
+            extra = sorted(set(space.names) - expected)
+            reasons.append("other sampled variables: " + (", ".join(extra) if extra else "layout differs"))
+    return reasons
+
+
+def applies(space: ParameterSpace) -> bool:
+    """True when the astrometry-only fast path can sample ``space`` (module docstring).
+
+    Parameters
+    ----------
+    space : ParameterSpace
+
+    Returns
+    -------
+    bool
+    """
+    return not ineligible_reasons(space)
+
+
+# ----------------------------------------------------------- linear algebra
+def _cholesky4(a00, a10, a11, a20, a21, a22, a30, a31, a32, a33):
+    """Cholesky factor of a batch of symmetric 4x4 matrices given by their lower triangles.
+
+    Unrolled on arrays of shape (n,). Returns the ten lower entries
+    ``(l00, l10, l11, l20, l21, l22, l30, l31, l32, l33)`` and a mask of the
+    matrices that are positive definite with every pivot above
+    :data:`PIVOT_TOL` times its diagonal entry (the others hold NaN or junk).
+    """
+    with np.errstate(invalid="ignore", divide="ignore"):
+        l00 = np.sqrt(a00)
+        l10, l20, l30 = a10 / l00, a20 / l00, a30 / l00
+        s11 = a11 - l10 * l10
+        l11 = np.sqrt(s11)
+        l21 = (a21 - l20 * l10) / l11
+        l31 = (a31 - l30 * l10) / l11
+        s22 = a22 - l20 * l20 - l21 * l21
+        l22 = np.sqrt(s22)
+        l32 = (a32 - l30 * l20 - l31 * l21) / l22
+        s33 = a33 - l30 * l30 - l31 * l31 - l32 * l32
+        l33 = np.sqrt(s33)
+    ok = (a00 > 0.0) & (s11 > PIVOT_TOL * a11) & (s22 > PIVOT_TOL * a22) & (s33 > PIVOT_TOL * a33)
+    return (l00, l10, l11, l20, l21, l22, l30, l31, l32, l33), ok
+
+
+def _forward4(fac, b0, b1, b2, b3):
+    """Solve ``L z = b`` for the factor of :func:`_cholesky4` (entries broadcast)."""
+    l00, l10, l11, l20, l21, l22, l30, l31, l32, l33 = fac
+    z0 = b0 / l00
+    z1 = (b1 - l10 * z0) / l11
+    z2 = (b2 - l20 * z0 - l21 * z1) / l22
+    z3 = (b3 - l30 * z0 - l31 * z1 - l32 * z2) / l33
+    return z0, z1, z2, z3
+
+
+def _backward4(fac, z0, z1, z2, z3):
+    """Solve ``L^T x = z`` for the factor of :func:`_cholesky4` (entries broadcast)."""
+    l00, l10, l11, l20, l21, l22, l30, l31, l32, l33 = fac
+    x3 = z3 / l33
+    x2 = (z2 - l32 * x3) / l22
+    x1 = (z1 - l21 * x2 - l31 * x3) / l11
+    x0 = (z0 - l10 * x1 - l20 * x2 - l30 * x3) / l00
+    return x0, x1, x2, x3
+
+
+def _log_a_and_pq(A, B, F, G):
+    """ln a and ln(4 P Q) = ln(a^2 sin^2 i) from the constants, without trigonometry.
+
+    ``2 P = |(A + G, B - F)|``, ``2 Q = |(A - G, B + F)|``, ``a = P + Q`` and
+    ``a sin i = 2 sqrt(P Q)`` (elements module docstring).
+    """
+    two_p = np.hypot(A + G, B - F)
+    two_q = np.hypot(A - G, B + F)
+    with np.errstate(divide="ignore"):
+        return np.log(0.5 * (two_p + two_q)), np.log(two_p * two_q)
+
+
+# ------------------------------------------------------------- the posterior
+class LinearAstrometryPosterior:
+    """Log density of ``(ln P, sqrt(e) cos M0, sqrt(e) sin M0)`` with A, B, F, G integrated out.
+
+    Parameters
+    ----------
+    space : ParameterSpace
+        A space for which :func:`applies` is true.
+    n_draws : int
+        Common random draws of the proposal-shaping factor ``h`` (module
+        docstring, choice 2); 0 gives ``h = 1`` (flat prior on A, B, F, G).
+    rng : numpy.random.Generator, optional
+        Source of those draws (default: a generator seeded with 0).
+
+    Notes
+    -----
+    Vectorised: ``post(theta)`` with ``theta`` of shape (n_sets, 3) returns
+    shape (n_sets,). ``n_sets`` counts parameter sets evaluated. Instances
+    pickle (plain arrays and the space only).
+    """
+
+    ndim = 3
+
+    def __init__(self, space: ParameterSpace, *, n_draws: int = 8, rng: np.random.Generator | None = None):
+        reasons = ineligible_reasons(space)
+        if reasons:
+            raise ValueError("the astrometry-only fast path does not apply: " + "; ".join(reasons))
+        self.space = space
+        comp = space.target.companions[0]
+        self.name = comp.name
+        self.names = [f"{self.name}.ln_period", f"{self.name}.sqrte_cosm", f"{self.name}.sqrte_sinm"]
+        pr = comp.priors
+        self.period_prior = pr["period"]
+        self.ecc_prior = pr["eccentricity"]
+        self.tp_prior = pr.get("periastron_time")
+        self.m0_prior = pr.get("mean_anomaly")
+        self.mass_prior = space.target.central_priors["mass"]
+        self.one_plus_z = space.one_plus_z
+        astro = comp.astrometry
+        self.t = np.asarray(astro.t_yr, dtype=float)
+        self.dt = self.t - space.t_ref
+        east = np.asarray(astro.value1, dtype=float)
+        north = np.asarray(astro.value2, dtype=float)
+        s1 = np.asarray(astro.err1, dtype=float)
+        s2 = np.asarray(astro.err2, dtype=float)
+        rho = np.asarray(astro.corr, dtype=float)
+        one_m = 1.0 - rho * rho
+        w11 = 1.0 / (s1 * s1 * one_m)  # east-east
+        w22 = 1.0 / (s2 * s2 * one_m)  # north-north
+        w12h = -rho / (s1 * s2 * one_m)  # half the cross coefficient of chi^2
+        self.const = float(-np.sum(LOG_2PI + np.log(s1 * s2) + 0.5 * np.log(one_m)))
+        self.chi2_0 = float(np.sum(w11 * east * east + 2.0 * w12h * east * north + w22 * north * north))
+        self.wmat = np.stack([w22, w12h, w11], axis=1)  # (T, 3)
+        u = w11 * east + w12h * north
+        v = w22 * north + w12h * east
+        self.vu = np.stack([v, u], axis=1)  # (T, 2)
+        rng = rng if rng is not None else np.random.default_rng(0)
+        self.n_draws = int(n_draws)
+        self.zeta = rng.standard_normal((4, max(self.n_draws, 0)))
+        self.d_draws = self.draw_distance(rng, max(self.n_draws, 0))
+        self.n_sets = 0
+
+    # ------------------------------------------------------------ variables
+    def physical(self, theta: NDArray[np.float64]) -> tuple[NDArray, NDArray, NDArray]:
+        """(period_yr (rest frame), ecc, m0 (rad)) of sampled vectors ``theta`` (n, 3)."""
+        theta = np.atleast_2d(theta)
+        x, y = theta[:, 1], theta[:, 2]
+        return np.exp(theta[:, 0]), x * x + y * y, np.arctan2(y, x)
+
+    @staticmethod
+    def to_theta(period_yr, ecc, m0) -> NDArray[np.float64]:
+        """Sampled vectors (n, 3) from rest-frame period (yr), eccentricity and M0 (rad)."""
+        s = np.sqrt(np.asarray(ecc, dtype=float))
+        cols = np.broadcast_arrays(np.log(period_yr), s * np.cos(m0), s * np.sin(m0))
+        return np.stack([np.atleast_1d(c) for c in cols], axis=1)
+
+    def log_prior(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Log prior density of the sampled variables (Jacobians of ln P and of the disc included)."""
+        theta = np.atleast_2d(theta)
+        period, ecc, m0 = self.physical(theta)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            lp = self.period_prior.log_pdf(period) + theta[:, 0]
+            lp = lp + np.where(ecc < 1.0, self.ecc_prior.log_pdf(ecc) + LN2, -np.inf)
+            if self.tp_prior is not None:
+                lp = lp + self.space._periastron_time_log_pdf(self.tp_prior, m0, period * self.one_plus_z)
+            else:
+                lp = lp + self.space._wrapped_log_pdf(self.m0_prior, m0)
+        lp[~np.isfinite(lp)] = -np.inf
+        return lp
+
+    def draw_distance(self, rng: np.random.Generator, n: int) -> NDArray[np.float64]:
+        """``n`` distances (pc) from the distance or parallax prior, positive values only."""
+        space = self.space
+        if space.distance_mode == "fixed":
+            return np.full(n, float(space.fixed_distance_pc))
+        prior = space.target.distance.parallax if space.distance_mode == "parallax" else space.target.distance.prior
+        out = np.empty(0)
+        for _ in range(1000):
+            if out.size >= n:
+                break
+            x = np.asarray(prior.sample(rng, 2 * (n - out.size) + 8), dtype=float)
+            out = np.concatenate([out, x[x > 0.0]])
+        if out.size < n:
+            raise ValueError("the distance prior has almost no positive support")
+        out = out[:n]
+        return 1000.0 / out if space.distance_mode == "parallax" else out
+
+    # ---------------------------------------------------------- linear solve
+    def solve(self, theta: NDArray[np.float64]) -> dict:
+        """Normal equations and their Cholesky factor for every row of ``theta``.
+
+        Returns
+        -------
+        dict
+            ``period``, ``ecc``, ``m0`` (n,); ``chol`` (the ten lower entries
+            of the Cholesky factor L of N, each (n,)); ``z`` (``L^-1 b``); ``beta_hat`` (n, 4) in mas, order
+            (A, B, F, G); ``chi2_min`` (n,); ``log_det`` (ln det N, n,);
+            ``ok`` (n,) False where the normal matrix is singular.
+        """
+        period, ecc, m0 = self.physical(theta)
+        ecc_c = np.clip(ecc, 0.0, 0.999999)
+        n_mean = TWO_PI / (period * self.one_plus_z)
+        mean = m0[:, None] + n_mean[:, None] * self.dt[None, :]
+        cos_e, sin_e = kepler_cos_sin(mean, ecc_c[:, None])
+        X = cos_e - ecc_c[:, None]
+        Y = np.sqrt(1.0 - ecc_c * ecc_c)[:, None] * sin_e
+        sxx = (X * X) @ self.wmat  # columns: w22, w12h, w11
+        sxy = (X * Y) @ self.wmat
+        syy = (Y * Y) @ self.wmat
+        bx = X @ self.vu  # (b_A, b_B)
+        by = Y @ self.vu  # (b_F, b_G)
+        # order A, B, F, G; lower triangle row by row
+        fac, ok = _cholesky4(sxx[:, 0], sxx[:, 1], sxx[:, 2], sxy[:, 0], sxy[:, 1], syy[:, 0],
+                             sxy[:, 1], sxy[:, 2], syy[:, 1], syy[:, 2])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            z = _forward4(fac, bx[:, 0], bx[:, 1], by[:, 0], by[:, 1])
+            beta = np.stack(_backward4(fac, *z), axis=1)
+            zz = z[0] * z[0] + z[1] * z[1] + z[2] * z[2] + z[3] * z[3]
+            log_det = 2.0 * np.log(fac[0] * fac[2] * fac[5] * fac[9])
+        return {"period": period, "ecc": ecc, "m0": m0, "chol": fac, "z": z, "beta_hat": beta,
+                "chi2_min": self.chi2_0 - zz, "log_det": log_det, "ok": ok}
+
+    def log_marginal_flat(self, theta: NDArray[np.float64], sol: dict | None = None) -> NDArray[np.float64]:
+        """ln of the likelihood integrated over (A, B, F, G) with a flat unit prior (module docstring)."""
+        sol = self.solve(theta) if sol is None else sol
+        out = self.const - 0.5 * sol["chi2_min"] + 2.0 * LOG_2PI - 0.5 * sol["log_det"]
+        return np.where(sol["ok"], out, -np.inf)
+
+    # ------------------------------------------------------------ weights
+    def log_g(self, beta: NDArray[np.float64], distance_pc, period_yr, *, clip_mass: bool = False):
+        """ln g (module docstring) from constants ``beta`` (..., 4) in mas, closed form.
+
+        ``distance_pc`` and ``period_yr`` broadcast against ``beta[..., 0]``.
+        With ``clip_mass`` the mass prior is evaluated at the mass clipped into
+        its support (the positive surrogate used for ``h``).
+        """
+        A, B, F, G = beta[..., 0], beta[..., 1], beta[..., 2], beta[..., 3]
+        log_a, log_a2_sin2_i = _log_a_and_pq(A, B, F, G)
+        log_mass = LOG_KEPLER + 3.0 * (log_a + np.log(distance_pc) - math.log(1000.0)) - 2.0 * np.log(period_yr)
+        mass = np.exp(log_mass)
+        if clip_mass:
+            low, high = self.mass_prior.support
+            mass = np.clip(mass, low, high)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            # -4 ln a - 2 ln sin i = -2 ln a - ln(a^2 sin^2 i)
+            out = self.mass_prior.log_pdf(mass) + log_mass + LOG_G_CONST - 2.0 * log_a - log_a2_sin2_i
+        return np.where(np.isnan(out), -np.inf, out)
+
+    def log_weight(self, mass_msun, a_mas, inc, omega, node) -> NDArray[np.float64]:
+        """ln g from Campbell elements: stated priors over the Jacobian (general form).
+
+        ``ln p_M(M) + ln(3 M / a) + ln p_i(i) + ln[p_w(w) p_W(W) + p_w(w + pi) p_W(W + pi)]
+        - ln(a^3 sin^3 i)``; angles in rad, ``a_mas`` in mas, mass in Msun.
+        """
+        pr = self.space.companion(self.name).priors
+        wrapped = self.space._wrapped_log_pdf
+        with np.errstate(divide="ignore", invalid="ignore"):
+            orient = np.logaddexp(wrapped(pr["arg_periastron"], omega) + wrapped(pr["ascending_node"], node),
+                                  wrapped(pr["arg_periastron"], omega + math.pi)
+                                  + wrapped(pr["ascending_node"], node + math.pi))
+            out = (self.mass_prior.log_pdf(mass_msun) + np.log(3.0 * mass_msun / a_mas)
+                   + pr["inclination"].log_pdf(inc) + orient - thiele_innes_jacobian_log(a_mas, inc))
+        return np.where(np.isnan(out), -np.inf, out)
+
+    def log_shape(self, sol: dict) -> NDArray[np.float64]:
+        """ln h: the mean of g over the common draws (module docstring, choice 2)."""
+        n = sol["period"].shape[0]
+        if self.n_draws <= 0:
+            return np.zeros(n)
+        fac = tuple(f[:, None] for f in sol["chol"])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            dev = _backward4(fac, *(self.zeta[j][None, :] for j in range(4)))
+        beta = sol["beta_hat"][:, None, :] + np.stack(dev, axis=-1)  # (n, K, 4)
+        lg = self.log_g(beta, self.d_draws[None, :], sol["period"][:, None], clip_mass=True)
+        top = np.max(lg, axis=1)
+        safe = np.where(np.isfinite(top), top, 0.0)
+        with np.errstate(divide="ignore"):
+            return safe + np.log(np.mean(np.exp(lg - safe[:, None]), axis=1))
+
+    # ------------------------------------------------------------ the call
+    def __call__(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+        theta = np.atleast_2d(theta)
+        lp = self.log_prior(theta)
+        good = np.isfinite(lp)
+        if good.any():
+            self.n_sets += int(good.sum())
+            sol = self.solve(theta[good])
+            lp[good] += self.log_marginal_flat(theta[good], sol) + self.log_shape(sol)
+        lp[~np.isfinite(lp)] = -np.inf
+        return lp
+
+
+# ---------------------------------------------------------------- expansion
+def expand(post: LinearAstrometryPosterior, theta_lin: NDArray[np.float64],
+           rng: np.random.Generator) -> tuple[NDArray[np.float64], NDArray[np.float64], dict]:
+    """All elements for 3-D samples: draw A, B, F, G and the distance; importance weights.
+
+    Parameters
+    ----------
+    post : LinearAstrometryPosterior
+        The posterior the samples were drawn from (its ``h`` enters the weights).
+    theta_lin : ndarray, shape (n, 3)
+    rng : numpy.random.Generator
+
+    Returns
+    -------
+    theta_full : ndarray, shape (n, space.ndim)
+        The draws in the full :class:`ParameterSpace` layout (angles not yet
+        put in their windows: call ``space.set_centres`` / ``space.wrap_angles``).
+    log_weights : ndarray, shape (n,)
+        ``ln g - ln h``; ``-inf`` outside the mass prior or where the normal
+        matrix is singular.
+    info : dict
+        ``mass_msun``, ``a_mas``, ``inclination`` (rad), ``beta`` (n, 4).
+    """
+    theta_lin = np.atleast_2d(theta_lin)
+    n = theta_lin.shape[0]
+    sol = post.solve(theta_lin)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        dev = _backward4(sol["chol"], *rng.standard_normal((4, n)))
+    beta = sol["beta_hat"] + np.stack(dev, axis=1)
+    dist = post.draw_distance(rng, n)
+    a_mas, inc, omega, node = thiele_innes_to_campbell(beta[:, 0], beta[:, 1], beta[:, 2], beta[:, 3])
+    mass = kepler_mass(a_mas * dist / 1000.0, sol["period"])
+    log_w = post.log_weight(mass, a_mas, inc, omega, node) - post.log_shape(sol)
+    log_w = np.where(sol["ok"], log_w, -np.inf)
+    c = post.name
+    values = {"mass_msun": mass, "distance_pc": dist, f"{c}.period_yr": sol["period"], f"{c}.ecc": sol["ecc"],
+              f"{c}.omega": omega, f"{c}.node": node, f"{c}.cos_i": np.cos(inc), f"{c}.m0": sol["m0"]}
+    theta_full = post.space.pack(values)
+    return theta_full, log_w, {"mass_msun": mass, "a_mas": a_mas, "inclination": inc, "beta": beta}
+
+
+def kish_ess(log_weights: NDArray[np.float64]) -> float:
+    """Kish's effective sample size ``(sum w)^2 / sum w^2`` (Kish 1965, Survey Sampling)."""
+    lw = np.asarray(log_weights, dtype=float)
+    if not np.isfinite(lw).any():
+        return 0.0
+    w = np.exp(lw - np.max(lw[np.isfinite(lw)]))
+    w[~np.isfinite(w)] = 0.0
+    return float(w.sum() ** 2 / np.sum(w * w))
+
+
+def systematic_resample(log_weights: NDArray[np.float64], rng: np.random.Generator,
+                        n_out: int | None = None) -> NDArray[np.int64]:
+    """Indices of an equally weighted resample by systematic resampling (Kitagawa 1996).
+
+    Parameters
+    ----------
+    log_weights : ndarray, shape (n,)
+        Unnormalised log weights (``-inf`` allowed).
+    rng : numpy.random.Generator
+        One uniform draw is used.
+    n_out : int, optional
+        Resample size (default n).
+
+    Returns
+    -------
+    ndarray of int, shape (n_out,)
+        Sorted indices into the weighted sample.
+
+    Raises
+    ------
+    ValueError
+        When no weight is positive.
+    """
+    lw = np.asarray(log_weights, dtype=float)
+    n_out = lw.size if n_out is None else int(n_out)
+    finite = np.isfinite(lw)
+    if not finite.any():
+        raise ValueError("no draw has a positive importance weight")
+    w = np.where(finite, np.exp(lw - np.max(lw[finite])), 0.0)
+    cdf = np.cumsum(w / w.sum())
+    u = (rng.random() + np.arange(n_out)) / n_out
+    return np.minimum(np.searchsorted(cdf, u, side="right"), lw.size - 1)
+
+
+# ----------------------------------------------------------- initialisation
+def initialise_linear(post: LinearAstrometryPosterior, n_walkers: int, rng: np.random.Generator, *,
+                      max_periods: int = 3000, max_evals: int = 2000):
+    """Grid search in (P, e, M0), polish, and scatter walkers, on the 3-D posterior.
+
+    Same method as :func:`orbitmass.initialise.initialise_walkers` (its period
+    grid, optimiser and Laplace covariance), with the linear constants solved
+    exactly at every grid point.
+
+    Returns
+    -------
+    orbitmass.initialise.InitialSolution
+        Walkers, best point and value in the 3-D variables, competing modes.
+    """
+    from orbitmass.initialise import InitialSolution, _hessian_cov, _period_grid, _polish
+
+    lo, hi = post.ecc_prior.support
+    eccs = [e for e in (0.0, 0.2, 0.4, 0.6, 0.75, 0.85, 0.92, 0.96) if lo <= e <= min(hi, 0.97)]
+    if not eccs:
+        eccs = [0.5 * (lo + min(hi, 0.97))]
+    periods = _period_grid(post.t, post.period_prior, post.one_plus_z, max_periods) / post.one_plus_z
+    m0s = np.linspace(0.0, TWO_PI, 12, endpoint=False)
+    rows = []
+    for e in eccs:
+        ms = m0s[:1] if e == 0.0 else m0s
+        pp, mm = np.meshgrid(periods, ms, indexing="ij")
+        rows.append(post.to_theta(pp.ravel(), e, mm.ravel()))
+    grid = np.concatenate(rows)
+    chunk = max(1, 400_000 // max(post.t.size, 1))
+    vals = np.concatenate([post(grid[k: k + chunk]) for k in range(0, grid.shape[0], chunk)])
+    order = np.argsort(-np.where(np.isfinite(vals), vals, -np.inf))
+    cands: list[NDArray] = []
+    for idx in order:
+        if not np.isfinite(vals[idx]):
+            break
+        if any(abs(grid[idx, 0] - c[0]) < 0.03 for c in cands):
+            continue
+        cands.append(grid[idx])
+        if len(cands) >= 4:
+            break
+    if not cands:
+        raise ValueError("no point of the (P, e, M0) grid has a finite posterior")
+    polished = sorted((_polish(post, c, max_evals) for c in cands), key=lambda r: -r[1])
+    best, best_val = polished[0]
+    others = [{"delta_log_posterior": float(best_val - v), "period_yr": {post.name: float(np.exp(x[0]))}}
+              for x, v in polished[1:] if best_val - v < 10.0 and abs(x[0] - best[0]) > 0.02]
+    cov = _hessian_cov(post, best)
+    walkers: list[NDArray] = []
+    scale = 1.0
+    for _ in range(50):
+        draws = rng.multivariate_normal(best, cov * scale, size=4 * n_walkers, method="eigh")
+        lp = post(draws)
+        keep = draws[np.isfinite(lp) & (lp > best_val - 10.0 * post.ndim)]
+        walkers.extend(keep[: n_walkers - len(walkers)])
+        if len(walkers) >= n_walkers:
+            break
+        if keep.shape[0] < n_walkers // 4:
+            scale *= 0.3
+    if len(walkers) < n_walkers:
+        walkers.extend(best + 1e-6 * rng.standard_normal((n_walkers - len(walkers), post.ndim)))
+    log.info("linear path initialised at log density %.3f (%d grid points, %d competing modes)",
+             best_val, grid.shape[0], len(others))
+    return InitialSolution(walkers=np.array(walkers[:n_walkers]), best=best, best_log_post=float(best_val),
+                           other_modes=others, n_grid=int(grid.shape[0]))
+
+
+# ----------------------------------------------------------------- the fit
+def _chain_diagnostics(kept: NDArray[np.float64]) -> tuple[NDArray, NDArray, NDArray]:
+    """tau, ESS and split R-hat per variable of a kept chain (n_steps, n_walkers, n_dim), as the sampler does."""
+    tau = diagnostics.integrated_time(kept)
+    step = max(1, int(float(np.max(tau)) / 4))
+    sub = kept[::step]
+    ess = np.minimum(diagnostics.bulk_ess(sub) * step, kept.shape[0] * kept.shape[1] / tau)
+    return tau, ess, diagnostics.split_rhat(sub)
+
+
+def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_walkers: int | None = None,
+               max_periods: int = 3000, n_draws: int = 8, min_kish_fraction: float = 0.1,
+               stop_flag=None) -> tuple[NDArray[np.float64], NDArray[np.float64], dict]:
+    """Sample an astrometry-only posterior through the 3-D fast path.
+
+    Parameters
+    ----------
+    space : ParameterSpace
+        A space for which :func:`applies` is true; its angle windows are set here.
+    rng : numpy.random.Generator
+        Every random choice (common draws, initialisation, emcee seed,
+        expansion draws, resampling) comes from it.
+    options : orbitmass.sampler.SamplerOptions
+        Convergence thresholds and step caps, applied to the 3-D chain.
+    n_walkers : int, optional
+        Walkers of the 3-D run (default ``options.n_walkers`` or 64).
+    max_periods : int
+        Most period grid points in the initial search.
+    n_draws : int
+        Common draws of the proposal-shaping factor ``h``.
+    min_kish_fraction : float
+        Below this Kish ESS / N the result says ``fallback_recommended``.
+    stop_flag : callable, optional
+        Passed to :func:`orbitmass.sampler.run_sampler`.
+
+    Returns
+    -------
+    theta_full : ndarray, shape (n, space.ndim)
+        Equally weighted posterior samples in the full layout, angles in their windows.
+    log_post_full : ndarray, shape (n,)
+        The full log posterior (:class:`~orbitmass.likelihood.LogPosterior`) at them.
+    run_info : dict
+        ``run``: a :class:`~orbitmass.sampler.SamplerRun` in the full layout
+        (the 3-D chain expanded at the stride ``thin_3d`` of the retained
+        samples, so its ``thin`` is 1 and its ``burn`` counts stored rows; the
+        log probabilities are those of the 3-D target; ``tau`` in 3-D steps
+        and R-hat of the expanded chain; ESS of the expanded chain times
+        ``Kish / N``; ``converged`` when the 3-D run converged and every such
+        ESS reaches ``options.min_ess``). ``init``: the
+        :class:`~orbitmass.initialise.InitialSolution` of the 3-D search.
+        ``run_3d``: the 3-D :class:`SamplerRun`. ``posterior``: the
+        :class:`LinearAstrometryPosterior`. ``diagnostics``: a JSON-ready dict
+        for ``summary.json`` (Kish ESS and fraction, 3-D tau/ESS/R-hat, step
+        counts, timings, ``fallback_recommended``).
+    """
+    from orbitmass.likelihood import LogPosterior
+    from orbitmass.sampler import SamplerRun, run_sampler
+
+    t_start = time.perf_counter()
+    post = LinearAstrometryPosterior(space, n_draws=n_draws, rng=rng)
+    walkers = int(n_walkers or options.n_walkers or 64)
+    walkers += walkers % 2
+    init = initialise_linear(post, walkers, rng, max_periods=max_periods)
+    t_init = time.perf_counter() - t_start
+    run3 = run_sampler(post, init.walkers, seed=int(rng.integers(2**31 - 1)), options=options,
+                       stop_flag=stop_flag)
+    t_exp = time.perf_counter()
+    n_steps, n_w, _ = run3.chain.shape
+    # the chain is expanded at the stride of the retained samples, aligned so
+    # that rows burn_rows: are exactly run3.retained()
+    thin = int(run3.thin)
+    offset, burn_rows = run3.burn % thin, run3.burn // thin
+    sub3 = run3.chain[offset::thin]
+    n_rows = sub3.shape[0]
+    theta_all, log_w_all, _ = expand(post, sub3.reshape(-1, 3), rng)
+    kept = slice(burn_rows * n_w, None)
+    lw = log_w_all[kept]
+    ok = np.isfinite(lw)
+    space.set_centres(theta_all[kept][ok] if ok.any() else theta_all[kept])
+    theta_all = space.wrap_angles(theta_all)
+    theta_kept = theta_all[kept]
+    kish = kish_ess(lw)
+    n_kept = int(lw.size)
+    frac = kish / max(n_kept, 1)
+    pick = systematic_resample(lw, rng)
+    uniq, inverse = np.unique(pick, return_inverse=True)
+    lp_unique = LogPosterior(space)(theta_kept[uniq])
+    theta_full = theta_kept[pick]
+    log_post_full = lp_unique[inverse]
+    chain_full = theta_all.reshape(n_rows, n_w, space.ndim)
+    kept_chain = chain_full[burn_rows:]
+    if kept_chain.shape[0] >= 8:
+        tau, ess_chain, rhat = _chain_diagnostics(kept_chain)
+        tau = tau * thin  # in steps of the 3-D chain
+    else:
+        tau, ess_chain, rhat = (np.full(space.ndim, np.nan), np.zeros(space.ndim), np.full(space.ndim, np.nan))
+    ess = ess_chain * frac
+    converged = bool(run3.converged and np.all(ess >= options.min_ess))
+    weights_poor = frac < min_kish_fraction or (run3.converged and not converged)
+    t_expand = time.perf_counter() - t_exp
+    run = SamplerRun(chain=chain_full, log_prob=run3.log_prob[offset::thin],
+                     acceptance_fraction=run3.acceptance_fraction, burn=burn_rows, thin=1, tau=tau, ess=ess,
+                     rhat=rhat, converged=converged, n_evaluations=run3.n_evaluations,
+                     sampling_seconds=run3.sampling_seconds + t_expand, interrupted=run3.interrupted)
+    mass_idx = space.index["ln_mass"]
+    diag = {
+        "method": "A, B, F, G marginalised analytically (Lucy 2014, A&A 563, A126); "
+                  "importance-weighted to the stated priors",
+        "n_draws_shape": int(n_draws),
+        "n_walkers_3d": int(n_w),
+        "n_steps_3d": int(n_steps),
+        "burn_3d": int(run3.burn),
+        "thin_3d": thin,
+        "converged_3d": bool(run3.converged),
+        "tau_3d": {k: float(v) for k, v in zip(post.names, run3.tau)},
+        "ess_3d": {k: float(v) for k, v in zip(post.names, run3.ess)},
+        "rhat_3d": {k: float(v) for k, v in zip(post.names, run3.rhat)},
+        "n_weighted": n_kept,
+        "kish_ess": float(kish),
+        "kish_fraction": float(frac),
+        "max_weight_fraction": float(np.max(np.exp(lw - np.max(lw[ok])) / np.sum(np.exp(lw[ok] - np.max(lw[ok])))))
+        if ok.any() else 1.0,
+        "n_unique_resampled": int(uniq.size),
+        "ess_mass_chain_unweighted": float(ess_chain[mass_idx]),
+        "ess_mass": float(ess[mass_idx]),
+        "ess_note": "ESS = ESS of the expanded (unweighted) chain x Kish ESS / N",
+        "init_seconds": float(t_init),
+        "sampling_seconds_3d": float(run3.sampling_seconds),
+        "expand_seconds": float(t_expand),
+        "n_evaluations_3d": int(post.n_sets),
+        "fallback_recommended": bool(weights_poor),
+    }
+    log.info("linear path: %d steps x %d walkers, Kish ESS %.0f of %d (%.2f), mass ESS %.0f",
+             n_steps, n_w, kish, n_kept, frac, diag["ess_mass"])
+    return theta_full, log_post_full, {"run": run, "init": init, "run_3d": run3, "posterior": post,
+                                       "diagnostics": diag}
