@@ -54,9 +54,8 @@ from pathlib import Path
 import emcee
 import numpy as np
 
-from orbitmass.physics import semimajor_axis_au
 from orbitmass.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
-from orbitmass.units import KMS_PER_AU_PER_YR
+from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
 
 __all__ = [
     "PROBLEMS",
@@ -307,6 +306,12 @@ class BaselinePosterior:
         if f"{name}.rv" in problem.files:
             # columns: epoch, velocity, error
             self.rv = np.loadtxt(problem.files[f"{name}.rv"], delimiter=",", skiprows=1, ndmin=2)
+        # normalisation constants of the Gaussians, computed once
+        self.norm = 0.0
+        if self.pos is not None:
+            self.norm -= float(np.sum(np.log(TWO_PI * self.pos[:, 3] * self.pos[:, 4])))
+        if self.rv is not None:
+            self.norm -= float(np.sum(np.log(math.sqrt(TWO_PI) * self.rv[:, 2])))
         self.n_calls = 0
 
     def log_prior(self, p: np.ndarray) -> float:
@@ -325,12 +330,12 @@ class BaselinePosterior:
         ln_m, dist, ln_p, ecc, cos_i, omega, node, m0 = p
         distance_pc = 1000.0 / dist if self.mode == "parallax-normal" else dist
         mass, period = math.exp(ln_m), math.exp(ln_p)
-        a_au = float(semimajor_axis_au(mass, period))
+        a_au = (GM_SUN_AU3_PER_YR2 * mass * period * period / (4.0 * math.pi**2)) ** (1.0 / 3.0)  # Kepler III
         a_mas = a_au / distance_pc * 1000.0
         sin_i = math.sqrt(max(0.0, 1.0 - cos_i * cos_i))
         cw, sw, cn, sn = math.cos(omega), math.sin(omega), math.cos(node), math.sin(node)
         root = math.sqrt(1.0 - ecc * ecc)
-        ll = 0.0
+        ll = self.norm
         if self.pos is not None:
             t, east, north, s_e, s_n = self.pos.T
             big_e = _kepler_newton(m0 + TWO_PI * (t - self.t_ref) / period, ecc)
@@ -343,7 +348,7 @@ class BaselinePosterior:
             G = a_mas * (-sw * sn + cw * cn * cos_i)
             r_e = (east - (B * x + G * y)) / s_e
             r_n = (north - (A * x + F * y)) / s_n
-            ll += -0.5 * np.sum(r_e * r_e + r_n * r_n) - np.sum(np.log(TWO_PI * s_e * s_n))
+            ll -= 0.5 * float(np.sum(r_e * r_e + r_n * r_n))
         if self.rv is not None:
             t, v, s_v = self.rv.T
             big_e = _kepler_newton(m0 + TWO_PI * (t - self.t_ref) / period, ecc)
@@ -353,8 +358,8 @@ class BaselinePosterior:
             k_kms = TWO_PI * a_au * sin_i / (period * root) * KMS_PER_AU_PER_YR
             model = k_kms * (cw * cos_nu - sw * sin_nu + ecc * cw)
             r_v = (v - model) / s_v
-            ll += -0.5 * np.sum(r_v * r_v) - np.sum(np.log(math.sqrt(TWO_PI) * s_v))
-        return float(ll)
+            ll -= 0.5 * float(np.sum(r_v * r_v))
+        return ll
 
     def __call__(self, p: np.ndarray) -> float:
         self.n_calls += 1
@@ -475,9 +480,11 @@ def run_orbitmass(problem: Problem, *, seed: int, max_steps: int = 20000) -> dic
     kept = res.chain[res.burn:, :, mass_idx]
     with _quiet_autocorr():
         tau = float(emcee.autocorr.integrated_time(kept[:, :, None], quiet=True)[0])
-    ess_emcee = kept.shape[0] * kept.shape[1] / tau
+    path, kish = _fast_path(diag)
+    # an importance-weighted chain (fast path) carries Kish ESS / N of its draws' information
+    ess_emcee = kept.shape[0] * kept.shape[1] / tau * (kish if kish is not None else 1.0)
     wall = float(diag["wall_seconds"])
-    out = {
+    return {
         "converged": bool(diag["converged"]),
         "hit_cap": not bool(diag["converged"]),
         "wall_seconds": wall,
@@ -494,12 +501,24 @@ def run_orbitmass(problem: Problem, *, seed: int, max_steps: int = 20000) -> dic
         "evaluations_per_ess_orbitmass": diag["n_evaluations"] / float(diag["ess_mass"]),
         "acceptance_fraction": float(diag["acceptance_fraction"]),
         "mass_median_msun": float(fit.summary["derived"]["mass_msun"]["median"]),
+        "path": path,
+        "kish_fraction": 1.0 if kish is None else kish,
     }
-    # which likelihood path ran, when the diagnostics say so (e.g. an analytic linear marginalisation)
-    for key in ("likelihood_path", "path", "linear", "fast_path", "method"):
-        if key in diag:
-            out["path"] = diag[key]
-    return out
+
+
+def _fast_path(diag: dict) -> tuple[str, float | None]:
+    """Which likelihood path a fit ran, as its diagnostics say, and the Kish ESS fraction if weighted.
+
+    The analytic Thiele-Innes path (:mod:`orbitmass.linear`) reports a
+    ``method`` and a ``kish_fraction``, at the top level of the diagnostics or
+    in a nested block; without them the fit ran the full posterior.
+    """
+    blocks = [diag] + [v for v in diag.values() if isinstance(v, dict)]
+    for block in blocks:
+        if "kish_fraction" in block or "method" in block:
+            kish = block.get("kish_fraction")
+            return str(block.get("method", "fast path")), (float(kish) if kish is not None else None)
+    return "full posterior (all elements sampled)", None
 
 
 def _median_run(runs: list[dict]) -> dict:
@@ -637,8 +656,7 @@ def table(result: dict) -> str:
                 f"{r['mass_median_msun']:>11.4g} {'yes' if r['hit_cap'] else 'no':>5}")
         lines.append(f"{'':<12} ratio ESS/s {res['ratio_ess_per_s']:.1f}x, eval/ESS "
                      f"{res['ratio_evaluations_per_ess']:.1f}x fewer, orbitmass own ESS "
-                     f"{res['orbitmass']['ess_mass_orbitmass']:.0f}"
-                     + (f", path {res['orbitmass']['path']}" if "path" in res["orbitmass"] else ""))
+                     f"{res['orbitmass']['ess_mass_orbitmass']:.0f}; {res['orbitmass']['path']}")
     return "\n".join(lines)
 
 
