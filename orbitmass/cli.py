@@ -80,6 +80,10 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Re-render every figure, table and report page of RUN_DIR from its saved "
                                    "posterior, without refitting.")
     p.add_argument("run_dir", metavar="RUN_DIR", help="a run folder written by 'orbitmass fit'")
+
+    from orbitmass.batch import add_batch_parser
+
+    add_batch_parser(sub)
     return parser
 
 
@@ -169,7 +173,13 @@ def _cmd_report(args) -> int:
     return EXIT_OK
 
 
-COMMANDS = {"fit": _cmd_fit, "demo": _cmd_demo, "report": _cmd_report}
+def _cmd_batch(args) -> int:
+    from orbitmass.batch import cmd_batch
+
+    return cmd_batch(args)
+
+
+COMMANDS = {"fit": _cmd_fit, "demo": _cmd_demo, "report": _cmd_report, "batch": _cmd_batch}
 
 
 def main(argv: list[str] | None = None) -> int:

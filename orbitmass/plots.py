@@ -767,10 +767,15 @@ def trace_figure(
     names: Sequence[str] | None = None,
     fig: Any = None,
     show_log_prob: bool = True,
-    max_points: int = 4000,
+    max_points: int = 600,
+    max_walkers: int = 16,
     trace_kwargs: Mapping[str, Any] | None = None,
 ) -> Any:
     """Walker traces of the sampled variables, burn-in shaded (a diagnostic figure).
+
+    The walker lines are rasterised inside the vector PDF (a chain has far
+    more points than a page can show), and at most ``max_walkers`` evenly
+    chosen walkers and ``max_points`` steps per walker are drawn.
 
     Parameters
     ----------
@@ -787,6 +792,8 @@ def trace_figure(
         Add a bottom panel with the log posterior of every walker.
     max_points : int
         Steps plotted per walker at most (the chain is strided beyond that).
+    max_walkers : int
+        Walkers plotted at most (evenly spaced through the ensemble).
     trace_kwargs : dict, optional
         Passed to ``Axes.plot`` for the walker lines.
 
@@ -799,6 +806,7 @@ def trace_figure(
     InputError
         For an unknown variable name.
     """
+    from matplotlib.collections import LineCollection
     from matplotlib.figure import Figure
 
     all_names = list(results.space.names)
@@ -813,14 +821,16 @@ def trace_figure(
         logger.info("trace figure shows %d of %d sampled variables", len(chosen), len(all_names))
     chain = np.asarray(results.chain)
     n_steps = chain.shape[0]
+    walkers = np.unique(np.linspace(0, chain.shape[1] - 1, min(max_walkers, chain.shape[1])).astype(int))
+    chain = chain[:, walkers]
     stride = max(1, int(math.ceil(n_steps / max_points)))
     steps = np.arange(0, n_steps, stride)
-    log_prob = np.asarray(results.log_prob) if show_log_prob else None
+    log_prob = np.asarray(results.log_prob)[:, walkers] if show_log_prob else None
     panels = [(n, chain[::stride, :, all_names.index(n)], _trace_label(n)) for n in chosen]
     if log_prob is not None and log_prob.ndim == 2 and log_prob.shape[0] == n_steps:
         lp = log_prob[::stride]
         panels.append(("log_prob", np.where(np.isfinite(lp), lp, np.nan), r"$\ln p$"))
-    kw = {"color": PALETTE["blue"], "lw": 0.4, "alpha": 0.3}
+    kw = {"color": PALETTE["blue"], "lw": 0.4, "alpha": 0.3, "rasterized": True}
     kw.update(trace_kwargs or {})
     with style_context():
         if fig is None:
@@ -831,7 +841,13 @@ def trace_figure(
         for ax, (_name, y, label) in zip(axes, panels, strict=True):
             if results.burn > 0:
                 ax.axvspan(0, results.burn, color="0.88", lw=0, zorder=0)
-            ax.plot(steps, y, **kw)
+            ax.add_collection(LineCollection(np.stack([np.broadcast_to(steps[:, None], y.shape), y], axis=-1)
+                                             .transpose(1, 0, 2), **{("linewidths" if k == "lw" else k): v
+                                                                     for k, v in kw.items()}))
+            finite = y[np.isfinite(y)]
+            if finite.size:
+                pad = 0.05 * (finite.max() - finite.min() or 1.0)
+                ax.set_ylim(finite.min() - pad, finite.max() + pad)
             ax.set_ylabel(label, rotation=0, ha="right", va="center", fontsize=8)
             ax.tick_params(labelsize=7)
             ax.set_xlim(0, max(n_steps - 1, 1))

@@ -239,10 +239,11 @@ def write_products(results, out_dir: Path) -> Path:
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     figures = {}
-    for name, func in (("corner", plots.corner_figure), ("orbit", plots.orbit_figure),
-                       ("trace", plots.trace_figure)):
+    # the trace figure is a diagnostic of many noisy lines: a lower resolution keeps it light
+    for name, func, dpi in (("corner", plots.corner_figure, 200), ("orbit", plots.orbit_figure, 200),
+                            ("trace", plots.trace_figure, 110)):
         fig = func(results)
-        save_figure(fig, out_dir / name)
+        save_figure(fig, out_dir / name, dpi=dpi)
         plt.close(fig)
         figures[name] = f"{name}.png"
     reports.write_tables(results, out_dir)
