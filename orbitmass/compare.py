@@ -105,7 +105,8 @@ every quantile block has the keys ``median``, ``q16``, ``q84``, ``q2.5``,
 Other files: ``comparison.md`` (the same in prose and tables),
 ``comparison.png``/``.pdf`` (mass posteriors with 68/95 % intervals and the
 references), ``enclosed_mass.png``/``.pdf`` (mass against radius with the
-joint fit as a band) and, optionally, ``combined/`` (the joint run folder).
+joint fit as a band; only when some run carries companion radii, i.e. comes
+from a fit) and, optionally, ``combined/`` (the joint run folder).
 """
 
 from __future__ import annotations
@@ -347,7 +348,7 @@ def parse_reference(text: str | Reference, *, label: str | None = None, key: str
 
 
 # ============================================================================ posteriors
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class MassPosterior:
     """Mass samples of one run, and the radii each companion probes.
 
@@ -886,7 +887,12 @@ class Comparison:
         k, scale = self._scale()
         lo = min(d.quantiles()["q2.5"] for _, d, _ in rows)
         hi = max(d.quantiles()["q97.5"] for _, d, _ in rows)
-        grid = np.linspace(lo - 0.25 * (hi - lo), hi + 0.25 * (hi - lo), 600)
+        log_x = lo > 0 and hi / lo > 10  # masses spanning decades: log axis
+        if log_x:
+            k, scale = 0, 1.0
+            grid = np.geomspace(lo / 1.5, hi * 1.5, 1200)
+        else:
+            grid = np.linspace(lo - 0.25 * (hi - lo), hi + 0.25 * (hi - lo), 600)
         n = len(rows)
         with style_context():
             fig = Figure(figsize=(SINGLE_COLUMN_IN, 1.7 + 0.22 * n))
@@ -921,6 +927,8 @@ class Comparison:
             ax_i.set_ylim(-0.6, n - 0.4)
             ax_i.set_xlabel(f"total mass $M$ [{_mass_unit(k)}]")
             ax_i.set_xlim(grid[0] / scale, grid[-1] / scale)
+            if log_x:
+                ax_i.set_xscale("log")
         return fig
 
     def enclosed_mass_figure(self):
@@ -980,8 +988,10 @@ class Comparison:
             handles.append(Line2D([], [], color=grey, marker="o", mfc="white", lw=0,
                                   label=r"at periastron $r_\mathrm{p}$"))
             if len(handles) == 2 + (joint is not None):
+                ax.set_axis_off()
                 ax.text(0.5, 0.5, "no companion radii in these runs", transform=ax.transAxes,
                         ha="center")
+                return fig
             ax.margins(x=0.12)
             ax.set_xlabel("radius $r$ [au]")
             ax.set_ylabel(f"enclosed mass $M(<r)$ [{_mass_unit(k)}]")
@@ -1143,10 +1153,10 @@ class Comparison:
                 save_run(self.combined.results, staging / "combined")
                 run_folder = "combined"
             figures = {}
-            for name, make in (
-                ("comparison", self.figure),
-                ("enclosed_mass", self.enclosed_mass_figure),
-            ):
+            makers = [("comparison", self.figure)]
+            if any(r.radii for r in self.runs):
+                makers.append(("enclosed_mass", self.enclosed_mass_figure))
+            for name, make in makers:
                 save_figure(make(), staging / name)
                 figures[name] = f"{name}.png"
             write_atomic(

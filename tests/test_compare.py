@@ -327,6 +327,19 @@ def test_figures_have_units_and_log_radius_axis(rng):
     assert top.get_xlim() == pytest.approx(tuple(x / rs_au for x in ax.get_xlim()), rel=1e-6)
 
 
+def test_plain_samples_over_decades(rng, tmp_path):
+    dwarf = MassPosterior.from_samples("dwarf", rng.lognormal(math.log(3e5), 0.1, 20000))
+    giant = MassPosterior.from_samples("giant", rng.lognormal(math.log(4e8), 0.05, 20000))
+    cmp = compare([dwarf, giant], seed=2)
+    assert cmp.figure().axes[1].get_xscale() == "log"  # masses three decades apart
+    out = cmp.write(tmp_path / "c")
+    # no companion radii in plain samples: no enclosed-mass figure, and none linked
+    assert sorted(p.name for p in out.iterdir()) == ["comparison.json", "comparison.md", "comparison.pdf",
+                                                     "comparison.png"]
+    assert "enclosed_mass" not in (out / "comparison.md").read_text(encoding="utf-8")
+    assert cmp.pairs[0].verdict == "tension" and cmp.pairs[0].tension_is_lower_bound
+
+
 def test_compare_needs_something_to_compare(rng):
     one = MassPosterior.from_samples("only", gaussian(rng, 1.0, 0.1))
     with pytest.raises(InputError, match="nothing to compare"):
