@@ -82,7 +82,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("run_dir", metavar="RUN_DIR", help="a run folder written by 'orbitmass fit'")
 
     from orbitmass.batch import add_batch_parser
+    from orbitmass.compare import add_compare_parser
 
+    add_compare_parser(sub)
     add_batch_parser(sub)
     return parser
 
@@ -161,6 +163,11 @@ def _cmd_demo(args) -> int:
         print(f"  converged: {'yes' if d['converged'] else 'NO'}; ESS of the mass {d['ess_mass']:.0f}; "
               f"{d['wall_seconds']:.1f} s")
         print(f"  report: {res.run_dir / 'report.md'}  (also report.html)")
+    cmp_dir = Path(args.out) / "comparison-demo" / "comparison"
+    if (cmp_dir / "comparison.md").is_file():
+        print(f"\ncomparison of two invented teams' datasets and their joint refit: {cmp_dir / 'comparison.md'}")
+    print("\njoint fit of two stars on a drifting frame (example, not run by the demo):\n"
+          f"  orbitmass fit {Path(args.out) / 'data' / 'quillon-joint' / 'target.toml'} --out quillon-joint-run")
     return EXIT_OK
 
 
@@ -179,7 +186,14 @@ def _cmd_batch(args) -> int:
     return cmd_batch(args)
 
 
-COMMANDS = {"fit": _cmd_fit, "demo": _cmd_demo, "report": _cmd_report, "batch": _cmd_batch}
+def _cmd_compare(args) -> int:
+    from orbitmass.compare import cmd_compare
+
+    return cmd_compare(args)
+
+
+COMMANDS = {"fit": _cmd_fit, "demo": _cmd_demo, "report": _cmd_report, "batch": _cmd_batch,
+            "compare": _cmd_compare}
 
 
 def main(argv: list[str] | None = None) -> int:

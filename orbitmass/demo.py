@@ -205,8 +205,13 @@ class DemoResult:
 
 
 def run_demo(out_dir: Path, *, seed: int = 1, overwrite: bool = False, progress: bool | None = None,
-             max_steps: int = 20000) -> list[DemoResult]:
-    """Write the invented data into ``out_dir/data``, fit each scenario, save runs into ``out_dir/runs``."""
+             max_steps: int = 20000, compare: bool = True) -> list[DemoResult]:
+    """Write the invented data into ``out_dir/data``, fit each scenario, save runs into ``out_dir/runs``.
+
+    With ``compare``, also the comparison demo of :func:`orbitmass.compare.demo_comparison`
+    (two teams' datasets of the Quillon black hole, compared and fitted jointly) into
+    ``out_dir/comparison-demo``.
+    """
     from orbitmass.exceptions import RunFolderError
     from orbitmass.fit import Fit
 
@@ -216,8 +221,15 @@ def run_demo(out_dir: Path, *, seed: int = 1, overwrite: bool = False, progress:
     targets = write_scenarios(out_dir / "data")
     results = []
     for name, path in targets.items():
+        if name == "quillon-joint":
+            continue  # an example file for the README; the demo's joint fit is the comparison's refit
         fit = Fit(seed=seed, progress=progress, max_steps=max_steps).fit(path)
         run_dir = fit.save(out_dir / "runs" / name, overwrite=True)
         truth = SCENARIOS["quillon" if name == "quillon-joint" else name]
         results.append(DemoResult(name=name, run_dir=run_dir, truth=truth, summary=fit.summary))
+    if compare:
+        from orbitmass.compare import demo_comparison
+
+        demo_comparison(out_dir / "comparison-demo", seed=seed, overwrite=True, progress=progress,
+                        max_steps=max_steps)
     return results
