@@ -374,12 +374,15 @@ def plot_ranks(result: dict, path_without_suffix: str | Path) -> list[Path]:
             n, n_bins = res["n"], res["n_bins"]
             edges = np.linspace(0, n_draws + 1, n_bins + 1)
             lo, hi = stats.binom.ppf([0.005, 0.995], n, 1.0 / n_bins)
-            ax.axhspan(lo, hi, color="0.85", lw=0, label="99 % range, uniform ranks")
-            ax.axhline(n / n_bins, color=PALETTE["black"], lw=0.8, ls="--", label="expected")
-            ax.stairs(res["bin_counts"], edges, fill=True, color=PALETTE["blue"], alpha=0.85,
-                      label="simulations")
+            ax.axhspan(lo, hi, color="0.82", lw=0, zorder=0, label="99 % range if uniform")
+            ax.stairs(res["bin_counts"], edges, fill=True, color=PALETTE["blue"], alpha=0.6,
+                      zorder=1, label="simulations")
+            ax.stairs(res["bin_counts"], edges, color=PALETTE["blue"], lw=1.0, zorder=2)
+            ax.axhline(n / n_bins, color=PALETTE["black"], lw=0.8, ls="--", zorder=3,
+                       label="expected")
             ax.set_xlim(0, n_draws + 1)
-            ax.set_xlabel(f"rank of true {label.split(' $')[0]} among {n_draws} draws")
+            ax.set_ylim(0, max(hi, max(res["bin_counts"])) * 1.15)
+            ax.set_xlabel(f"rank of the truth (0-{n_draws})")
             ax.set_title(
                 f"{label} ({unit})\n68 %: {res['coverage68']:.2f} ± {res['coverage68_err']:.2f}, "
                 f"95 %: {res['coverage95']:.2f} ± {res['coverage95_err']:.2f}", fontsize=7)
