@@ -359,11 +359,12 @@ def _hessian_cov(post: LogPosterior, x0: NDArray[np.float64]) -> NDArray[np.floa
     f0 = vals[0]
     H = np.zeros((d, d))
     k = 1
-    for i in range(d):
-        for j in range(i, d):
-            fpp, fpm, fmp, fmm = vals[k: k + 4]
-            k += 4
-            H[i, j] = H[j, i] = (fpp - fpm - fmp + fmm) / (4 * h[i] * h[j])
+    with np.errstate(invalid="ignore"):  # -inf neighbours (a prior wall) give nan entries, handled below
+        for i in range(d):
+            for j in range(i, d):
+                fpp, fpm, fmp, fmm = vals[k: k + 4]
+                k += 4
+                H[i, j] = H[j, i] = (fpp - fpm - fmp + fmm) / (4 * h[i] * h[j])
     if not np.all(np.isfinite(H)) or not np.isfinite(f0):
         return np.diag((0.01 * np.maximum(1.0, np.abs(x0))) ** 2)
     w, V = np.linalg.eigh(-H)

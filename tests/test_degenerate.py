@@ -16,10 +16,9 @@ determine the orbit, the sampler may not converge: a fit that says so
 its clear message, and the interval checks apply only to converged fits; the
 well-determined cases (e near 1, face-on, edge-on) must cover the truth regardless.
 
-Known library bug (see the xfail test at the end): the initialisation's finite-difference
-Hessian emits numpy's "invalid value" RuntimeWarning when a neighbouring point has log
-posterior -inf; the fits here ignore that one warning from orbitmass.initialise only, so
-the rest of their behaviour is still tested. Remove IGNORE_HESSIAN_WARNING when fixed.
+The initialisation's finite-difference Hessian once let numpy's "invalid value"
+RuntimeWarning escape when a neighbouring point had log posterior -inf (face-on orbits);
+the test at the end keeps that fixed.
 """
 
 from __future__ import annotations
@@ -38,8 +37,7 @@ from orbitmass.simulate import TrueOrbit
 
 from .conftest import make_target
 
-IGNORE_HESSIAN_WARNING = "ignore:invalid value encountered:RuntimeWarning:orbitmass.initialise"
-pytestmark = [pytest.mark.slow, pytest.mark.filterwarnings(IGNORE_HESSIAN_WARNING)]
+pytestmark = pytest.mark.slow
 
 DIST_NORMAL = 'prior = { dist = "normal", mean = "20 pc", sd = "1 pc" }'
 MASS = '[central]\nmass = { dist = "log-uniform", low = "0.3 solMass", high = "10 solMass" }\n'
@@ -196,15 +194,11 @@ def test_period_fifty_times_the_baseline(tmp_path, rng):
         assert honest(summary["derived"]["mass_msun"], truth.mass_msun, wide_factor=1.5)
 
 
-@pytest.mark.xfail(strict=True, raises=RuntimeWarning,
-                   reason="orbitmass.initialise._hessian_cov computes (fpp - fpm - fmp + fmm) "
-                          "with -inf log posteriors near the face-on boundary: numpy warns "
-                          "'invalid value' before the non-finite Hessian is handled")
 def test_initialisation_face_on_without_floating_point_warning(tmp_path):
     rng = np.random.default_rng(1)
     truth = binary(inclination_deg=0.0)
     path = well_observed(tmp_path, rng, truth)
     with warnings.catch_warnings():
-        warnings.simplefilter("error", RuntimeWarning)  # undo the module's IGNORE_HESSIAN_WARNING
+        warnings.simplefilter("error", RuntimeWarning)
         fit = Fit(seed=11, progress=False, max_steps=300, max_periods=800).fit(path)
     assert np.isfinite(fit.summary["derived"]["mass_msun"]["median"])
