@@ -53,25 +53,30 @@ def _module(name: str):
 
 
 def _demo_fits(quick: bool) -> dict:
-    """Fit the demo's single-companion scenarios (seed 1) and compare their wall time with 10 s."""
+    """Fit the demo's scenarios (seed 1); single-companion fits are compared with the 10 s target."""
     from orbitmass.demo import write_scenarios
     from orbitmass.fit import Fit
 
     out = {}
     with tempfile.TemporaryDirectory(prefix="orbitmass-bench-demo-") as tmp:
         for name, path in write_scenarios(Path(tmp)).items():
-            diag = Fit(seed=1, progress=False).fit(path).summary["diagnostics"]
+            fit = Fit(seed=1, progress=False).fit(path)
+            diag = fit.summary["diagnostics"]
+            n_comp = len(fit.results.target.companions)
             out[name] = {"wall_seconds": float(diag["wall_seconds"]), "converged": bool(diag["converged"]),
                          "n_steps": int(diag["n_steps"]), "ess_mass": float(diag["ess_mass"]),
+                         "n_companions": n_comp,
                          "under_target": bool(diag["converged"] and diag["wall_seconds"] < DEMO_TARGET_S)}
     return {"fits": out, "target_seconds": DEMO_TARGET_S, "quick": quick}
 
 
 def _demo_table(result: dict) -> str:
-    lines = [f"Demo fits (seed 1), target: converged in under {result['target_seconds']:.0f} s"]
+    lines = [f"Demo fits (seed 1), target for single-companion fits: converged in under "
+             f"{result['target_seconds']:.0f} s"]
     for name, r in result["fits"].items():
-        lines.append(f"  {name:<10} {r['wall_seconds']:6.1f} s, {r['n_steps']} steps, converged "
-                     f"{'yes' if r['converged'] else 'no'}: {'met' if r['under_target'] else 'NOT met'}")
+        verdict = ("met" if r["under_target"] else "NOT met") if r["n_companions"] == 1 else "no target"
+        lines.append(f"  {name:<15} {r['n_companions']} companion(s) {r['wall_seconds']:6.1f} s, {r['n_steps']} "
+                     f"steps, converged {'yes' if r['converged'] else 'no'}: {verdict}")
     return "\n".join(lines)
 
 
@@ -145,6 +150,8 @@ def targets(sections: dict) -> list[dict]:
     demo = sections.get("demo")
     if isinstance(demo, dict) and "fits" in demo:
         for name, r in demo["fits"].items():
+            if r.get("n_companions", 1) != 1:
+                continue
             out.append({"figure": f"demo fit {name}, wall seconds to convergence", "value": r["wall_seconds"],
                         "target": f"< {demo['target_seconds']:.0f} s", "met": r["under_target"]})
     return out

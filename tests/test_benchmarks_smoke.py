@@ -131,3 +131,20 @@ def test_write_json_replaces_non_finite(tmp_path):
 def test_sections_have_run(name):
     mod = run._module(name)
     assert mod is not None and callable(mod.run)
+
+
+def test_targets_thresholds():
+    # thresholds as written in the issue: >= 10x ESS/s on each problem, >= 25x astrometry-only,
+    # demo single-companion fits under 10 s; a joint demo fit carries no target
+    sections = {
+        "problems": {"covered": {"ratio_ess_per_s": 12.0}, "astrometry": {"ratio_ess_per_s": 12.0},
+                     "settings": {}},
+        "demo": {"target_seconds": 10.0, "fits": {
+            "one": {"wall_seconds": 9.0, "under_target": True, "n_companions": 1},
+            "joint": {"wall_seconds": 50.0, "under_target": False, "n_companions": 3}}},
+    }
+    rows = {r["figure"]: r for r in run.targets(sections)}
+    assert rows["ESS(mass)/s orbitmass / baseline, covered"]["met"] is True
+    assert rows["ESS(mass)/s orbitmass / baseline, astrometry"]["met"] is False
+    assert rows["demo fit one, wall seconds to convergence"]["met"] is True
+    assert not any("joint" in f for f in rows)
