@@ -637,8 +637,29 @@ def profile_fit(quick: bool, top: int = 25, max_steps: int | None = None) -> dic
                      "tottime_s": float(tt), "cumtime_s": float(ct)})
     text = stream.getvalue()
     text = text[text.find("ncalls"):] if "ncalls" in text else text
+    breakdown = {}
+    for label, keys in PROFILE_GROUPS.items():
+        cum = sum(ct for (filename, _, func), (_, _, _, ct, _) in stats.stats.items()
+                  if (Path(filename).name, func) in keys)
+        if cum > 0.0:
+            breakdown[label] = {"cumtime_s": float(cum), "fraction": float(cum / total)}
     return {"problem": "covered", "total_seconds": total, "n_steps": fit.summary["diagnostics"]["n_steps"],
-            "top": rows, "text": text}
+            "breakdown": breakdown, "top": rows, "text": text}
+
+
+#: where the time of a fit goes: cumulative time of these functions (file, function), all callers
+PROFILE_GROUPS: dict[str, tuple[tuple[str, str], ...]] = {
+    "reading the target": (("target.py", "read_target"),),
+    "initialisation (period search)": (("initialise.py", "initialise_walkers"),),
+    "sampling (emcee + checks)": (("sampler.py", "run_sampler"),),
+    "  log posterior, all calls": (("likelihood.py", "__call__"),),
+    "    log prior": (("parameters.py", "log_prior"),),
+    "    log likelihood": (("likelihood.py", "log_likelihood"),),
+    "      Kepler solver": (("kepler.py", "kepler_cos_sin"),),
+    "  emcee proposals (DE, snooker)": (("de.py", "get_proposal"), ("de_snooker.py", "get_proposal")),
+    "  convergence checks": (("sampler.py", "assess"),),
+    "derived samples": (("results.py", "derive_samples"),),
+}
 
 
 def table(result: dict) -> str:

@@ -82,8 +82,11 @@ def _demo_table(result: dict) -> str:
 
 def _profile_table(result: dict) -> str:
     lines = [f"Profile of one orbitmass fit ({result['problem']}, {result['n_steps']} steps, "
-             f"{result['total_seconds']:.1f} s under cProfile); top functions by own time:",
-             f"{'tottime s':>10} {'cumtime s':>10} {'calls':>9}  function"]
+             f"{result['total_seconds']:.1f} s under cProfile)",
+             "where the time goes (cumulative, all callers; nested lines are parts of the line above):"]
+    for label, row in result.get("breakdown", {}).items():
+        lines.append(f"  {label:<36} {row['cumtime_s']:>7.2f} s {100 * row['fraction']:>5.1f} %")
+    lines.append(f"{'tottime s':>10} {'cumtime s':>10} {'calls':>9}  function")
     for row in result["top"][:15]:
         lines.append(f"{row['tottime_s']:>10.2f} {row['cumtime_s']:>10.2f} {row['calls']:>9d}  {row['function']}")
     return "\n".join(lines)
