@@ -369,6 +369,7 @@ def plot_ranks(result: dict, path_without_suffix: str | Path) -> list[Path]:
     with style_context():
         fig = Figure(figsize=figure_size(2, 0.36))
         axes = fig.subplots(1, len(QUANTITIES), sharey=True)
+        top = 0.0
         for ax, (key, (_, _, label, unit)) in zip(axes, QUANTITIES.items(), strict=True):
             res = result["results"][key]
             n, n_bins = res["n"], res["n_bins"]
@@ -381,14 +382,16 @@ def plot_ranks(result: dict, path_without_suffix: str | Path) -> list[Path]:
             ax.axhline(n / n_bins, color=PALETTE["black"], lw=0.8, ls="--", zorder=3,
                        label="expected")
             ax.set_xlim(0, n_draws + 1)
-            ax.set_ylim(0, max(hi, max(res["bin_counts"])) * 1.15)
+            top = max(top, hi, max(res["bin_counts"]))
             ax.set_xlabel(f"rank of the truth (0-{n_draws})")
             ax.set_title(
                 f"{label} ({unit})\n68 %: {res['coverage68']:.2f} ± {res['coverage68_err']:.2f}, "
                 f"95 %: {res['coverage95']:.2f} ± {res['coverage95_err']:.2f}", fontsize=7)
         axes[0].set_ylabel(f"simulations per bin (of {result['results']['mass_msun']['n']})")
-        axes[0].legend(loc="lower left", fontsize=6, frameon=False)
-        fig.tight_layout()
+        axes[0].set_ylim(0, top * 1.1)  # shared by all panels
+        handles, labels = axes[0].get_legend_handles_labels()
+        fig.legend(handles, labels, loc="lower center", ncol=3, fontsize=7, frameon=False)
+        fig.tight_layout(rect=(0, 0.07, 1, 1))
         return save_figure(fig, path_without_suffix)
 
 
