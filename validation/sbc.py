@@ -339,7 +339,10 @@ def run_sbc(n_fits: int, *, seed: int = 1, n_draws: int = 99, max_steps: int = 2
                     records.append(record)
                     _log_progress(record, len(records), n_fits, t0)
     wall = time.perf_counter() - t0
-    settings = {"n_fits": n_fits, "seed": seed, "n_draws": n_draws, "max_steps": max_steps,
+    from orbitmass import __version__
+
+    settings = {"orbitmass_version": __version__, "n_fits": n_fits, "seed": seed,
+                "n_draws": n_draws, "max_steps": max_steps,
                 "workers": workers, "design": asdict(design),
                 "method": "Talts et al. (2018), arXiv:1804.06788"}
     n_conv = sum(1 for r in records if r.get("diagnostics", {}).get("converged"))
