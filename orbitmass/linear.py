@@ -90,10 +90,15 @@ Choices
    4-vectors and distances from the prior), so that ``h`` is a smooth,
    deterministic function of ``theta``. The 3-D target is then close to the
    true marginal posterior and the weights only correct within-``beta``
-   scatter. ``h`` uses the mass prior's density at the mass clipped into the
-   prior's support, so it never vanishes where the true posterior does not
-   (importance sampling needs ``h > 0`` wherever ``g > 0``); draws outside the
-   support get weight 0. ``n_draws = 0`` gives ``h = 1``.
+   scatter. ``h`` averages a bounded surrogate of ``g``: the mass prior's
+   density at the mass clipped into the prior's support, so that ``h`` never
+   vanishes where the true posterior does not (importance sampling needs
+   ``h > 0`` wherever ``g > 0``; draws outside the support get weight 0), and
+   ``sin^2 i + 0.05`` in place of ``sin^2 i``, because ``g ~ 1 / sin^2 i``
+   is unbounded at face-on orbits and a common draw passing near one would
+   put a narrow spike into the 3-D target (a trap for the sampler).
+   ``n_draws = 0`` gives ``h = 1`` (for diagnostics only: for weak data the
+   flat-``beta`` marginal puts most of its mass at periods far too long).
 3. **Kish effective sample size.** ``(sum w)^2 / sum w^2`` (Kish 1965, Survey
    Sampling) over the retained draws. The effective sample size of a quantity
    after weighting is approximated by its ESS on the (unweighted) expanded
@@ -154,6 +159,8 @@ LOG_2PI = math.log(TWO_PI)
 LOG_KEPLER = float(np.log(kepler_mass(1.0, 1.0)))
 #: ln of the constant factors of g: 3 (dM/da) x 1/2 (isotropic) x 2 / (4 pi^2) (two node solutions).
 LOG_G_CONST = math.log(3.0) - LN2 + LN2 - math.log(4.0 * math.pi**2)
+#: Added to sin^2 i in the proposal-shaping surrogate of g, which keeps h bounded near face-on orbits.
+SIN2_FLOOR = 0.05
 #: Relative size of a Cholesky pivot below which the normal matrix counts as singular.
 PIVOT_TOL = 1e-10
 
@@ -282,16 +289,17 @@ def _backward4(fac, z0, z1, z2, z3):
     return x0, x1, x2, x3
 
 
-def _log_a_and_pq(A, B, F, G):
-    """ln a and ln(4 P Q) = ln(a^2 sin^2 i) from the constants, without trigonometry.
+def _log_a_and_pq(A, B, F, G, floor: float = 0.0):
+    """ln a and ln(a^2 (sin^2 i + floor)) from the constants, without trigonometry.
 
     ``2 P = |(A + G, B - F)|``, ``2 Q = |(A - G, B + F)|``, ``a = P + Q`` and
-    ``a sin i = 2 sqrt(P Q)`` (elements module docstring).
+    ``a^2 sin^2 i = 4 P Q`` (elements module docstring).
     """
     two_p = np.hypot(A + G, B - F)
     two_q = np.hypot(A - G, B + F)
+    a = 0.5 * (two_p + two_q)
     with np.errstate(divide="ignore"):
-        return np.log(0.5 * (two_p + two_q)), np.log(two_p * two_q)
+        return np.log(a), np.log(two_p * two_q + floor * a * a)
 
 
 # ------------------------------------------------------------- the posterior
@@ -443,18 +451,19 @@ class LinearAstrometryPosterior:
         return np.where(sol["ok"], out, -np.inf)
 
     # ------------------------------------------------------------ weights
-    def log_g(self, beta: NDArray[np.float64], distance_pc, period_yr, *, clip_mass: bool = False):
+    def log_g(self, beta: NDArray[np.float64], distance_pc, period_yr, *, surrogate: bool = False):
         """ln g (module docstring) from constants ``beta`` (..., 4) in mas, closed form.
 
         ``distance_pc`` and ``period_yr`` broadcast against ``beta[..., 0]``.
-        With ``clip_mass`` the mass prior is evaluated at the mass clipped into
-        its support (the positive surrogate used for ``h``).
+        With ``surrogate`` the bounded, positive stand-in used for ``h``: the
+        mass prior at the mass clipped into its support, and ``sin^2 i``
+        replaced by ``sin^2 i +`` :data:`SIN2_FLOOR` (module docstring, choice 2).
         """
         A, B, F, G = beta[..., 0], beta[..., 1], beta[..., 2], beta[..., 3]
-        log_a, log_a2_sin2_i = _log_a_and_pq(A, B, F, G)
+        log_a, log_a2_sin2_i = _log_a_and_pq(A, B, F, G, SIN2_FLOOR if surrogate else 0.0)
         log_mass = LOG_KEPLER + 3.0 * (log_a + np.log(distance_pc) - math.log(1000.0)) - 2.0 * np.log(period_yr)
         mass = np.exp(log_mass)
-        if clip_mass:
+        if surrogate:
             low, high = self.mass_prior.support
             mass = np.clip(mass, low, high)
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -487,7 +496,7 @@ class LinearAstrometryPosterior:
         with np.errstate(invalid="ignore", divide="ignore"):
             dev = _backward4(fac, *(self.zeta[j][None, :] for j in range(4)))
         beta = sol["beta_hat"][:, None, :] + np.stack(dev, axis=-1)  # (n, K, 4)
-        lg = self.log_g(beta, self.d_draws[None, :], sol["period"][:, None], clip_mass=True)
+        lg = self.log_g(beta, self.d_draws[None, :], sol["period"][:, None], surrogate=True)
         top = np.max(lg, axis=1)
         safe = np.where(np.isfinite(top), top, 0.0)
         with np.errstate(divide="ignore"):
