@@ -140,6 +140,7 @@ from orbitmass.physics import mass_msun as kepler_mass
 from orbitmass.priors import Isotropic, Uniform
 
 __all__ = [
+    "LinearPathError",
     "applies",
     "ineligible_reasons",
     "LinearAstrometryPosterior",
@@ -163,6 +164,10 @@ LOG_G_CONST = math.log(3.0) - LN2 + LN2 - math.log(4.0 * math.pi**2)
 SIN2_FLOOR = 0.05
 #: Relative size of a Cholesky pivot below which the normal matrix counts as singular.
 PIVOT_TOL = 1e-10
+
+
+class LinearPathError(RuntimeError):
+    """The fast path could not produce a sample (the caller should use the normal path)."""
 
 
 # --------------------------------------------------------------- eligibility
@@ -405,7 +410,7 @@ class LinearAstrometryPosterior:
             x = np.asarray(prior.sample(rng, 2 * (n - out.size) + 8), dtype=float)
             out = np.concatenate([out, x[x > 0.0]])
         if out.size < n:
-            raise ValueError("the distance prior has almost no positive support")
+            raise LinearPathError("the distance prior has almost no positive support")
         out = out[:n]
         return 1000.0 / out if space.distance_mode == "parallax" else out
 
@@ -586,14 +591,14 @@ def systematic_resample(log_weights: NDArray[np.float64], rng: np.random.Generat
 
     Raises
     ------
-    ValueError
+    LinearPathError
         When no weight is positive.
     """
     lw = np.asarray(log_weights, dtype=float)
     n_out = lw.size if n_out is None else int(n_out)
     finite = np.isfinite(lw)
     if not finite.any():
-        raise ValueError("no draw has a positive importance weight")
+        raise LinearPathError("no draw has a positive importance weight")
     w = np.where(finite, np.exp(lw - np.max(lw[finite])), 0.0)
     cdf = np.cumsum(w / w.sum())
     u = (rng.random() + np.arange(n_out)) / n_out
@@ -641,7 +646,7 @@ def initialise_linear(post: LinearAstrometryPosterior, n_walkers: int, rng: np.r
         if len(cands) >= 4:
             break
     if not cands:
-        raise ValueError("no point of the (P, e, M0) grid has a finite posterior")
+        raise LinearPathError("no point of the (P, e, M0) grid has a finite posterior")
     polished = sorted((_polish(post, c, max_evals) for c in cands), key=lambda r: -r[1])
     best, best_val = polished[0]
     others = [{"delta_log_posterior": float(best_val - v), "period_yr": {post.name: float(np.exp(x[0]))}}
@@ -720,6 +725,13 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
         :class:`LinearAstrometryPosterior`. ``diagnostics``: a JSON-ready dict
         for ``summary.json`` (Kish ESS and fraction, 3-D tau/ESS/R-hat, step
         counts, timings, ``fallback_recommended``).
+
+    Raises
+    ------
+    LinearPathError
+        When no grid point or no draw has a finite posterior (use the normal path).
+    ValueError
+        When :func:`applies` is false for ``space``.
     """
     from orbitmass.likelihood import LogPosterior
     from orbitmass.sampler import SamplerRun, run_sampler

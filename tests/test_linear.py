@@ -27,6 +27,7 @@ from orbitmass.io.target import read_target
 from orbitmass.linear import (
     SIN2_FLOOR,
     LinearAstrometryPosterior,
+    LinearPathError,
     applies,
     expand,
     fit_linear,
@@ -324,7 +325,7 @@ def test_systematic_resampling_counts_and_kish():
     # Kish (1965): equal weights give n; a single non-zero weight gives 1
     assert kish_ess(np.zeros(40)) == pytest.approx(40.0)
     assert kish_ess(np.r_[0.0, np.full(9, -np.inf)]) == pytest.approx(1.0)
-    with pytest.raises(ValueError):
+    with pytest.raises(LinearPathError):
         systematic_resample(np.full(4, -np.inf), rng)
 
 
