@@ -427,8 +427,10 @@ def test_fast_path_matches_direct_sampling(tmp_path):
     assert run_n.converged and info["run"].converged
     assert info["diagnostics"]["kish_fraction"] > 0.5 and not info["diagnostics"]["fallback_recommended"]
     # the same draws without the prior correction (flat prior on A, B, F, G): must differ
+    # (the fast samples' (P, e, M0), reweighted by 1 / h ~ 1 / E[g], follow the flat-constants marginal)
     post3 = info["posterior"]
-    th3, _ = info["run_3d"].retained()
+    phys = space_f.unpack(theta_f)
+    th3 = post3.to_theta(phys["S1.period_yr"], phys["S1.ecc"], phys["S1.m0"])
     flat_idx = systematic_resample(-post3.log_shape(post3.solve(th3)), np.random.default_rng(3))
     theta_u, _, _ = expand(LinearAstrometryPosterior(space_f, n_draws=0), th3[flat_idx], np.random.default_rng(4))
     flat = derive_samples(space_f, space_f.wrap_angles(theta_u))
