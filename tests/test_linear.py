@@ -33,6 +33,7 @@ from orbitmass.linear import (
     fit_linear,
     ineligible_reasons,
     kish_ess,
+    pareto_khat,
     systematic_resample,
 )
 from orbitmass.parameters import ParameterSpace
@@ -371,6 +372,39 @@ def test_expand_packs_the_full_layout(tiny):
                                                 phys["K1.node"])
     assert np.allclose(np.stack([A, B, F, G], axis=1), info["beta"], rtol=1e-9, atol=1e-9)
     assert np.all(np.isfinite(log_w))
+
+
+def test_pareto_shape_of_known_tails():
+    rng = np.random.default_rng(17)
+    # weights drawn from a generalized Pareto distribution of shape 0.6 (scipy.stats.genpareto)
+    heavy = stats.genpareto(c=0.6).rvs(size=20_000, random_state=rng)
+    assert pareto_khat(np.log(heavy)) == pytest.approx(0.6, abs=0.15)
+    # bounded weights have a negative shape
+    assert pareto_khat(np.log(rng.uniform(0.5, 1.0, 20_000))) < 0.0
+    assert pareto_khat(np.full(3, 0.0)) == math.inf
+
+
+def test_fit_linear_on_a_well_covered_orbit(tmp_path, rng):
+    """End to end on a full orbit: the importance-sampling branch, the run layout, the truth recovered."""
+    from orbitmass.sampler import SamplerOptions
+
+    truth = TrueOrbit(mass_msun=2.3, distance_pc=25.0, period_yr=30.0, eccentricity=0.35, inclination_deg=120.0,
+                      arg_periastron_deg=250.0, ascending_node_deg=300.0, periastron_time=2001.0)
+    path = make_target(tmp_path, truth, rng=rng, t_pos=np.sort(rng.uniform(1990, 2025, 25)), pos_err=2.0,
+                       distance_toml=PARALLAX)
+    space = ParameterSpace(read_target(path))
+    theta, lp, info = fit_linear(space, np.random.default_rng(1), SamplerOptions(progress=False, max_retained=20_000))
+    diag = info["diagnostics"]
+    assert diag["sampler_3d"].startswith("importance") and diag["khat_3d"] < 0.5
+    assert theta.shape == (20_000, space.ndim) and np.all(np.isfinite(lp))
+    assert info["run"].converged and info["run"].chain.shape[1:] == (64, space.ndim)
+    assert diag["ess_mass"] == pytest.approx(diag["kish_ess"]) and not diag["fallback_recommended"]
+    phys = space.unpack(theta)
+    # the invented truth inside the central 95 % (common practice, no source)
+    for key, value in (("mass_msun", truth.mass_msun), ("S1.period_yr", truth.period_yr),
+                       ("S1.ecc", truth.eccentricity), ("S1.cos_i", math.cos(math.radians(truth.inclination_deg)))):
+        lo, hi = np.quantile(phys[key], [0.025, 0.975])
+        assert lo <= value <= hi, key
 
 
 # ------------------------------------------------------------ the key test
