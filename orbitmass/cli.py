@@ -67,6 +67,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--resume", action="store_true",
                    help="continue a stopped fit from the checkpoint in DIR")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.add_argument("--no-fast-path", action="store_true",
+                   help="sample every element even where the astrometry-only fast path (Thiele-Innes "
+                        "constants integrated out) applies")
 
     p = sub.add_parser("demo", help="write invented example data, fit it and report",
                        description="Write the invented demo data (a star around the dark mass of an invented "
@@ -121,7 +124,8 @@ def _cmd_fit(args) -> int:
     old_term = signal.signal(signal.SIGTERM, handler)
     try:
         fit = Fit(seed=args.seed, n_walkers=args.walkers, max_steps=args.max_steps,
-                  progress=False if args.no_progress else None, checkpoint=checkpoint, resume=args.resume)
+                  progress=False if args.no_progress else None, checkpoint=checkpoint, resume=args.resume,
+                  linear=not args.no_fast_path)
         fit.fit(target, stop_flag=lambda: stop["flag"])
     finally:
         signal.signal(signal.SIGINT, old_int)

@@ -127,6 +127,13 @@ class Fit:
         Progress bar (default: only on a terminal).
     max_periods : int
         Period grid points per companion in the initial linear search.
+    linear : bool
+        Use the astrometry-only fast path of :mod:`orbitmass.linear` when it
+        applies (one companion, east/north positions only, default orientation
+        priors; see :func:`orbitmass.linear.applies`): the Thiele-Innes
+        constants are integrated out, three variables are sampled, and the
+        draws are importance-weighted to the same posterior. It takes seconds
+        and writes no checkpoint; not used when resuming.
     checkpoint : path or None
         HDF5 file the chain is checkpointed to while sampling (every minute,
         at every convergence check and when stopped).
@@ -143,7 +150,7 @@ class Fit:
 
     def __init__(self, *, seed: int | None = None, n_walkers: int | None = None, max_steps: int = 20000,
                  min_steps: int = 600, progress: bool | None = None, max_periods: int = 3000,
-                 checkpoint: str | Path | None = None, resume: bool = False):
+                 checkpoint: str | Path | None = None, resume: bool = False, linear: bool = True):
         self.seed = seed
         self.n_walkers = n_walkers
         self.max_steps = max_steps
@@ -152,6 +159,7 @@ class Fit:
         self.max_periods = max_periods
         self.checkpoint = checkpoint
         self.resume = resume
+        self.linear = linear
 
     # ------------------------------------------------------------------ fitting
     def fit(self, target: str | Path | Target, *, stop_flag=None) -> Fit:
@@ -190,6 +198,27 @@ class Fit:
                              f"use at least {2 * space.ndim}", key="walkers")
         options = SamplerOptions(max_steps=self.max_steps, min_steps=min(self.min_steps, self.max_steps),
                                  progress=self.progress)
+        if self.linear and not self.resume:  # fast enough that it needs no checkpoint
+            lin = self._fit_linear(space, rng, options, stop_flag)
+            if lin is not None:
+                theta, lp = lin["theta"], lin["log_post"]
+                run, init = lin["run"], lin["init"]
+                samples = derive_samples(space, theta, lp)
+                summary = self._summary(target, space, samples, run, init, seed, time.perf_counter() - t0)
+                diag = summary["diagnostics"]
+                diag["linear_path"] = lin["diagnostics"]
+                if "n_steps_3d" in lin["diagnostics"]:
+                    # MCMC on the three variables: its step counts (the stored chain is thinned
+                    # to the retained stride); after importance sampling there are no steps
+                    diag["n_steps"] = lin["diagnostics"]["n_steps_3d"]
+                    diag["burn"] = lin["diagnostics"]["burn_3d"]
+                    diag["thin"] = lin["diagnostics"]["thin_3d"]
+                info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
+                        "n_evaluations": run.n_evaluations, "sampler": "linear"}
+                self.results_ = Results(target=target, space=space, samples=samples, theta=theta,
+                                        chain=run.chain, log_prob=run.log_prob, burn=run.burn, thin=run.thin,
+                                        summary=summary, info=info)
+                return self
         ckpt_path = Path(self.checkpoint) if self.checkpoint is not None else None
         backend = None
         if self.resume:
@@ -237,6 +266,25 @@ class Fit:
         self.results_ = Results(target=target, space=space, samples=samples, theta=theta, chain=run.chain,
                                 log_prob=run.log_prob, burn=run.burn, thin=run.thin, summary=summary, info=info)
         return self
+
+    def _fit_linear(self, space, rng, options, stop_flag):
+        """The astrometry-only fast path, or None when it does not apply or its weights are poor."""
+        from orbitmass.linear import LinearPathError, applies, fit_linear
+
+        if not applies(space):
+            return None
+        try:
+            theta, lp, lin = fit_linear(space, rng, options, n_walkers=self.n_walkers,
+                                        max_periods=self.max_periods, stop_flag=stop_flag)
+        except LinearPathError as exc:
+            log.warning("astrometry-only fast path failed (%s); sampling every element instead", exc)
+            return None
+        diag = lin["diagnostics"]
+        if diag["fallback_recommended"] and not lin["run"].interrupted:
+            log.warning("astrometry-only fast path: importance weights too uneven (Kish ESS %.0f of %d); "
+                        "sampling every element instead", diag["kish_ess"], diag["n_weighted"])
+            return None
+        return {"theta": theta, "log_post": lp, **lin}
 
     @staticmethod
     def _summary(target, space, samples, run, init, seed, wall) -> dict:
