@@ -158,7 +158,8 @@ def _write_quillon_joint(folder: Path, rng: np.random.Generator) -> Path:
             period = {{ dist = "log-uniform", low = "1 yr", high = "200 yr" }}
             """))
     target = folder / "target.toml"
-    target.write_text(textwrap.dedent("""        # Invented demo: two stars share the dark mass of the Quillon Dwarf (a joint fit). Positions
+    target.write_text(textwrap.dedent("""\
+        # Invented demo: two stars share the dark mass of the Quillon Dwarf (a joint fit). Positions
         # are on an external reference frame, so the barycentre's position, proper motion and
         # line-of-sight velocity are fitted too.
         [target]

@@ -45,7 +45,7 @@ def cosmology_from_spec(spec: str):
 
 
 def redshift_distance_pc(z: float, cosmology: str) -> float:
-    """Angular-diameter distance (pc) at redshift ``z`` in the cosmology ``cosmology`` (see :func:`cosmology_from_spec`)."""
+    """Angular-diameter distance (pc) at redshift ``z`` in ``cosmology`` (see :func:`cosmology_from_spec`)."""
     import astropy.units as u
 
     return float(cosmology_from_spec(cosmology).angular_diameter_distance(z).to_value(u.pc))

@@ -82,7 +82,8 @@ def _write_system(folder, stars, *, rng, frame_terms=None, t_ref=2014.0, n_pos=2
         rv = sv["rv_companion_kms"] + vz0 + np.where(inst == "spec-b", offset_b, 0.0) + rng.normal(0, rv_err, tv.size)
         write_velocities_csv(folder / f"{name}_rv.csv", tv, rv, rv_err, instrument=inst)
         blocks.append(f'[[companion]]\nname = "{name}"\nastrometry = "{name}_pos.csv"\n'
-                      f'velocities = "{name}_rv.csv"\nperiod = {{ dist = "log-uniform", low = "1 yr", high = "100 yr" }}\n')
+                      f'velocities = "{name}_rv.csv"\n'
+                      'period = { dist = "log-uniform", low = "1 yr", high = "100 yr" }\n')
     return blocks
 
 
