@@ -157,7 +157,7 @@ def test_summary_numbers_by_hand():
 
 @pytest.mark.slow
 def test_sbc_small(tmp_path):
-    # 20 fits drawn from the prior, short chains; about 70 s on 2 free cores
+    # 20 fits drawn from the prior, short chains: about 130 CPU-seconds in 2 worker processes
     result = run_sbc(20, seed=2026, n_draws=19, max_steps=3000, workers=2)
     assert result["n_failed"] == 0
     assert len(result["records"]) == 20
