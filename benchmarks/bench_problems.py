@@ -499,7 +499,8 @@ def run_orbitmass(problem: Problem, *, seed: int, max_steps: int = 20000) -> dic
         "ess_mass_orbitmass": float(diag["ess_mass"]),
         "ess_mass_per_s_orbitmass": float(diag["ess_mass"]) / wall,
         "evaluations_per_ess_orbitmass": diag["n_evaluations"] / float(diag["ess_mass"]),
-        "acceptance_fraction": float(diag["acceptance_fraction"]),
+        # null when the fast path used importance sampling (no Markov chain, so no acceptance)
+        "acceptance_fraction": None if diag["acceptance_fraction"] is None else float(diag["acceptance_fraction"]),
         "mass_median_msun": float(fit.summary["derived"]["mass_msun"]["median"]),
         "path": path,
         "kish_fraction": 1.0 if kish is None else kish,

@@ -107,7 +107,7 @@ STATUS_FAILED = "failed"
 #: companion elements in the catalogue (summary.json keys of ``companions.<name>``)
 ELEMENTS = ("period_yr", "eccentricity", "inclination_deg", "semimajor_axis_mas")
 #: Fit options a batch may set (the seed is derived per target, progress bars are off on workers)
-FIT_OPTIONS = ("n_walkers", "max_steps", "min_steps", "max_periods")
+FIT_OPTIONS = ("n_walkers", "max_steps", "min_steps", "max_periods", "linear")
 INSTALL_HINT = 'pip install "orbitmass[cluster]"'
 _DIAGNOSTICS = ("ess_min", "ess_mass", "tau_max", "rhat_max", "n_steps", "wall_seconds")
 _QUANTILES = ("median", "q16", "q84", "q2.5", "q97.5")
@@ -270,7 +270,7 @@ def plan_batch(
         Batch seed (see :func:`target_seed`).
     fit_options : mapping, optional
         Options of :class:`orbitmass.fit.Fit`: ``n_walkers``, ``max_steps``,
-        ``min_steps``, ``max_periods``.
+        ``min_steps``, ``max_periods``, ``linear``.
     products : bool
         Write figures, tables and reports into each run folder.
 
@@ -616,7 +616,7 @@ def fit_batch(
     seed : int
         Batch seed; target seeds derive from it (:func:`target_seed`).
     fit_options : mapping, optional
-        ``n_walkers``, ``max_steps``, ``min_steps``, ``max_periods`` of
+        ``n_walkers``, ``max_steps``, ``min_steps``, ``max_periods``, ``linear`` of
         :class:`orbitmass.fit.Fit`.
     products : bool
         Write figures, tables and reports into each run folder.
@@ -947,6 +947,8 @@ def add_batch_parser(subparsers) -> argparse.ArgumentParser:
         "'orbitmass report RUN_DIR' adds figures and reports later",
     )
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
+    p.add_argument("--no-fast-path", action="store_true",
+                   help="sample every element even where the astrometry-only fast path applies")
     return p
 
 
@@ -959,6 +961,8 @@ def cmd_batch(args: argparse.Namespace) -> int:
     """
     # Command-line output: these two functions are the CLI's, kept here beside the batch code.
     options: dict[str, Any] = {"max_steps": args.max_steps}
+    if args.no_fast_path:
+        options["linear"] = False
     if args.walkers is not None:
         options["n_walkers"] = args.walkers
 

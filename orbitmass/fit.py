@@ -207,6 +207,8 @@ class Fit:
                 summary = self._summary(target, space, samples, run, init, seed, time.perf_counter() - t0)
                 diag = summary["diagnostics"]
                 diag["linear_path"] = lin["diagnostics"]
+                if not math.isfinite(diag["acceptance_fraction"]):
+                    diag["acceptance_fraction"] = None  # importance sampling: no chain, no acceptance
                 if "n_steps_3d" in lin["diagnostics"]:
                     # MCMC on the three variables: its step counts (the stored chain is thinned
                     # to the retained stride); after importance sampling there are no steps

@@ -40,6 +40,9 @@ from orbitmass.exceptions import InputError, OrbitmassError
 from orbitmass.io.rundir import is_complete_run
 
 MAX_STEPS = 300  # short chains: a few seconds per fit
+# every element sampled (not the astrometry-only fast path, which converges at once), so that
+# these short fits end "not converged" and the status column is exercised
+FIT = {"max_steps": MAX_STEPS, "linear": False}
 BAD_TARGET = """\
 [target]
 name = "Vell 9 AB"
@@ -150,7 +153,7 @@ def test_batch_catalogue_failure_interruption_and_resume(sample, client, tmp_pat
         out,
         client=client,
         seed=5,
-        fit_options={"max_steps": MAX_STEPS},
+        fit_options=FIT,
         products=False,
         progress=False,
     )
@@ -196,7 +199,8 @@ def test_batch_catalogue_failure_interruption_and_resume(sample, client, tmp_pat
     from orbitmass.fit import Fit
 
     first = good.iloc[0]
-    alone = Fit(seed=int(first["seed"]), max_steps=MAX_STEPS, progress=False).fit(first["target_file"])
+    alone = Fit(seed=int(first["seed"]), max_steps=MAX_STEPS, progress=False, linear=False).fit(
+        first["target_file"])
     assert alone.summary["derived"]["mass_msun"]["median"] == pytest.approx(first["mass_msun_median"], rel=1e-12)
 
     # resume through the command line: finished runs are skipped, untouched; the bad one fails again
@@ -221,6 +225,7 @@ def test_batch_catalogue_failure_interruption_and_resume(sample, client, tmp_pat
             str(MAX_STEPS),
             "--no-figures",
             "--no-progress",
+            "--no-fast-path",
         ]
     )
     capsys.readouterr()
@@ -268,7 +273,7 @@ def test_dead_worker_and_crashes_are_retried_then_recorded(sample, client, tmp_p
             client=client,
             seed=1,
             retries=1,
-            fit_options={"max_steps": MAX_STEPS},
+            fit_options=FIT,
             products=False,
             progress=False,
             fit_function=_dies_once,

@@ -23,6 +23,8 @@ from orbitmass.simulate import TrueOrbit
 
 from .conftest import make_target
 
+# These tests exercise the Markov chain, its checkpoints and resuming, so the astrometry-only
+# fast path (which needs neither) is switched off: linear=False, --no-fast-path.
 TRUTH = TrueOrbit(mass_msun=1.9, distance_pc=20.0, period_yr=12.0, eccentricity=0.3, inclination_deg=60.0,
                   arg_periastron_deg=40.0, ascending_node_deg=100.0, periastron_time=2010.0)
 
@@ -46,15 +48,16 @@ def stop_after(n):
 
 def test_resume_equals_uninterrupted_run(small_target, tmp_path):
     n_steps = 300
-    whole = Fit(seed=7, max_steps=n_steps, min_steps=n_steps, progress=False).fit(small_target)
+    whole = Fit(seed=7, linear=False, max_steps=n_steps, min_steps=n_steps, progress=False).fit(small_target)
     ckpt = tmp_path / "checkpoint.h5"
-    first = Fit(seed=7, max_steps=n_steps, min_steps=n_steps, progress=False, checkpoint=ckpt)
+    first = Fit(seed=7, linear=False, max_steps=n_steps, min_steps=n_steps, progress=False, checkpoint=ckpt)
     first.fit(small_target, stop_flag=stop_after(120))
     assert first.summary["diagnostics"]["interrupted"]
     assert not first.summary["diagnostics"]["converged"]
     assert first.results.chain.shape[0] == 120
     assert ckpt.is_file()
-    second = Fit(seed=7, max_steps=n_steps, min_steps=n_steps, progress=False, checkpoint=ckpt, resume=True)
+    second = Fit(seed=7, linear=False, max_steps=n_steps, min_steps=n_steps, progress=False, checkpoint=ckpt,
+                 resume=True)
     second.fit(small_target)
     assert second.results.chain.shape == whole.results.chain.shape
     assert np.array_equal(second.results.chain, whole.results.chain)
@@ -63,16 +66,16 @@ def test_resume_equals_uninterrupted_run(small_target, tmp_path):
 
 def test_resume_refuses_other_data(small_target, tmp_path, rng):
     ckpt = tmp_path / "checkpoint.h5"
-    Fit(seed=1, max_steps=200, min_steps=200, progress=False, checkpoint=ckpt).fit(
+    Fit(seed=1, linear=False, max_steps=200, min_steps=200, progress=False, checkpoint=ckpt).fit(
         small_target, stop_flag=stop_after(50))
     other = make_target(tmp_path / "other", TRUTH, rng=rng, t_pos=np.linspace(2001, 2020, 12), pos_err=3.0,
                         distance_toml='parallax = { dist = "normal", mean = "50 mas", sd = "1 mas" }')
     with pytest.raises(Exception, match="checkpoint belongs to other data"):
-        Fit(seed=1, max_steps=200, checkpoint=ckpt, resume=True, progress=False).fit(other)
+        Fit(seed=1, linear=False, max_steps=200, checkpoint=ckpt, resume=True, progress=False).fit(other)
 
 
 def test_save_refuses_non_empty_folder_and_keeps_it(small_target, tmp_path):
-    fit = Fit(seed=2, max_steps=200, min_steps=200, progress=False).fit(small_target)
+    fit = Fit(seed=2, linear=False, max_steps=200, min_steps=200, progress=False).fit(small_target)
     out = tmp_path / "run"
     out.mkdir()
     precious = out / "notes.txt"
@@ -98,7 +101,7 @@ def test_failed_write_leaves_no_half_summary(tmp_path, monkeypatch):
 
 
 def test_save_load_round_trip_exact(small_target, tmp_path):
-    fit = Fit(seed=3, max_steps=300, min_steps=300, progress=False).fit(small_target)
+    fit = Fit(seed=3, linear=False, max_steps=300, min_steps=300, progress=False).fit(small_target)
     out = fit.save(tmp_path / "run")
     for name in ("summary.json", "posterior.h5", "report.md", "corner.png", "orbit.png", "table.tex"):
         assert (out / name).is_file(), name
@@ -128,7 +131,7 @@ def test_cli_refuses_non_empty_out(small_target, tmp_path, capsys):
 def test_cli_sigint_saves_and_resume_continues(small_target, tmp_path):
     out = tmp_path / "run"
     cmd = [sys.executable, "-m", "orbitmass.cli", "fit", str(small_target), "--out", str(out), "--seed", "5",
-           "--max-steps", "200000", "--no-progress"]
+           "--max-steps", "200000", "--no-progress", "--no-fast-path"]
     env = dict(os.environ, MPLBACKEND="Agg")
     proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env, text=True)
     # wait until sampling has written its first checkpoint
@@ -145,7 +148,8 @@ def test_cli_sigint_saves_and_resume_continues(small_target, tmp_path):
     assert summary["diagnostics"]["converged"] is False
     assert (out / "checkpoint.h5").is_file()
     steps_before = summary["diagnostics"]["n_steps"]
-    proc = subprocess.run(cmd[:-3] + ["--max-steps", str(steps_before + 400), "--no-progress", "--resume"],
+    proc = subprocess.run(cmd[:-4] + ["--max-steps", str(steps_before + 400), "--no-progress", "--resume",
+                                      "--no-fast-path"],
                           capture_output=True, text=True, env=env, timeout=300)
     assert proc.returncode in (0, 1), proc.stderr
     summary = json.loads((out / "summary.json").read_text())

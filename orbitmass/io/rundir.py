@@ -65,7 +65,7 @@ def write_json_atomic(obj, path: Path) -> None:
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
-            json.dump(_jsonable(obj), fh, indent=2, allow_nan=True)
+            json.dump(_jsonable(obj), fh, indent=2, allow_nan=False)
             fh.flush()
             os.fsync(fh.fileno())
         _publish(tmp, path)
@@ -76,6 +76,10 @@ def write_json_atomic(obj, path: Path) -> None:
 
 
 def _jsonable(obj):
+    """Plain JSON types; non-finite floats become null so the file is strict JSON."""
+    if isinstance(obj, float | np.floating):
+        value = float(obj)
+        return value if np.isfinite(value) else None
     if isinstance(obj, dict):
         return {str(k): _jsonable(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
