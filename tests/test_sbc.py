@@ -157,8 +157,10 @@ def test_summary_numbers_by_hand():
 
 @pytest.mark.slow
 def test_sbc_small(tmp_path):
-    # 20 fits drawn from the prior, short chains: about 130 CPU-seconds in 2 worker processes
-    result = run_sbc(20, seed=2026, n_draws=19, max_steps=3000, workers=2)
+    # 20 fits drawn from the prior. The step cap (8000) lets nearly every fit reach its own
+    # convergence (typically 1800-2800 steps); a 3000-step cap left some period posteriors
+    # unconverged and over-dispersed, which the rank test flagged (a hump, p = 6e-4).
+    result = run_sbc(20, seed=2026, n_draws=19, max_steps=8000, workers=2)
     assert result["n_failed"] == 0
     assert len(result["records"]) == 20
     for key, res in result["results"].items():
