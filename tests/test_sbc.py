@@ -156,11 +156,6 @@ def test_summary_numbers_by_hand():
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(strict=True, raises=AssertionError,
-                   reason="period posteriors about 7 % too wide with the current DE-move sampler "
-                          "(full SBC, 200 fits, seed 3: 68 % coverage 0.760 +- 0.030, z sd 0.93; "
-                          "validation/README.md); this seeded 20-fit run puts 13 of 20 period "
-                          "ranks in one of four bins (chi2 p = 6e-4)")
 def test_sbc_small(tmp_path):
     # 20 fits drawn from the prior. The step cap (8000) lets every fit reach its own convergence
     # (measured: 20 of 20). With these seeds the period ranks form a hump (bins 3, 12, 3, 2;
