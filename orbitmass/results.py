@@ -22,6 +22,7 @@ from orbitmass.physics import (
     periastron_au,
     periastron_speed_kms,
     schwarzschild_radius_au,
+    semi_amplitude_kms,
     semimajor_axis_au,
 )
 
@@ -152,9 +153,7 @@ def derive_samples(space: ParameterSpace, theta: NDArray[np.float64],
         cols[f"{c}.periastron_rs"] = rp / schwarzschild_radius_au(mass)
         cols[f"{c}.periastron_speed_kms"] = periastron_speed_kms(mass, a_au, e)
         sin_i = np.sqrt(1 - cos_i**2)
-        from orbitmass.units import KMS_PER_AU_PER_YR
-
-        cols[f"{c}.semi_amplitude_kms"] = 2 * math.pi * a_au * sin_i / (p * np.sqrt(1 - e**2)) * KMS_PER_AU_PER_YR
+        cols[f"{c}.semi_amplitude_kms"] = semi_amplitude_kms(a_au, p, np.arccos(cos_i), e)
         if lay.has_q:
             q = phys[f"{c}.q"]
             cols[f"{c}.mass_ratio"] = q
