@@ -22,7 +22,7 @@ sets of the same invented orbit:
 * ``serial``: emcee evaluates all walkers at once through the vectorised
   posterior (``pool=None``, what :class:`orbitmass.fit.Fit` does);
 * ``pool``: an emcee pool, a ``multiprocessing.Pool`` of 2 processes, walkers
-  one by one (:func:`orbitmass.sampler.run_sampler` with ``pool=``; chunks as
+  one by one (:func:`orbitmass.inference.sampler.run_sampler` with ``pool=``; chunks as
   multiprocessing chooses); ``halves``: the same in two chunks;
 * ``split``: the vectorised posterior evaluated in two halves of the walker
   array, one per process of a pool that holds the posterior (two messages
@@ -132,8 +132,8 @@ def _batch(targets: list[Path], out: Path, workers: int, options: dict, products
 
 def _posterior(data: Path, n_epochs: int):
     from orbitmass.io.target import read_target
-    from orbitmass.likelihood import LogPosterior
-    from orbitmass.parameters import ParameterSpace
+    from orbitmass.model.likelihood import LogPosterior
+    from orbitmass.model.parameters import ParameterSpace
 
     # seed 5: the same invented truth whatever n_epochs (drawn first), reference epoch 2020.0
     path = write_example_sample(data / f"pool-{n_epochs}", 1, seed=5, n_epochs=n_epochs)[0]
@@ -147,8 +147,8 @@ def _pool_comparison(data: Path, sizes: tuple[int, ...], steps: int, processes: 
     the larger ones (same invented orbit, same reference epoch), so that the
     timing does not wait for an initialisation on thousands of epochs.
     """
-    from orbitmass.initialise import initialise_walkers
-    from orbitmass.sampler import SamplerOptions, run_sampler
+    from orbitmass.inference.initialise import initialise_walkers
+    from orbitmass.inference.sampler import SamplerOptions, run_sampler
 
     small = _posterior(data, min(sizes))
     n_walkers = max(64, 4 * small.space.ndim)

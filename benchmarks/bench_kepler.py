@@ -3,8 +3,8 @@
 Side by side in one run, on the same random mean anomalies (uniform in
 ``[-pi, pi]``) and eccentricities (uniform in ``[0, 0.99)``):
 
-* :func:`orbitmass.kepler.solve_kepler` (Markley 1995 starter + one
-  fifth-order correction) and :func:`orbitmass.kepler.kepler_cos_sin`;
+* :func:`orbitmass.core.kepler.solve_kepler` (Markley 1995 starter + one
+  fifth-order correction) and :func:`orbitmass.core.kepler.kepler_cos_sin`;
 * a vectorised Newton iteration started at ``E0 = M + e sin M`` and iterated
   over the whole array until ``max |dE| < 1e-12``;
 * a plain scalar Python Newton loop (same start and stopping rule per
@@ -27,7 +27,7 @@ from collections.abc import Callable
 import mpmath
 import numpy as np
 
-from orbitmass.kepler import kepler_cos_sin, solve_kepler
+from orbitmass.core.kepler import kepler_cos_sin, solve_kepler
 
 __all__ = ["run", "newton_vectorised", "newton_scalar"]
 

@@ -5,7 +5,7 @@ line-of-sight velocities at the same ``n`` epochs (so ``n`` positions and
 ``n`` velocities; ``n`` = 90 and 100), for 64 parameter sets scattered about
 the truth:
 
-* ``vectorised``: one call of :class:`orbitmass.likelihood.LogPosterior` on
+* ``vectorised``: one call of :class:`orbitmass.model.likelihood.LogPosterior` on
   the (64, n_dim) block, as emcee calls it with ``vectorize=True``;
 * ``loop``: a Python loop calling the same posterior one parameter set at a
   time (a ``(1, n_dim)`` block per call), as a per-walker sampler would;
@@ -99,8 +99,8 @@ def parameter_sets(post: BaselinePosterior, n_sets: int, rng: np.random.Generato
 def posteriors(problem: Problem):
     """(ParameterSpace, LogPosterior, BaselinePosterior) of a written problem."""
     from orbitmass.io.target import read_target
-    from orbitmass.likelihood import LogPosterior
-    from orbitmass.parameters import ParameterSpace
+    from orbitmass.model.likelihood import LogPosterior
+    from orbitmass.model.parameters import ParameterSpace
 
     space = ParameterSpace(read_target(problem.target))
     return space, LogPosterior(space), BaselinePosterior(problem)

@@ -1,7 +1,7 @@
 """Three reference fits: orbitmass against a plain emcee baseline; a profile of one fit.
 
 Reference problems (invented systems, data simulated with
-:mod:`orbitmass.simulate` from a fixed seed, written to a temporary folder):
+:mod:`orbitmass.demo.simulate` from a fixed seed, written to a temporary folder):
 
 ``covered``
     A star around an invented dark mass, astrometry over about two periods and
@@ -54,7 +54,7 @@ from pathlib import Path
 import emcee
 import numpy as np
 
-from orbitmass.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
+from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
 
 __all__ = [
@@ -381,7 +381,7 @@ class BaselinePosterior:
 def baseline_to_theta(space, post: BaselinePosterior, p: np.ndarray) -> np.ndarray:
     """orbitmass sampled vectors (rows) for baseline vectors ``p`` (rows), same physical points.
 
-    ``space`` is the :class:`orbitmass.parameters.ParameterSpace` of the same
+    ``space`` is the :class:`orbitmass.model.parameters.ParameterSpace` of the same
     target; its single companion must be the problem's.
     """
     p = np.atleast_2d(p)
@@ -510,7 +510,7 @@ def run_orbitmass(problem: Problem, *, seed: int, max_steps: int = 20000) -> dic
 def _fast_path(diag: dict) -> tuple[str, float | None]:
     """Which likelihood path a fit ran, as its diagnostics say, and the Kish ESS fraction if weighted.
 
-    The analytic Thiele-Innes path (:mod:`orbitmass.linear`) reports a
+    The analytic Thiele-Innes path (:mod:`orbitmass.inference.linear`) reports a
     ``method`` and a ``kish_fraction``, at the top level of the diagnostics or
     in a nested block; without them the fit ran the full posterior.
     """

@@ -30,7 +30,7 @@ from benchmarks.bench_likelihood import (
     simulated_problem,
 )
 from benchmarks.bench_problems import CompanionData, Problem, baseline_to_theta, make_problem
-from orbitmass.simulate import TrueOrbit
+from orbitmass.demo.simulate import TrueOrbit
 
 __all__ = ["JOINT_MASS_MSUN", "JOINT_DISTANCE_PC", "JOINT_ORBITS", "joint_problem", "epoch_scaling",
            "companion_scaling", "run"]

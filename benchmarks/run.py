@@ -54,7 +54,7 @@ def _module(name: str):
 
 def _demo_fits(quick: bool) -> dict:
     """Fit the demo's scenarios (seed 1); single-companion fits are compared with the 10 s target."""
-    from orbitmass.demo import write_scenarios
+    from orbitmass.demo.run import write_scenarios
     from orbitmass.fit import Fit
 
     out = {}

@@ -11,19 +11,23 @@ the enclosed mass, the distance and every orbital element.
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
+from orbitmass._version import __version__  # noqa: E402
 
 from orbitmass.exceptions import (  # noqa: E402
     ConvergenceWarning,
     DegeneracyWarning,
     InputError,
     NotFittedError,
+    OrbitmassDeprecationWarning,
     OrbitmassError,
     RunFolderError,
 )
 from orbitmass.fit import Fit, load  # noqa: E402
 from orbitmass.io.target import read_target  # noqa: E402
 from orbitmass.results import Results  # noqa: E402
+from orbitmass import _compat  # noqa: E402
+
+_compat.install()
 
 __all__ = [
     "__version__",
@@ -37,4 +41,5 @@ __all__ = [
     "RunFolderError",
     "ConvergenceWarning",
     "DegeneracyWarning",
+    "OrbitmassDeprecationWarning",
 ]

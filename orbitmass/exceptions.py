@@ -74,3 +74,7 @@ class ConvergenceWarning(OrbitmassWarning):
 
 class DegeneracyWarning(OrbitmassWarning):
     """The data cannot separate two solutions (e.g. the (omega, Omega) ambiguity)."""
+
+
+class OrbitmassDeprecationWarning(OrbitmassWarning, DeprecationWarning):
+    """An old name or module path that still works but will be removed in the next release."""

@@ -20,7 +20,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from orbitmass.data import Target
+from orbitmass.model.data import Target
 from orbitmass.exceptions import InputError, NotFittedError
 from orbitmass.results import COLUMN_DOC, Results, derive_samples, quantile_block
 
@@ -128,9 +128,9 @@ class Fit:
     max_periods : int
         Period grid points per companion in the initial linear search.
     linear : bool
-        Use the astrometry-only fast path of :mod:`orbitmass.linear` when it
+        Use the astrometry-only fast path of :mod:`orbitmass.inference.linear` when it
         applies (one companion, east/north positions only, default orientation
-        priors; see :func:`orbitmass.linear.applies`): the Thiele-Innes
+        priors; see :func:`orbitmass.inference.linear.applies`): the Thiele-Innes
         constants are integrated out, three variables are sampled, and the
         draws are importance-weighted to the same posterior. It takes seconds
         and writes no checkpoint; not used when resuming.
@@ -175,10 +175,10 @@ class Fit:
         InputError
             On malformed input (nothing is sampled).
         """
-        from orbitmass.initialise import initialise_walkers
-        from orbitmass.likelihood import LogPosterior
-        from orbitmass.parameters import ParameterSpace
-        from orbitmass.sampler import SamplerOptions, run_sampler
+        from orbitmass.inference.initialise import initialise_walkers
+        from orbitmass.model.likelihood import LogPosterior
+        from orbitmass.model.parameters import ParameterSpace
+        from orbitmass.inference.sampler import SamplerOptions, run_sampler
 
         t0 = time.perf_counter()
         if not isinstance(target, Target):
@@ -271,7 +271,7 @@ class Fit:
 
     def _fit_linear(self, space, rng, options, stop_flag):
         """The astrometry-only fast path, or None when it does not apply or its weights are poor."""
-        from orbitmass.linear import LinearPathError, applies, fit_linear
+        from orbitmass.inference.linear import LinearPathError, applies, fit_linear
 
         if not applies(space):
             return None
@@ -291,7 +291,7 @@ class Fit:
     @staticmethod
     def _summary(target, space, samples, run, init, seed, wall) -> dict:
         from orbitmass import __version__
-        from orbitmass.diagnostics import walker_modes
+        from orbitmass.core.diagnostics import walker_modes
 
         derived = {}
         for col in samples.columns:
@@ -387,20 +387,20 @@ class Fit:
         return pd.DataFrame(rows).set_index("quantity")
 
     def corner(self, **kwargs):
-        """Corner plot of the key parameters (see :func:`orbitmass.plots.corner_figure`)."""
-        from orbitmass.plots import corner_figure
+        """Corner plot of the key parameters (see :func:`orbitmass.outputs.plots.corner_figure`)."""
+        from orbitmass.outputs.plots import corner_figure
 
         return corner_figure(self.results, **kwargs)
 
     def plot_orbit(self, **kwargs):
-        """Sky-plane orbits, velocities and residuals (see :func:`orbitmass.plots.orbit_figure`)."""
-        from orbitmass.plots import orbit_figure
+        """Sky-plane orbits, velocities and residuals (see :func:`orbitmass.outputs.plots.orbit_figure`)."""
+        from orbitmass.outputs.plots import orbit_figure
 
         return orbit_figure(self.results, **kwargs)
 
     def plot_trace(self, **kwargs):
-        """Walker traces (see :func:`orbitmass.plots.trace_figure`)."""
-        from orbitmass.plots import trace_figure
+        """Walker traces (see :func:`orbitmass.outputs.plots.trace_figure`)."""
+        from orbitmass.outputs.plots import trace_figure
 
         return trace_figure(self.results, **kwargs)
 

@@ -16,9 +16,9 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from orbitmass.data import Target
-from orbitmass.parameters import ParameterSpace
-from orbitmass.physics import (
+from orbitmass.model.data import Target
+from orbitmass.model.parameters import ParameterSpace
+from orbitmass.core.physics import (
     periastron_au,
     periastron_speed_kms,
     schwarzschild_radius_au,
@@ -99,7 +99,7 @@ def derive_samples(space: ParameterSpace, theta: NDArray[np.float64],
     straddle the 0/360 deg cut); with the (omega, Omega) ambiguity Omega is
     reported on a half turn. Columns are listed in :data:`COLUMN_DOC`.
     """
-    from orbitmass.model import thiele_innes
+    from orbitmass.core.orbit import thiele_innes
 
     phys = space.unpack(theta)
     cols: dict[str, NDArray[np.float64]] = {}
@@ -235,7 +235,7 @@ class Results:
             (barycentric, systemic included, no instrument offset), each of
             shape (n_rows, n_epochs).
         """
-        from orbitmass.likelihood import LogPosterior
+        from orbitmass.model.likelihood import LogPosterior
 
         theta = self.theta if rows is None else self.theta[rows]
         post = LogPosterior(self.space)

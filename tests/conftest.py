@@ -8,7 +8,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from orbitmass.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
+from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 
 
 def make_target(folder: Path, truth: TrueOrbit, *, rng: np.random.Generator, t_pos=None, t_rv=None,

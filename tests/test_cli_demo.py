@@ -10,7 +10,7 @@ import pytest
 
 from orbitmass import Fit
 from orbitmass.cli import build_parser, main
-from orbitmass.demo import write_scenarios
+from orbitmass.demo.run import write_scenarios
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 

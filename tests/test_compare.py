@@ -17,7 +17,7 @@ External references used (named again beside each check):
 - astropy.units for mass-unit conversions.
 
 The joint-refit tests fit two invented stars around one invented dark mass (simulated
-with orbitmass.simulate, a different formulation from the fitted model); they are marked
+with orbitmass.demo.simulate, a different formulation from the fitted model); they are marked
 slow.
 """
 
@@ -48,7 +48,7 @@ from orbitmass.compare import (
 )
 from orbitmass.exceptions import InputError, RunFolderError
 from orbitmass.io.target import read_target
-from orbitmass.simulate import TrueOrbit
+from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.units import RS_AU_PER_MSUN
 
 from .conftest import make_target

@@ -3,7 +3,7 @@ orbitmass error; none crashes, and no quantile in the summary is NaN.
 
 Cases: a single epoch; all epochs at one orbital phase; e near 1; face-on and edge-on
 orbits; a period fifty times the baseline. Data are simulated with
-:mod:`orbitmass.simulate` (true anomaly and explicit rotations, independent of the fitted
+:mod:`orbitmass.demo.simulate` (true anomaly and explicit rotations, independent of the fitted
 Thiele-Innes model) for invented systems.
 
 "Honest" (common practice, no source): the central 95 % interval of the total mass (and
@@ -36,7 +36,7 @@ import pytest
 from orbitmass import Fit
 from orbitmass.cli import main
 from orbitmass.exceptions import OrbitmassError
-from orbitmass.simulate import TrueOrbit
+from orbitmass.demo.simulate import TrueOrbit
 
 from .conftest import make_target
 

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from orbitmass import diagnostics
+from orbitmass.core import diagnostics
 
 
 def ar1(rng, phi, n_steps, n_chains, mean=0.0):

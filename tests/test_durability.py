@@ -19,7 +19,7 @@ import pytest
 from orbitmass import Fit, RunFolderError, load
 from orbitmass.cli import main
 from orbitmass.io import rundir
-from orbitmass.simulate import TrueOrbit
+from orbitmass.demo.simulate import TrueOrbit
 
 from .conftest import make_target
 

@@ -1,4 +1,4 @@
-"""Tests of orbitmass.elements: Campbell <-> Thiele-Innes and the orientation conventions.
+"""Tests of orbitmass.core.elements: Campbell <-> Thiele-Innes and the orientation conventions.
 
 External references used:
 - the orbit orientation as the rotation Rz(Omega) Rx(i) Rz(omega) of the orbital-plane
@@ -22,7 +22,7 @@ from hypothesis import strategies as st
 from scipy.optimize import brentq
 from scipy.spatial.transform import Rotation
 
-from orbitmass.elements import (
+from orbitmass.core.elements import (
     campbell_to_thiele_innes,
     thiele_innes_jacobian_log,
     thiele_innes_to_campbell,

@@ -1,6 +1,6 @@
 """Seeded recovery of known masses from simulated orbits (the main job, end to end).
 
-The data are drawn with :mod:`orbitmass.simulate`, which uses the true anomaly and
+The data are drawn with :mod:`orbitmass.demo.simulate`, which uses the true anomaly and
 explicit rotations, a different formulation from the fitted Thiele-Innes model.
 Pass criterion: the invented true mass lies inside the 95% posterior interval
 (common practice, no source), for seeded data, so the test is repeatable.
@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 
 from orbitmass import Fit
-from orbitmass.simulate import TrueOrbit
+from orbitmass.demo.simulate import TrueOrbit
 
 from .conftest import make_target
 

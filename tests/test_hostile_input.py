@@ -31,7 +31,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from orbitmass.cli import main
-from orbitmass.elements import campbell_to_thiele_innes, thiele_innes_to_campbell
+from orbitmass.core.elements import campbell_to_thiele_innes, thiele_innes_to_campbell
 from orbitmass.exceptions import InputError
 from orbitmass.io.tables import astrometry_from_bytes, velocities_from_bytes
 from orbitmass.io.target import read_target

@@ -18,10 +18,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from orbitmass.data import Target
+from orbitmass.model.data import Target
 from orbitmass.exceptions import InputError
 from orbitmass.io.target import read_target
-from orbitmass.priors import FAMILIES, Fixed, Isotropic, LogUniform, Normal, TruncNormal, Uniform
+from orbitmass.model.priors import FAMILIES, Fixed, Isotropic, LogUniform, Normal, TruncNormal, Uniform
 
 POS = "jyear,east_mas,north_mas,east_err_mas,north_err_mas\n2018,1,2,0.1,0.1\n2020,2,3,0.1,0.1\n"
 RV = "jyear,rv_kms,rv_err_kms\n2019,10,1\n2023,12,1\n"

@@ -1,6 +1,6 @@
 """Joint fits: several companions, absolute frame, both bodies' velocities, redshift.
 
-Data come from :mod:`orbitmass.simulate` (true anomaly and explicit rotations),
+Data come from :mod:`orbitmass.demo.simulate` (true anomaly and explicit rotations),
 with the absolute-frame drift and instrument offsets added here by hand: an
 independent formulation of what the fitted model computes. Pass criterion:
 the invented truth inside the 95% interval (common practice, no source).
@@ -19,7 +19,7 @@ from scipy import integrate
 
 from orbitmass import Fit, read_target
 from orbitmass.fit import redshift_distance_pc
-from orbitmass.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
+from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 
 
 def inside95(block, value):

@@ -1,4 +1,4 @@
-"""Tests of orbitmass.kepler: Kepler's equation and the anomalies.
+"""Tests of orbitmass.core.kepler: Kepler's equation and the anomalies.
 
 External references used:
 - Meeus, *Astronomical Algorithms* (2nd ed., 1998), ch. 30, Example 30.a (e = 0.1,
@@ -21,7 +21,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from orbitmass.kepler import (
+from orbitmass.core.kepler import (
     eccentric_to_true,
     kepler_cos_sin,
     mean_to_true,

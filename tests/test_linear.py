@@ -1,4 +1,4 @@
-"""The astrometry-only fast path (orbitmass.linear) against independent computations.
+"""The astrometry-only fast path (orbitmass.inference.linear) against independent computations.
 
 * the flat-prior marginal likelihood against scipy's multivariate normal (the
   exact Gaussian integral as the limit of a wide Gaussian prior) and numpy's
@@ -22,9 +22,9 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-from orbitmass.elements import campbell_to_thiele_innes, thiele_innes_jacobian_log, thiele_innes_to_campbell
+from orbitmass.core.elements import campbell_to_thiele_innes, thiele_innes_jacobian_log, thiele_innes_to_campbell
 from orbitmass.io.target import read_target
-from orbitmass.linear import (
+from orbitmass.inference.linear import (
     SIN2_FLOOR,
     LinearAstrometryPosterior,
     LinearPathError,
@@ -36,9 +36,9 @@ from orbitmass.linear import (
     pareto_khat,
     systematic_resample,
 )
-from orbitmass.parameters import ParameterSpace
-from orbitmass.physics import mass_msun
-from orbitmass.simulate import TrueOrbit
+from orbitmass.model.parameters import ParameterSpace
+from orbitmass.core.physics import mass_msun
+from orbitmass.demo.simulate import TrueOrbit
 
 from .conftest import make_target
 
@@ -86,7 +86,7 @@ def tiny(tmp_path):
 
 
 def _kepler_reference(mean: float, ecc: float) -> float:
-    """E from M by bracketed root finding (scipy brentq), independent of orbitmass.kepler."""
+    """E from M by bracketed root finding (scipy brentq), independent of orbitmass.core.kepler."""
     m = math.remainder(mean, 2 * math.pi)
     return optimize.brentq(lambda x: x - ecc * math.sin(x) - m, -math.pi - 1, math.pi + 1, xtol=1e-15)
 
@@ -247,22 +247,22 @@ def test_shape_factor_is_the_mean_weight_over_the_common_draws(tiny):
         a, inc, w, node = thiele_innes_to_campbell(*draws.T)
         mass = mass_msun(a * post.d_draws / 1000.0, period)
         log_g = post.log_weight(mass, a, inc, w, node)  # inside the wide mass prior: no clipping
-        # the surrogate replaces sin^2 i by sin^2 i + SIN2_FLOOR (orbitmass.linear, choice 2)
+        # the surrogate replaces sin^2 i by sin^2 i + SIN2_FLOOR (orbitmass.inference.linear, choice 2)
         log_g += np.log(np.sin(inc) ** 2 / (np.sin(inc) ** 2 + SIN2_FLOOR))
         ref = float(np.log(np.mean(np.exp(log_g))))
         assert float(got[row]) == pytest.approx(ref, abs=1e-8)
 
 
 def test_fast_target_is_the_full_posterior_in_other_variables(tiny):
-    """The fast path's joint target equals orbitmass.likelihood.LogPosterior up to the Jacobian.
+    """The fast path's joint target equals orbitmass.model.likelihood.LogPosterior up to the Jacobian.
 
     In the variables (ln P, sqrt(e) cos M0, sqrt(e) sin M0, A, B, F, G, d) the fast path
     targets prior3 x L(beta) x p(d) x g. Mapped back to the sampled variables of the
     normal path with a finite-difference Jacobian (change of variables), it must differ
     from the normal path's log posterior by one constant at every point.
     """
-    from orbitmass.likelihood import LogPosterior
-    from orbitmass.model import thiele_innes
+    from orbitmass.model.likelihood import LogPosterior
+    from orbitmass.core.orbit import thiele_innes
 
     space, post = tiny
     full = LogPosterior(space)
@@ -386,7 +386,7 @@ def test_pareto_shape_of_known_tails():
 
 def test_fit_linear_on_a_well_covered_orbit(tmp_path, rng):
     """End to end on a full orbit: the importance-sampling branch, the run layout, the truth recovered."""
-    from orbitmass.sampler import SamplerOptions
+    from orbitmass.inference.sampler import SamplerOptions
 
     truth = TrueOrbit(mass_msun=2.3, distance_pc=25.0, period_yr=30.0, eccentricity=0.35, inclination_deg=120.0,
                       arg_periastron_deg=250.0, ascending_node_deg=300.0, periastron_time=2001.0)
@@ -431,17 +431,17 @@ def _ess(run, space, name):
 def test_fast_path_matches_direct_sampling(tmp_path):
     """Fast path and plain sampler of all elements agree; without the prior correction they do not.
 
-    Needs an unbiased ensemble move mix in orbitmass.sampler.default_moves: emcee 3.1.6's
+    Needs an unbiased ensemble move mix in orbitmass.inference.sampler.default_moves: emcee 3.1.6's
     DESnookerMove applies half the Hastings factor (ter Braak & Vrugt 2008, Stat. Comput.
     18, 435, give (|x* - z| / |x - z|)^(d - 1); emcee uses the square root of it); alone
     on an 8-D Gaussian it returns standard deviations 0.81 of the true ones (measured), and
     at 20 % of the mix both paths come out narrow, the 8-D one more, by about 3 standard
     errors in the mass quantiles here. With DEMove alone this test passes.
     """
-    from orbitmass.initialise import initialise_walkers
-    from orbitmass.likelihood import LogPosterior
+    from orbitmass.inference.initialise import initialise_walkers
+    from orbitmass.model.likelihood import LogPosterior
     from orbitmass.results import derive_samples
-    from orbitmass.sampler import SamplerOptions, run_sampler
+    from orbitmass.inference.sampler import SamplerOptions, run_sampler
 
     path = _partial_orbit(tmp_path / "arc")
     options = SamplerOptions(progress=False)
@@ -541,7 +541,7 @@ def _quadrature_quantiles(post_shape, post_flat, lnp, probs):
 def test_fast_path_matches_quadrature(tmp_path):
     """Period and eccentricity of the fast path against numerical integration of the same posterior."""
     from orbitmass.results import derive_samples
-    from orbitmass.sampler import SamplerOptions
+    from orbitmass.inference.sampler import SamplerOptions
 
     path = _partial_orbit(tmp_path / "arc")
     space = ParameterSpace(read_target(path))

@@ -1,4 +1,4 @@
-"""Tests of orbitmass.physics: Kepler III, Schwarzschild radius, velocities, relativity.
+"""Tests of orbitmass.core.physics: Kepler III, Schwarzschild radius, velocities, relativity.
 
 External references used (values as listed, with status, in /work/shared/references.md):
 - IAU 2015 Resolution B3 nominal GM_sun, IAU 2012 au, IAU 1976 Gaussian constant k;
@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 from astropy import constants as const
 
-from orbitmass.physics import (
+from orbitmass.core.physics import (
     apoastron_au,
     au_to_mas,
     gr_periastron_advance_deg_per_orbit,

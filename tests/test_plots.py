@@ -1,4 +1,4 @@
-"""Tests of orbitmass.plots and orbitmass.style: structure of the returned figures and files.
+"""Tests of orbitmass.outputs.plots and orbitmass.outputs.style: structure of the returned figures and files.
 
 External references used:
 - the sky-plane convention (east = increasing right ascension to the left, north up) is
@@ -25,11 +25,11 @@ import numpy as np
 import pytest
 from matplotlib.figure import Figure
 
-from orbitmass import plots
+from orbitmass.outputs import plots
 from orbitmass.exceptions import InputError
-from orbitmass.reports import format_value
+from orbitmass.outputs.reports import format_value
 from orbitmass.results import QUANTILES
-from orbitmass.style import PALETTE, figure_size, save_figure, style_context, write_atomic
+from orbitmass.outputs.style import PALETTE, figure_size, save_figure, style_context, write_atomic
 
 try:  # the posterior builder lives beside this file
     from .test_reports import make_results
@@ -59,7 +59,7 @@ def _lines_with_points(ax, min_points: int) -> int:
 def test_import_changes_no_global_setting():
     code = (
         "import matplotlib; before = dict(matplotlib.rcParams); "
-        "import orbitmass.style, orbitmass.plots; "
+        "import orbitmass.outputs.style, orbitmass.outputs.plots; "
         "after = dict(matplotlib.rcParams); "
         "print(sorted(k for k in before if str(before[k]) != str(after[k])))"
     )
@@ -336,7 +336,7 @@ def test_orbit_figure_absolute_frame(tmp_path):
 @pytest.mark.slow
 def test_figures_and_reports_of_a_real_fit(tmp_path):
     from orbitmass import Fit
-    from orbitmass.reports import write_report, write_tables
+    from orbitmass.outputs.reports import write_report, write_tables
 
     try:
         from .test_reports import _write_wide

@@ -1,4 +1,4 @@
-"""Tests of orbitmass.reports: number formatting, results table, LaTeX/CSV/Markdown/HTML files.
+"""Tests of orbitmass.outputs.reports: number formatting, results table, LaTeX/CSV/Markdown/HTML files.
 
 External references used:
 - the rounding rule (two significant digits on the smaller error, value to the same decimal
@@ -10,7 +10,7 @@ External references used:
 - headless Chromium, when installed, to render report.html offline.
 
 The posterior used here is not a fit: invented data are simulated with
-orbitmass.simulate (true anomaly and explicit rotations), and ~500 samples are drawn as a
+orbitmass.demo.simulate (true anomaly and explicit rotations), and ~500 samples are drawn as a
 small Gaussian cloud around the invented truth, then derived with
 orbitmass.results.derive_samples.
 """
@@ -31,8 +31,8 @@ import pandas as pd
 import pytest
 
 from orbitmass.io.target import read_target
-from orbitmass.parameters import ParameterSpace
-from orbitmass.reports import (
+from orbitmass.model.parameters import ParameterSpace
+from orbitmass.outputs.reports import (
     Measurement,
     choose_exponent,
     format_value,
@@ -44,7 +44,7 @@ from orbitmass.reports import (
     write_tables,
 )
 from orbitmass.results import Results, derive_samples, quantile_block
-from orbitmass.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
+from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 
 # --------------------------------------------------------------------------- test posterior
 
@@ -616,7 +616,7 @@ class _Tags(HTMLParser):
 def _figure(tmp_path: Path) -> Path:
     from matplotlib.figure import Figure
 
-    from orbitmass.style import save_figure
+    from orbitmass.outputs.style import save_figure
 
     fig = Figure(figsize=(2, 1.5))
     ax = fig.add_subplot()

@@ -3,7 +3,7 @@
 A correlated 8-D Gaussian with known covariance: the retained samples must
 reproduce the standard deviations and the 68 % central coverage within Monte
 Carlo error. This caught a move that shrinks posteriors (emcee 3.1.6's
-DESnookerMove, see orbitmass.sampler).
+DESnookerMove, see orbitmass.inference.sampler).
 """
 
 from __future__ import annotations
@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from orbitmass.sampler import SamplerOptions, run_sampler
+from orbitmass.inference.sampler import SamplerOptions, run_sampler
 
 
 class Gaussian:

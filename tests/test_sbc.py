@@ -21,7 +21,7 @@ import pytest
 from scipy import stats
 
 from orbitmass.io.target import read_target
-from orbitmass.priors import Isotropic, LogUniform, Normal, Uniform
+from orbitmass.model.priors import Isotropic, LogUniform, Normal, Uniform
 from validation.sbc import (
     INTERVALS,
     QUANTITIES,

@@ -27,7 +27,7 @@ mean anomaly at 2010   uniform over the circle (default)              U(0, 2 pi)
 
 Data: 16 positions (east, north; 3 mas errors) and 10 velocities (1 km/s
 errors) at random epochs over 2000-2020, i.e. 1.25 to 2.5 orbits, simulated
-with :func:`orbitmass.simulate.simulate` (true anomaly and explicit rotations,
+with :func:`orbitmass.demo.simulate.simulate` (true anomaly and explicit rotations,
 a formulation independent of the fitted Thiele-Innes model) plus Gaussian
 noise of the stated errors.
 
@@ -66,7 +66,7 @@ from pathlib import Path
 import numpy as np
 from scipy import stats
 
-from orbitmass.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
+from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 
 __all__ = ["Design", "QUANTITIES", "target_toml", "draw_truth", "write_dataset", "rank_of",
            "fit_one", "summarise", "run_sbc", "plot_ranks", "format_table", "main"]
@@ -362,11 +362,11 @@ def plot_ranks(result: dict, path_without_suffix: str | Path) -> list[Path]:
 
     The grey band is the 0.5-99.5 % range of a bin count under uniform ranks,
     ``Binomial(n, 1 / n_bins)`` (as in Talts et al. 2018, Fig. 1). Written as
-    PNG and PDF with :func:`orbitmass.style.save_figure`.
+    PNG and PDF with :func:`orbitmass.outputs.style.save_figure`.
     """
     from matplotlib.figure import Figure
 
-    from orbitmass.style import PALETTE, figure_size, save_figure, style_context
+    from orbitmass.outputs.style import PALETTE, figure_size, save_figure, style_context
 
     n_draws = result["settings"]["n_draws"]
     with style_context():
@@ -440,7 +440,7 @@ def main(argv: list[str] | None = None) -> int:
     out.mkdir(parents=True, exist_ok=True)
     result = run_sbc(n_fits, seed=args.seed, n_draws=n_draws, max_steps=max_steps,
                      workers=args.workers, work_dir=out / "fits" if args.keep else None)
-    from orbitmass.style import write_atomic
+    from orbitmass.outputs.style import write_atomic
 
     write_atomic(out / "sbc.json", json.dumps(result, indent=1, default=float) + "\n")
     plot_ranks(result, out / "sbc_ranks")

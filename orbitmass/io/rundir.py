@@ -37,9 +37,9 @@ import h5py
 import numpy as np
 import pandas as pd
 
-from orbitmass.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
+from orbitmass.model.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
 from orbitmass.exceptions import RunFolderError
-from orbitmass.priors import FAMILIES, Prior
+from orbitmass.model.priors import FAMILIES, Prior
 
 __all__ = ["save_run", "load_run", "write_products", "write_json_atomic", "is_complete_run"]
 
@@ -196,7 +196,7 @@ def write_posterior(results, path: Path) -> None:
 def load_run(run_dir: Path):
     """Rebuild :class:`~orbitmass.results.Results` from a run folder."""
     from orbitmass.fit import redshift_distance_pc
-    from orbitmass.parameters import ParameterSpace
+    from orbitmass.model.parameters import ParameterSpace
     from orbitmass.results import Results
 
     run_dir = Path(run_dir)
@@ -237,8 +237,8 @@ def write_products(results, out_dir: Path) -> Path:
     matplotlib.use("Agg", force=False)
     import matplotlib.pyplot as plt
 
-    from orbitmass import plots, reports
-    from orbitmass.style import save_figure
+    from orbitmass.outputs import plots, reports
+    from orbitmass.outputs.style import save_figure
 
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)

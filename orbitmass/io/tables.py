@@ -48,7 +48,7 @@ import numpy as np
 from astropy.time import Time
 from numpy.typing import NDArray
 
-from orbitmass.data import Astrometry, Velocities
+from orbitmass.model.data import Astrometry, Velocities
 from orbitmass.exceptions import InputError
 from orbitmass.units import DAYS_PER_YEAR, JD_J2000
 
@@ -430,7 +430,7 @@ def astrometry_from_bytes(data: bytes, source: str) -> Astrometry:
 
 
 def read_astrometry(path: str | os.PathLike[str]) -> Astrometry:
-    """Read a position table (CSV) into an :class:`~orbitmass.data.Astrometry`.
+    """Read a position table (CSV) into an :class:`~orbitmass.model.data.Astrometry`.
 
     Parameters
     ----------
@@ -514,7 +514,7 @@ def velocities_from_bytes(data: bytes, source: str) -> Velocities:
 
 
 def read_velocities(path: str | os.PathLike[str]) -> Velocities:
-    """Read a line-of-sight velocity table (CSV) into a :class:`~orbitmass.data.Velocities`.
+    """Read a line-of-sight velocity table (CSV) into a :class:`~orbitmass.model.data.Velocities`.
 
     Parameters
     ----------

@@ -2,7 +2,7 @@
 
 :func:`read_target` parses the file with :mod:`tomllib` (no code is
 executed), reads every table it names (paths relative to the target file)
-and returns one validated :class:`~orbitmass.data.Target` with every prior
+and returns one validated :class:`~orbitmass.model.data.Target` with every prior
 filled in. Every error is one :class:`~orbitmass.exceptions.InputError` that
 names the file and the dotted key, or the table file and its line.
 
@@ -74,7 +74,7 @@ from typing import Any
 import astropy.units as u
 import numpy as np
 
-from orbitmass.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
+from orbitmass.model.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
 from orbitmass.exceptions import InputError
 from orbitmass.io.tables import (
     DEFAULT_INSTRUMENT,
@@ -83,7 +83,7 @@ from orbitmass.io.tables import (
     load_bytes,
     velocities_from_bytes,
 )
-from orbitmass.priors import FAMILIES, Fixed, Isotropic, LogUniform, Prior, Uniform
+from orbitmass.model.priors import FAMILIES, Fixed, Isotropic, LogUniform, Prior, Uniform
 from orbitmass.units import DAYS_PER_YEAR, parse_quantity
 
 __all__ = ["read_target", "parse_prior", "DEFAULT_PRIORS"]

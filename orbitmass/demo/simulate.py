@@ -20,8 +20,8 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.kepler import mean_to_true
-from orbitmass.physics import semimajor_axis_au
+from orbitmass.core.kepler import mean_to_true
+from orbitmass.core.physics import semimajor_axis_au
 from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["TrueOrbit", "simulate", "write_positions_csv", "write_velocities_csv"]

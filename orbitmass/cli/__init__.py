@@ -152,7 +152,7 @@ def _cmd_fit(args) -> int:
 
 
 def _cmd_demo(args) -> int:
-    from orbitmass.demo import run_demo
+    from orbitmass.demo.run import run_demo
 
     results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
                        progress=False if args.no_progress else None)

@@ -12,7 +12,7 @@ that can be integrated exactly, and the sampler needs only three dimensions.
 This is the separation of Lucy (2014, A&A 563, A126): linear least squares in
 the Thiele-Innes constants for fixed ``P, e, T``. What follows keeps the
 posterior the one stated in the target file (the same as
-:class:`~orbitmass.likelihood.LogPosterior` samples), by importance weights.
+:class:`~orbitmass.model.likelihood.LogPosterior` samples), by importance weights.
 
 When it applies (:func:`applies`)
 ---------------------------------
@@ -28,7 +28,7 @@ Sampled variables
 -----------------
 ``theta = (ln P, sqrt(e) cos M0, sqrt(e) sin M0)`` with ``P`` the rest-frame
 period (yr) and ``M0`` the mean anomaly at the reference epoch (rad). As for
-the eccentricity vector of :class:`~orbitmass.parameters.ParameterSpace`, a
+the eccentricity vector of :class:`~orbitmass.model.parameters.ParameterSpace`, a
 uniform density on the unit disc is uniform in ``e`` and ``M0`` (Jacobian 2);
 the polar form has no wall at ``e = 0``, where ``M0`` is undefined (a circular
 orbit's phase is absorbed into ``beta``), and no angle window to manage.
@@ -53,7 +53,7 @@ For every retained ``(P, e, M0)``: draw ``beta ~ N(beta_hat, N^-1)`` (its
 conditional under the flat prior) and the distance ``d`` from its prior (with
 positions only, ``d`` enters the data only through ``beta``, i.e. through the
 mass); convert ``beta -> (a_mas, i, omega, Omega)`` with
-:func:`~orbitmass.elements.thiele_innes_to_campbell` (``Omega`` in ``[0, pi)``,
+:func:`~orbitmass.core.elements.thiele_innes_to_campbell` (``Omega`` in ``[0, pi)``,
 the half-turn node window ParameterSpace uses without line-of-sight data) and
 get the mass from Kepler III with ``a_au = a_mas d / 1000``. The proposal
 density of ``(P, e, M0, beta, d)`` is then ``pi Z_flat h N(beta) p(d) /
@@ -65,7 +65,7 @@ point, written in ``(beta, d)`` instead of ``(M, i, omega, Omega)``, is
       = p_M(M) (3 M / a_mas) (sin i / 2) (2 / (4 pi^2)) / (a_mas^3 sin^3 i)
 
 (``|dM/da_mas| = 3 M / a_mas`` at fixed ``P`` and ``d``; the Jacobian
-``a^3 sin^3 i`` is :func:`~orbitmass.elements.thiele_innes_jacobian_log`; the
+``a^3 sin^3 i`` is :func:`~orbitmass.core.elements.thiele_innes_jacobian_log`; the
 sum runs over ``(omega, Omega)`` and ``(omega + pi, Omega + pi)``, which give the
 same ``beta``; ``g = 0`` outside the mass prior's support). The importance
 weight of a draw is ``w = g / h``. Weighted draws are turned into equally
@@ -126,7 +126,7 @@ Choices
    Vehtari et al. 2024, JMLR 25, 72, call a shape below 0.7 reliable) and the
    Kish ESS is at least 30 % of the draws and ``min_ess``; that is the
    near-Gaussian posterior of a well-covered orbit. Otherwise the ensemble
-   sampler of :mod:`orbitmass.sampler` runs on the three variables (partial
+   sampler of :mod:`orbitmass.inference.sampler` runs on the three variables (partial
    arcs: curved, long-tailed posteriors). Both feed the same expansion.
 
 Measured caveats
@@ -138,7 +138,7 @@ Measured caveats
   posterior, against 67-86 yr from the ensemble sampler on the three
   variables and 56 yr from the sampler on all eight: ensemble moves enter
   such funnels slowly, whichever path is used.
-* emcee 3.1.6's ``DESnookerMove`` (20 % of :func:`orbitmass.sampler.default_moves`)
+* emcee 3.1.6's ``DESnookerMove`` (20 % of :func:`orbitmass.inference.sampler.default_moves`)
   applies half the Hastings factor of the snooker update (ter Braak & Vrugt
   2008, Stat. Comput. 18, 435); alone on an 8-D Gaussian it returns
   standard deviations 0.81 of the true ones. At 20 % of the mix, posteriors
@@ -159,12 +159,12 @@ import time
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass import diagnostics
-from orbitmass.elements import thiele_innes_jacobian_log, thiele_innes_to_campbell
-from orbitmass.kepler import kepler_cos_sin
-from orbitmass.parameters import ParameterSpace
-from orbitmass.physics import mass_msun as kepler_mass
-from orbitmass.priors import Isotropic, Uniform
+from orbitmass.core import diagnostics
+from orbitmass.core.elements import thiele_innes_jacobian_log, thiele_innes_to_campbell
+from orbitmass.core.kepler import kepler_cos_sin
+from orbitmass.model.parameters import ParameterSpace
+from orbitmass.core.physics import mass_msun as kepler_mass
+from orbitmass.model.priors import Isotropic, Uniform
 
 __all__ = [
     "LinearPathError",
@@ -638,16 +638,16 @@ def initialise_linear(post: LinearAstrometryPosterior, n_walkers: int, rng: np.r
                       max_periods: int = 3000, max_evals: int = 2000):
     """Grid search in (P, e, M0), polish, and scatter walkers, on the 3-D posterior.
 
-    Same method as :func:`orbitmass.initialise.initialise_walkers` (its period
+    Same method as :func:`orbitmass.inference.initialise.initialise_walkers` (its period
     grid, optimiser and Laplace covariance), with the linear constants solved
     exactly at every grid point.
 
     Returns
     -------
-    orbitmass.initialise.InitialSolution
+    orbitmass.inference.initialise.InitialSolution
         Walkers, best point and value in the 3-D variables, competing modes.
     """
-    from orbitmass.initialise import InitialSolution, _hessian_cov, _period_grid, _polish
+    from orbitmass.inference.initialise import InitialSolution, _hessian_cov, _period_grid, _polish
 
     lo, hi = post.ecc_prior.support
     eccs = [e for e in (0.0, 0.2, 0.4, 0.6, 0.75, 0.85, 0.92, 0.96) if lo <= e <= min(hi, 0.97)]
@@ -759,7 +759,7 @@ def _chain_diagnostics(kept: NDArray[np.float64]) -> tuple[NDArray, NDArray, NDA
 def _weighted_result(space: ParameterSpace, theta: NDArray[np.float64], log_w: NDArray[np.float64],
                      rng: np.random.Generator) -> dict:
     """Angle windows, Kish ESS, systematic resample and the full log posterior of weighted draws."""
-    from orbitmass.likelihood import LogPosterior
+    from orbitmass.model.likelihood import LogPosterior
 
     ok = np.isfinite(log_w)
     space.set_centres(theta[ok] if ok.any() else theta)
@@ -788,7 +788,7 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     at least ``options.min_ess`` and :data:`IS_MIN_KISH_FRACTION` of the draws
     (a near-Gaussian posterior: a well-covered orbit). Otherwise, and always
     with ``method="mcmc"``, the 3-D posterior is sampled by
-    :func:`orbitmass.sampler.run_sampler`. Either way every draw is then
+    :func:`orbitmass.inference.sampler.run_sampler`. Either way every draw is then
     expanded by :func:`expand` and its weights multiplied in.
 
     Parameters
@@ -798,7 +798,7 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     rng : numpy.random.Generator
         Every random choice (common draws, initialisation, proposal draws,
         emcee seed, expansion draws, resampling) comes from it.
-    options : orbitmass.sampler.SamplerOptions
+    options : orbitmass.inference.sampler.SamplerOptions
         Convergence thresholds and step caps of the 3-D chain; ``min_ess`` and
         ``max_retained`` also for importance sampling.
     n_walkers : int, optional
@@ -813,16 +813,16 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     method : {"auto", "mcmc", "importance"}
         How the 3-D posterior is sampled (``"importance"`` skips the checks).
     stop_flag : callable, optional
-        Passed to :func:`orbitmass.sampler.run_sampler`.
+        Passed to :func:`orbitmass.inference.sampler.run_sampler`.
 
     Returns
     -------
     theta_full : ndarray, shape (n, space.ndim)
         Equally weighted posterior samples in the full layout, angles in their windows.
     log_post_full : ndarray, shape (n,)
-        The full log posterior (:class:`~orbitmass.likelihood.LogPosterior`) at them.
+        The full log posterior (:class:`~orbitmass.model.likelihood.LogPosterior`) at them.
     run_info : dict
-        ``run``: a :class:`~orbitmass.sampler.SamplerRun` in the full layout.
+        ``run``: a :class:`~orbitmass.inference.sampler.SamplerRun` in the full layout.
         After MCMC: the 3-D chain expanded at the stride ``thin_3d`` of the
         retained samples (its ``thin`` is 1 and its ``burn`` counts stored
         rows; log probabilities of the 3-D target; ``tau`` in 3-D steps and
@@ -832,7 +832,7 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
         resampled draws in random order as rows of 64 (no burn-in; full log
         posterior; ESS = Kish ESS of all weights; ``converged`` when that
         reaches ``options.min_ess``). ``init``: the
-        :class:`~orbitmass.initialise.InitialSolution` of the 3-D search.
+        :class:`~orbitmass.inference.initialise.InitialSolution` of the 3-D search.
         ``run_3d``: the 3-D :class:`SamplerRun` (None after importance
         sampling). ``posterior``: the :class:`LinearAstrometryPosterior`.
         ``diagnostics``: a JSON-ready dict for ``summary.json`` (method, Kish
@@ -846,8 +846,8 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     ValueError
         When :func:`applies` is false for ``space`` or ``method`` is unknown.
     """
-    from orbitmass.initialise import _hessian_cov
-    from orbitmass.sampler import SamplerRun, run_sampler
+    from orbitmass.inference.initialise import _hessian_cov
+    from orbitmass.inference.sampler import SamplerRun, run_sampler
 
     if method not in ("auto", "mcmc", "importance"):
         raise ValueError(f"method must be 'auto', 'mcmc' or 'importance', got {method!r}")
@@ -932,7 +932,7 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
                      rhat=rhat, converged=converged, n_evaluations=run3.n_evaluations,
                      sampling_seconds=run3.sampling_seconds + t_expand, interrupted=run3.interrupted)
     diag.update({
-        "sampler_3d": "mcmc (orbitmass.sampler.run_sampler)",
+        "sampler_3d": "mcmc (orbitmass.inference.sampler.run_sampler)",
         "n_walkers_3d": int(n_w),
         "n_steps_3d": int(n_steps),
         "burn_3d": int(run3.burn),

@@ -40,7 +40,7 @@ import numpy as np
 import pandas as pd
 
 from orbitmass.results import QUANTILES, Results, quantile_block
-from orbitmass.style import write_atomic
+from orbitmass.outputs.style import write_atomic
 
 __all__ = [
     "format_value",
@@ -268,7 +268,7 @@ def markdown_escape(text: str) -> str:
 # ------------------------------------------------------------------------ quantity metadata
 
 #: base column (no companion prefix or instrument suffix) -> (name, LaTeX math symbol,
-#: plain-text symbol, HTML symbol); shared with :mod:`orbitmass.plots`
+#: plain-text symbol, HTML symbol); shared with :mod:`orbitmass.outputs.plots`
 QUANTITIES: dict[str, tuple[str, str, str, str]] = {
     "mass_msun": ("Total mass", "M", "M", "<i>M</i>"),
     "distance_pc": ("Distance", "D", "D", "<i>D</i>"),

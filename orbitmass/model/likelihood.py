@@ -25,10 +25,10 @@ import math
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.kepler import kepler_cos_sin
-from orbitmass.model import thiele_innes
-from orbitmass.parameters import ParameterSpace
-from orbitmass.physics import semimajor_axis_au
+from orbitmass.core.kepler import kepler_cos_sin
+from orbitmass.core.orbit import thiele_innes
+from orbitmass.model.parameters import ParameterSpace
+from orbitmass.core.physics import semimajor_axis_au
 from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["LogPosterior"]

@@ -58,7 +58,7 @@ Overlap
     widens each density by a factor ``sqrt(1 + h^2)`` (``h = n**-0.2``,
     about 1 % in width for 20000 samples), a small bias of the overlap.
 Joint refit
-    :func:`combined_target` builds one :class:`~orbitmass.data.Target` from
+    :func:`combined_target` builds one :class:`~orbitmass.model.data.Target` from
     the runs' targets: the union of their companions and instruments, one
     central body and one distance. See its docstring for the rules.
 
@@ -133,10 +133,10 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import signal, stats
 
-from orbitmass.data import Astrometry, Companion, Target, Velocities
+from orbitmass.model.data import Astrometry, Companion, Target, Velocities
 from orbitmass.exceptions import InputError, RunFolderError
 from orbitmass.results import Results, quantile_block
-from orbitmass.style import PALETTE, SINGLE_COLUMN_IN, save_figure, style_context, write_atomic
+from orbitmass.outputs.style import PALETTE, SINGLE_COLUMN_IN, save_figure, style_context, write_atomic
 from orbitmass.units import RS_AU_PER_MSUN
 
 __all__ = [
@@ -163,7 +163,7 @@ DEFAULT_THRESHOLD_SIGMA = 3.0
 #: one-sided 95 % Poisson upper limit on a count when none is observed: -ln(0.05)
 _RULE_OF_THREE = -math.log(0.05)
 _KDE_GRID_POINTS = 4096
-#: colours of the runs (Okabe & Ito, via orbitmass.style); black is kept for the joint fit
+#: colours of the runs (Okabe & Ito, via orbitmass.outputs.style); black is kept for the joint fit
 _RUN_COLOURS = tuple(PALETTE[k] for k in ("blue", "vermillion", "bluish_green", "orange", "reddish_purple", "sky_blue"))
 
 _METHOD = {
@@ -867,7 +867,7 @@ class Comparison:
         return rows
 
     def _scale(self) -> tuple[int, float]:
-        from orbitmass.reports import choose_exponent
+        from orbitmass.outputs.reports import choose_exponent
 
         meds = [np.median(r.mass_msun) for r in self.runs] + [f.mass_msun for f in self.references]
         k = choose_exponent(float(np.median(meds)))
@@ -947,7 +947,7 @@ class Comparison:
         from matplotlib.figure import Figure
         from matplotlib.lines import Line2D
 
-        from orbitmass.style import MARKERS
+        from orbitmass.outputs.style import MARKERS
 
         joint = self._joint()
         k, scale = self._scale()
@@ -1012,8 +1012,8 @@ class Comparison:
     # ------------------------------------------------------------------ files
     def markdown(self, *, figures: Mapping[str, str] | None = None, run_folder: str | None = None) -> str:
         """``comparison.md``: runs, references, pairwise results, joint refit, method."""
-        from orbitmass.reports import markdown_escape as esc
-        from orbitmass.reports import measurement
+        from orbitmass.outputs.reports import markdown_escape as esc
+        from orbitmass.outputs.reports import measurement
 
         def meas(q: Mapping[str, float]) -> str:
             return measurement(q["median"], q["median"] - q["q16"], q["q84"] - q["median"]).text()
@@ -1314,7 +1314,7 @@ def _target_of(run: RunLike, label: str | None) -> tuple[Target, str]:
 
 
 def _is_full_circle(prior) -> bool:
-    from orbitmass.priors import Uniform
+    from orbitmass.model.priors import Uniform
 
     return isinstance(prior, Uniform) and prior.high - prior.low >= 2 * math.pi - 1e-9
 
@@ -1602,7 +1602,7 @@ def _write_demo_dataset(
     pos_err_mas: float,
     rv_err_kms: float,
 ) -> Path:
-    from orbitmass.simulate import simulate, write_positions_csv, write_velocities_csv
+    from orbitmass.demo.simulate import simulate, write_positions_csv, write_velocities_csv
 
     folder.mkdir(parents=True, exist_ok=True)
     slug = star.lower().replace(" ", "-")
@@ -1645,7 +1645,7 @@ def demo_comparison(
     of the Quillon Dwarf (3.6e6 Msun at 46 kpc): the "north team" follows
     QD-S4 with the spectrograph "north-spec", the "south team" follows QD-S9
     with "south-echelle". Data are simulated with a fixed seed
-    (:mod:`orbitmass.simulate`); the fits use ``seed``. Written:
+    (:mod:`orbitmass.demo.simulate`); the fits use ``seed``. Written:
     ``out_dir/data/<team>/`` (target files and tables) and
     ``out_dir/comparison/`` (see :meth:`Comparison.write`; the joint run
     folder is not saved, to keep the demo short).
@@ -1669,7 +1669,7 @@ def demo_comparison(
         The comparison folder ``out_dir/comparison``.
     """
     from orbitmass.fit import Fit
-    from orbitmass.simulate import TrueOrbit
+    from orbitmass.demo.simulate import TrueOrbit
 
     out_dir = Path(out_dir)
     _check_out_dir(out_dir, overwrite)

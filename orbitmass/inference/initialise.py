@@ -32,10 +32,10 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import optimize
 
-from orbitmass.elements import thiele_innes_to_campbell
-from orbitmass.kepler import kepler_cos_sin
-from orbitmass.likelihood import LogPosterior
-from orbitmass.physics import mass_msun as kepler_mass
+from orbitmass.core.elements import thiele_innes_to_campbell
+from orbitmass.core.kepler import kepler_cos_sin
+from orbitmass.model.likelihood import LogPosterior
+from orbitmass.core.physics import mass_msun as kepler_mass
 from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["initialise_walkers", "InitialSolution"]

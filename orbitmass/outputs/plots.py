@@ -4,11 +4,11 @@ One function per figure. Each takes a :class:`~orbitmass.results.Results`
 first, every option keyword-only, draws into ``fig`` when given (an empty
 :class:`matplotlib.figure.Figure`) and returns the figure. Styling passes
 through ``*_kwargs`` dictionaries to the matplotlib calls. The shared look
-of :mod:`orbitmass.style` is applied inside each call only.
+of :mod:`orbitmass.outputs.style` is applied inside each call only.
 
 New figures are plain :class:`matplotlib.figure.Figure` objects, not pyplot
 figures: nothing is registered globally, so many can be made in a loop; save
-them with :func:`orbitmass.style.save_figure`.
+them with :func:`orbitmass.outputs.style.save_figure`.
 
 Sky-plane convention
     East (increasing right ascension, ``Δα cos δ``) points to the LEFT and
@@ -26,9 +26,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from orbitmass.exceptions import InputError
-from orbitmass.reports import QUANTITIES, QUANTITY_UNITS, choose_exponent, format_value
+from orbitmass.outputs.reports import QUANTITIES, QUANTITY_UNITS, choose_exponent, format_value
 from orbitmass.results import QUANTILES, Results
-from orbitmass.style import DOUBLE_COLUMN_IN, MARKERS, PALETTE, SINGLE_COLUMN_IN, style_context
+from orbitmass.outputs.style import DOUBLE_COLUMN_IN, MARKERS, PALETTE, SINGLE_COLUMN_IN, style_context
 
 __all__ = ["corner_figure", "orbit_figure", "trace_figure", "axis_label", "default_corner_columns"]
 

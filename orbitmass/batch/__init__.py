@@ -818,7 +818,7 @@ def write_example_sample(
     OrbitmassError
         A target file to write exists already.
     """
-    from orbitmass.simulate import TrueOrbit, simulate, write_positions_csv
+    from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv
 
     rng = np.random.default_rng(seed)
     data_dir = Path(data_dir)

@@ -29,7 +29,7 @@ import emcee
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass import diagnostics
+from orbitmass.core import diagnostics
 
 __all__ = ["SamplerOptions", "SamplerRun", "run_sampler", "default_moves"]
 

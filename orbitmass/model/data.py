@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.priors import Prior
+from orbitmass.model.priors import Prior
 
 __all__ = ["Astrometry", "Velocities", "Instrument", "Companion", "Distance", "Target"]
 
@@ -121,7 +121,7 @@ class Companion:
     """One tracked companion: its data and element priors.
 
     ``priors`` maps each key of ``COMPANION_PRIOR_KEYS`` that applies to a
-    :class:`~orbitmass.priors.Prior` (defaults filled in by the reader).
+    :class:`~orbitmass.model.priors.Prior` (defaults filled in by the reader).
     Units: period in rest-frame Julian years, angles in radians,
     ``periastron_time`` in Julian years (observed timeline), eccentricity and
     mass ratio bare. Exactly one of ``mean_anomaly`` / ``periastron_time`` is

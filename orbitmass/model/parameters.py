@@ -1,6 +1,6 @@
 """The sampled parameter vector: layout, transforms, priors and unpacking.
 
-A :class:`ParameterSpace` is built from a :class:`~orbitmass.data.Target`. It
+A :class:`ParameterSpace` is built from a :class:`~orbitmass.model.data.Target`. It
 decides which quantities are sampled and in which variable, evaluates the log
 prior in the sampled variables (Jacobians included), and turns a block of
 sampled vectors ``theta`` of shape ``(n_sets, n_dim)`` into physical
@@ -50,9 +50,9 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.data import Companion, Target
+from orbitmass.model.data import Companion, Target
 from orbitmass.exceptions import InputError
-from orbitmass.priors import Isotropic, LogUniform, Prior, Uniform
+from orbitmass.model.priors import Isotropic, LogUniform, Prior, Uniform
 
 __all__ = ["Variable", "ParameterSpace"]
 
@@ -560,7 +560,7 @@ class ParameterSpace:
 
     def semimajor_axes(self, phys: dict[str, NDArray[np.float64]], name: str):
         """(a_au, a_mas) of companion ``name`` by Kepler III (rest-frame period)."""
-        from orbitmass.physics import semimajor_axis_au
+        from orbitmass.core.physics import semimajor_axis_au
 
         a_au = semimajor_axis_au(phys["mass_msun"], phys[f"{name}.period_yr"])
         a_mas = a_au / phys["distance_pc"] * 1000.0

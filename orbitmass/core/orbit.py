@@ -4,7 +4,7 @@ Pure functions on plain floats (internal units, angles in radians). Shapes
 broadcast: parameters usually have shape ``(n_sets, 1)`` and epochs
 ``(1, n_epochs)``, giving ``(n_sets, n_epochs)`` outputs.
 
-Conventions (see :mod:`orbitmass.elements`): north = A X + F Y, east = B X + G Y,
+Conventions (see :mod:`orbitmass.core.elements`): north = A X + F Y, east = B X + G Y,
 z = C X + H Y with X = cos E - e, Y = sqrt(1 - e^2) sin E; z and the
 line-of-sight velocity are positive away from the observer (receding).
 """
@@ -16,7 +16,7 @@ import math
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.kepler import kepler_cos_sin
+from orbitmass.core.kepler import kepler_cos_sin
 from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["thiele_innes", "relative_orbit"]

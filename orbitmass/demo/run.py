@@ -6,7 +6,7 @@ and "south-ifu", and the visual binary "Tessaly 41 AB". Three scenarios: QD-S4
 alone in the relative frame (distance from the orbit itself), Tessaly 41 AB
 from astrometry and a parallax, and both stars jointly on a drifting
 external frame. The data are drawn from
-:mod:`orbitmass.simulate` with a fixed seed, so the files are identical on
+:mod:`orbitmass.demo.simulate` with a fixed seed, so the files are identical on
 every machine; the fits then take the seed given to :func:`run_demo`.
 """
 
@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 
-from orbitmass.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
+from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 
 __all__ = ["SCENARIOS", "write_scenarios", "run_demo", "DemoResult"]
 

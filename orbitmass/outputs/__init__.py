@@ -1,0 +1,1 @@
+"""What a fit shows: the journal figure style, figures, tables and reports."""
