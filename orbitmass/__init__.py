@@ -11,8 +11,8 @@ the enclosed mass, the distance and every orbital element.
 
 from __future__ import annotations
 
+from orbitmass import _compat  # noqa: E402
 from orbitmass._version import __version__  # noqa: E402
-
 from orbitmass.exceptions import (  # noqa: E402
     ConvergenceWarning,
     DegeneracyWarning,
@@ -25,7 +25,6 @@ from orbitmass.exceptions import (  # noqa: E402
 from orbitmass.fit import Fit, load  # noqa: E402
 from orbitmass.io.target import read_target  # noqa: E402
 from orbitmass.results import Results  # noqa: E402
-from orbitmass import _compat  # noqa: E402
 
 _compat.install()
 

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import logging
 import math
-import platform
 import time
 from datetime import datetime, timezone
 from pathlib import Path
@@ -20,84 +19,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from orbitmass.model.data import Target
+from orbitmass._version import software_versions
+from orbitmass.core.cosmology import redshift_distance_pc
 from orbitmass.exceptions import InputError, NotFittedError
+from orbitmass.model.data import Target
+from orbitmass.model.parameters import priors_used
 from orbitmass.results import COLUMN_DOC, Results, derive_samples, quantile_block
 
-__all__ = ["Fit", "load", "redshift_distance_pc", "priors_used"]
+__all__ = ["Fit", "load"]
 
 log = logging.getLogger(__name__)
-
-
-def cosmology_from_spec(spec: str):
-    """An astropy cosmology from a realisation name (``"Planck18"``) or ``"flat-lcdm:H0=..,Om0=..,Tcmb0=.."``."""
-    import astropy.cosmology as cosmo_mod
-
-    if spec.startswith("flat-lcdm:"):
-        params = dict(item.split("=", 1) for item in spec[len("flat-lcdm:"):].split(","))
-        return cosmo_mod.FlatLambdaCDM(H0=float(params["H0"]), Om0=float(params["Om0"]),
-                                       Tcmb0=float(params.get("Tcmb0", 0.0)))
-    cosmo = getattr(cosmo_mod, spec, None) if spec in cosmo_mod.realizations.available else None
-    if cosmo is None:
-        raise InputError(f"unknown cosmology {spec!r}; expected an astropy realisation such as "
-                         f"{', '.join(cosmo_mod.realizations.available)}", key="distance.cosmology")
-    return cosmo
-
-
-def redshift_distance_pc(z: float, cosmology: str) -> float:
-    """Angular-diameter distance (pc) at redshift ``z`` in ``cosmology`` (see :func:`cosmology_from_spec`)."""
-    import astropy.units as u
-
-    return float(cosmology_from_spec(cosmology).angular_diameter_distance(z).to_value(u.pc))
-
-
-def _versions() -> dict[str, str]:
-    import astropy
-    import emcee
-    import scipy
-
-    from orbitmass import __version__
-
-    return {"orbitmass": __version__, "python": platform.python_version(), "numpy": np.__version__,
-            "scipy": scipy.__version__, "emcee": emcee.__version__, "astropy": astropy.__version__,
-            "pandas": pd.__version__}
-
-
-def priors_used(space) -> list[dict[str, str]]:
-    """Every prior in force, in report units: list of {"parameter", "prior"}."""
-    deg = 180.0 / math.pi
-    t = space.target
-    out = [{"parameter": "total mass", "prior": t.central_priors["mass"].describe("Msun")}]
-    d = t.distance
-    if d.parallax is not None:
-        out.append({"parameter": "parallax", "prior": d.parallax.describe("mas")})
-    if d.prior is not None:
-        out.append({"parameter": "distance", "prior": d.prior.describe("pc")})
-    if d.redshift is not None:
-        how = "fixes the distance (angular-diameter distance)" if space.distance_mode == "fixed" \
-            else "sets the time dilation"
-        out.append({"parameter": "redshift", "prior": f"z = {d.redshift} ({d.cosmology}); {how}"})
-    units = {"x0": "mas", "y0": "mas", "vx0": "mas/yr", "vy0": "mas/yr", "vz0": "km/s", "systemic": "km/s"}
-    for key in space.frame_idx:
-        out.append({"parameter": key, "prior": t.central_priors[key].describe(units[key])})
-    for name, inst in t.instruments.items():
-        out.append({"parameter": f"offset {name}", "prior": inst.offset.describe("km/s")})
-        out.append({"parameter": f"jitter {name}", "prior": inst.jitter.describe("km/s")})
-    for comp in t.companions:
-        for key, prior in comp.priors.items():
-            if key in ("inclination", "arg_periastron", "ascending_node", "mean_anomaly"):
-                text = prior.describe("deg", deg)
-            elif key == "period":
-                text = prior.describe("yr") + " (rest frame)"
-            elif key == "periastron_time":
-                text = prior.describe("Julian yr")
-            else:
-                text = prior.describe("")
-            out.append({"parameter": f"{comp.name} {key.replace('_', ' ')}", "prior": text})
-        if comp.plane:
-            out.append({"parameter": f"{comp.name} plane",
-                        "prior": f"shares inclination and node with plane {comp.plane!r}"})
-    return out
 
 
 class _ResumedInit:
@@ -176,9 +107,9 @@ class Fit:
             On malformed input (nothing is sampled).
         """
         from orbitmass.inference.initialise import initialise_walkers
+        from orbitmass.inference.sampler import SamplerOptions, run_sampler
         from orbitmass.model.likelihood import LogPosterior
         from orbitmass.model.parameters import ParameterSpace
-        from orbitmass.inference.sampler import SamplerOptions, run_sampler
 
         t0 = time.perf_counter()
         if not isinstance(target, Target):
@@ -353,7 +284,7 @@ class Fit:
             "provenance": {
                 "seed": int(seed),
                 "data_sha256": target.data_sha256,
-                "versions": _versions(),
+                "versions": software_versions(),
                 "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
                 "target_file": str(target.source),
             },

@@ -16,8 +16,6 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from orbitmass.model.data import Target
-from orbitmass.model.parameters import ParameterSpace
 from orbitmass.core.physics import (
     periastron_au,
     periastron_speed_kms,
@@ -25,6 +23,8 @@ from orbitmass.core.physics import (
     semi_amplitude_kms,
     semimajor_axis_au,
 )
+from orbitmass.model.data import Target
+from orbitmass.model.parameters import ParameterSpace
 
 __all__ = ["Results", "QUANTILES", "quantile_block", "derive_samples", "COLUMN_DOC"]
 

@@ -18,7 +18,7 @@ from astropy.cosmology import FlatLambdaCDM, Planck18
 from scipy import integrate
 
 from orbitmass import Fit, read_target
-from orbitmass.fit import redshift_distance_pc
+from orbitmass.core.cosmology import redshift_distance_pc
 from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 
 

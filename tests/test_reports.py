@@ -307,7 +307,7 @@ def make_results(
     samples = derive_samples(space, theta, log_prob)
     summ: dict = {}
     if summary == "full":
-        from orbitmass.fit import priors_used
+        from orbitmass.model.parameters import priors_used
 
         summ = {
             "orbitmass_version": "0.1.0",

@@ -133,10 +133,10 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy import signal, stats
 
-from orbitmass.model.data import Astrometry, Companion, Target, Velocities
 from orbitmass.exceptions import InputError, RunFolderError
-from orbitmass.results import Results, quantile_block
+from orbitmass.model.data import Astrometry, Companion, Target, Velocities
 from orbitmass.outputs.style import PALETTE, SINGLE_COLUMN_IN, save_figure, style_context, write_atomic
+from orbitmass.results import Results, quantile_block
 from orbitmass.units import RS_AU_PER_MSUN
 
 __all__ = [
@@ -1668,8 +1668,8 @@ def demo_comparison(
     Path
         The comparison folder ``out_dir/comparison``.
     """
-    from orbitmass.fit import Fit
     from orbitmass.demo.simulate import TrueOrbit
+    from orbitmass.fit import Fit
 
     out_dir = Path(out_dir)
     _check_out_dir(out_dir, overwrite)

@@ -34,8 +34,8 @@ from scipy import optimize
 
 from orbitmass.core.elements import thiele_innes_to_campbell
 from orbitmass.core.kepler import kepler_cos_sin
-from orbitmass.model.likelihood import LogPosterior
 from orbitmass.core.physics import mass_msun as kepler_mass
+from orbitmass.model.likelihood import LogPosterior
 from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["initialise_walkers", "InitialSolution"]

@@ -162,8 +162,8 @@ from numpy.typing import NDArray
 from orbitmass.core import diagnostics
 from orbitmass.core.elements import thiele_innes_jacobian_log, thiele_innes_to_campbell
 from orbitmass.core.kepler import kepler_cos_sin
-from orbitmass.model.parameters import ParameterSpace
 from orbitmass.core.physics import mass_msun as kepler_mass
+from orbitmass.model.parameters import ParameterSpace
 from orbitmass.model.priors import Isotropic, Uniform
 
 __all__ = [

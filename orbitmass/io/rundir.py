@@ -37,8 +37,8 @@ import h5py
 import numpy as np
 import pandas as pd
 
-from orbitmass.model.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
 from orbitmass.exceptions import RunFolderError
+from orbitmass.model.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
 from orbitmass.model.priors import FAMILIES, Prior
 
 __all__ = ["save_run", "load_run", "write_products", "write_json_atomic", "is_complete_run"]
@@ -195,7 +195,7 @@ def write_posterior(results, path: Path) -> None:
 
 def load_run(run_dir: Path):
     """Rebuild :class:`~orbitmass.results.Results` from a run folder."""
-    from orbitmass.fit import redshift_distance_pc
+    from orbitmass.core.cosmology import redshift_distance_pc
     from orbitmass.model.parameters import ParameterSpace
     from orbitmass.results import Results
 

@@ -48,8 +48,8 @@ import numpy as np
 from astropy.time import Time
 from numpy.typing import NDArray
 
-from orbitmass.model.data import Astrometry, Velocities
 from orbitmass.exceptions import InputError
+from orbitmass.model.data import Astrometry, Velocities
 from orbitmass.units import DAYS_PER_YEAR, JD_J2000
 
 __all__ = [

@@ -74,7 +74,6 @@ from typing import Any
 import astropy.units as u
 import numpy as np
 
-from orbitmass.model.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
 from orbitmass.exceptions import InputError
 from orbitmass.io.tables import (
     DEFAULT_INSTRUMENT,
@@ -83,6 +82,7 @@ from orbitmass.io.tables import (
     load_bytes,
     velocities_from_bytes,
 )
+from orbitmass.model.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
 from orbitmass.model.priors import FAMILIES, Fixed, Isotropic, LogUniform, Prior, Uniform
 from orbitmass.units import DAYS_PER_YEAR, parse_quantity
 

@@ -27,8 +27,8 @@ from numpy.typing import NDArray
 
 from orbitmass.core.kepler import kepler_cos_sin
 from orbitmass.core.orbit import thiele_innes
-from orbitmass.model.parameters import ParameterSpace
 from orbitmass.core.physics import semimajor_axis_au
+from orbitmass.model.parameters import ParameterSpace
 from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["LogPosterior"]

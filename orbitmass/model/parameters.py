@@ -50,11 +50,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.model.data import Companion, Target
 from orbitmass.exceptions import InputError
+from orbitmass.model.data import Companion, Target
 from orbitmass.model.priors import Isotropic, LogUniform, Prior, Uniform
 
-__all__ = ["Variable", "ParameterSpace"]
+__all__ = ["Variable", "ParameterSpace", "priors_used"]
 
 TWO_PI = 2.0 * math.pi
 LN2 = math.log(2.0)
@@ -566,3 +566,39 @@ class ParameterSpace:
         a_mas = a_au / phys["distance_pc"] * 1000.0
         return a_au, a_mas
 
+
+def priors_used(space) -> list[dict[str, str]]:
+    """Every prior in force, in report units: list of {"parameter", "prior"}."""
+    deg = 180.0 / math.pi
+    t = space.target
+    out = [{"parameter": "total mass", "prior": t.central_priors["mass"].describe("Msun")}]
+    d = t.distance
+    if d.parallax is not None:
+        out.append({"parameter": "parallax", "prior": d.parallax.describe("mas")})
+    if d.prior is not None:
+        out.append({"parameter": "distance", "prior": d.prior.describe("pc")})
+    if d.redshift is not None:
+        how = "fixes the distance (angular-diameter distance)" if space.distance_mode == "fixed" \
+            else "sets the time dilation"
+        out.append({"parameter": "redshift", "prior": f"z = {d.redshift} ({d.cosmology}); {how}"})
+    units = {"x0": "mas", "y0": "mas", "vx0": "mas/yr", "vy0": "mas/yr", "vz0": "km/s", "systemic": "km/s"}
+    for key in space.frame_idx:
+        out.append({"parameter": key, "prior": t.central_priors[key].describe(units[key])})
+    for name, inst in t.instruments.items():
+        out.append({"parameter": f"offset {name}", "prior": inst.offset.describe("km/s")})
+        out.append({"parameter": f"jitter {name}", "prior": inst.jitter.describe("km/s")})
+    for comp in t.companions:
+        for key, prior in comp.priors.items():
+            if key in ("inclination", "arg_periastron", "ascending_node", "mean_anomaly"):
+                text = prior.describe("deg", deg)
+            elif key == "period":
+                text = prior.describe("yr") + " (rest frame)"
+            elif key == "periastron_time":
+                text = prior.describe("Julian yr")
+            else:
+                text = prior.describe("")
+            out.append({"parameter": f"{comp.name} {key.replace('_', ' ')}", "prior": text})
+        if comp.plane:
+            out.append({"parameter": f"{comp.name} plane",
+                        "prior": f"shares inclination and node with plane {comp.plane!r}"})
+    return out

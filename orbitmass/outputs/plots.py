@@ -27,8 +27,8 @@ from numpy.typing import NDArray
 
 from orbitmass.exceptions import InputError
 from orbitmass.outputs.reports import QUANTITIES, QUANTITY_UNITS, choose_exponent, format_value
-from orbitmass.results import QUANTILES, Results
 from orbitmass.outputs.style import DOUBLE_COLUMN_IN, MARKERS, PALETTE, SINGLE_COLUMN_IN, style_context
+from orbitmass.results import QUANTILES, Results
 
 __all__ = ["corner_figure", "orbit_figure", "trace_figure", "axis_label", "default_corner_columns"]
 

@@ -39,8 +39,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from orbitmass.results import QUANTILES, Results, quantile_block
 from orbitmass.outputs.style import write_atomic
+from orbitmass.results import QUANTILES, Results, quantile_block
 
 __all__ = [
     "format_value",
