@@ -88,7 +88,7 @@ def to_internal(quantity: u.Quantity, physical_type: str) -> float:
     Examples
     --------
     >>> import astropy.units as u
-    >>> to_internal(1 * u.arcsec, "angle")
+    >>> round(to_internal(1 * u.arcsec, "angle"), 9)  # 1 arcsec = 1000 mas by definition
     1000.0
     """
     return float(quantity.to_value(INTERNAL_UNITS[physical_type]))
