@@ -557,15 +557,18 @@ def check_writable(path: str | os.PathLike[str]) -> Path:
 
 
 def _forbidden(resolved: Path) -> str | None:
-    cwd = Path.cwd().resolve()
+    try:
+        cwd = Path.cwd().resolve()
+    except OSError:  # the working directory was removed
+        cwd = None
     if resolved == Path(resolved.anchor):
         return "it is the root of the file system"
     with contextlib.suppress(RuntimeError, KeyError):
         if resolved == Path.home().resolve():
             return "it is the home folder"
-    if resolved == cwd:
+    if cwd is not None and resolved == cwd:
         return "it is the working directory"
-    if cwd.is_relative_to(resolved):
+    if cwd is not None and cwd.is_relative_to(resolved):
         return "it contains the working directory"
     return None
 
@@ -635,10 +638,12 @@ def check_output_folder(path: str | os.PathLike[str], *, overwrite: bool = False
         if present:
             recognised, foreign = foreign_entries(path, kind=kind, known_names=known_names, known_dirs=known_dirs,
                                                   core_names=core_names)
-            if not overwrite:
+            if not overwrite and recognised and not foreign:
                 raise _error(f"{path}: folder exists and is not empty ({_listing(present)}); choose another "
-                             "folder, or pass overwrite to replace it", remedy="overwrite" if recognised and
-                             not foreign else None)
+                             "folder, or pass overwrite to replace it", remedy="overwrite")
+            if not overwrite:
+                raise _error(f"{path}: folder exists and is not empty, and orbitmass did not write "
+                             f"{_listing(foreign or present)}; choose another folder")
             if not recognised:
                 raise _error(f"{path}: not a folder orbitmass wrote (no {MARKER_NAME} marker), so it is never "
                              f"replaced; it holds {_listing(present)}; choose another folder")
