@@ -241,10 +241,14 @@ def test_out_is_cwd_parent_or_home_is_refused(fitted, tmp_path, monkeypatch):
                        ("..", "contains the working directory"), ("/", "root of the file system")):
         with pytest.raises(RunFolderError, match=why):
             fitted.save(place, overwrite=True)
-    monkeypatch.setenv("HOME", str(tmp_path / "project"))
-    with pytest.raises(RunFolderError, match="home folder|contains the working directory"):
-        save_run(fitted.results, tmp_path / "project", overwrite=True, products=False)
+    home = tmp_path / "home"
+    home.mkdir()
+    (home / ".profile").write_text("# mine", encoding="utf-8")
+    monkeypatch.setenv("HOME", str(home))  # Path.home() reads HOME (Python docs, os.path.expanduser)
+    with pytest.raises(RunFolderError, match="it is the home folder"):
+        save_run(fitted.results, home, overwrite=True, products=False)
     assert tree_digest(tmp_path / "project") == before
+    assert (home / ".profile").read_text(encoding="utf-8") == "# mine"
 
 
 def test_two_writers_second_gets_lock_error_first_finishes(fitted, tmp_path):
@@ -296,6 +300,14 @@ def test_hand_edited_samples_are_refused(fitted, tmp_path):
         load(out)
 
 
+def test_runs_saved_without_checksums_still_load(fitted, tmp_path):
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    with h5py.File(out / "posterior.h5", "r+") as f:  # what earlier versions wrote
+        del f.attrs["summary_sha256"]
+        f.visititems(lambda name, obj: obj.attrs.__delitem__("sha256") if "sha256" in obj.attrs else None)
+    assert load_run(out).samples.equals(fitted.results.samples)
+
+
 def test_edited_summary_numbers_are_refused(fitted, tmp_path):
     out = save_run(fitted.results, tmp_path / "run", products=False)
     summary = json.loads((out / "summary.json").read_text())
@@ -344,16 +356,21 @@ def test_report_fails_before_any_work_when_folder_unwritable(fitted, tmp_path, m
     assert (mine / "table.tex").read_text() == "my own table"
 
 
+def skip_unless_write_protected(folder: Path) -> None:
+    """Skip when chmod 0555 does not stop writes (root, CAP_DAC_OVERRIDE): detected by trying."""
+    try:
+        (folder / "probe").write_text("x")
+    except PermissionError:
+        return
+    (folder / "probe").unlink()
+    pytest.skip("running as root: chmod 0555 does not stop writes (the path-under-a-file probes cover it)")
+
+
 def test_report_on_read_only_run_folder(fitted, tmp_path):
     out = save_run(fitted.results, tmp_path / "run", products=False)
     out.chmod(0o555)
     try:
-        try:
-            (out / "probe").write_text("x")
-            (out / "probe").unlink()
-            pytest.skip("running as root: chmod 0555 does not stop writes (the path-under-a-file probes cover it)")
-        except PermissionError:
-            pass
+        skip_unless_write_protected(out)
         with pytest.raises(RunFolderError, match="read-only"):
             check_run_folder_writable(out)
     finally:
@@ -387,12 +404,7 @@ def test_read_only_parent_refused_before_sampling(tmp_path):
     parent.mkdir()
     parent.chmod(0o555)
     try:
-        try:
-            (parent / "probe").write_text("x")
-            (parent / "probe").unlink()
-            pytest.skip("running as root: chmod 0555 does not stop writes (the path-under-a-file probes cover it)")
-        except PermissionError:
-            pass
+        skip_unless_write_protected(parent)
         with pytest.raises(RunFolderError, match="read-only"):
             prepare_run_folder(parent / "run")
     finally:

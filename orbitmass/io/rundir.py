@@ -210,20 +210,22 @@ def write_posterior(results, path: Path) -> None:
         _write_target(f.create_group("target"), results.target)
 
 
-def _verify_arrays(f: h5py.File, path: Path) -> None:
-    """Raise RunFolderError naming the first dataset whose values differ from its recorded checksum."""
-    bad = []
+def _verify_arrays(f: h5py.File, path: Path, loaded: dict[str, np.ndarray]) -> None:
+    """Raise RunFolderError naming the first dataset whose values differ from its recorded checksum.
 
-    def visit(name, obj):
-        if isinstance(obj, h5py.Dataset) and "sha256" in obj.attrs:
-            if array_sha256(obj[()]) != obj.attrs["sha256"]:
-                bad.append("/" + name)
-
-    f.visititems(visit)
-    if bad:
-        raise RunFolderError(f"{path}: dataset {bad[0]} does not match the checksum recorded when the run was "
-                             "saved (the file was changed afterwards); refusing to load it: fit again or "
-                             "restore the original run folder")
+    ``loaded`` holds datasets already read (name -> array), so large ones are not read twice.
+    """
+    names: list[str] = []
+    f.visititems(lambda name, obj: names.append(name) if isinstance(obj, h5py.Dataset) else None)
+    for name in names:
+        recorded = f[name].attrs.get("sha256")
+        if recorded is None:  # written before checksums were recorded
+            continue
+        values = loaded[name] if name in loaded else f[name][()]
+        if array_sha256(values) != recorded:
+            raise RunFolderError(f"{path}: dataset /{name} does not match the checksum recorded when the run "
+                                 "was saved (the file was changed afterwards); refusing to load it: fit again or "
+                                 "restore the original run folder")
 
 
 def _read_summary(path: Path) -> dict:
@@ -266,13 +268,12 @@ def load_run(run_dir: Path):
     summary = _read_summary(summary_path)
     try:
         with h5py.File(post_path, "r") as f:
-            _verify_arrays(f, post_path)
+            arrays = {name: f[name][()] for name in ("samples", "theta", "chain", "log_prob")}
+            _verify_arrays(f, post_path, arrays)
             recorded = f.attrs.get("summary_sha256")
             columns = json.loads(f["samples"].attrs["columns"])
-            samples = pd.DataFrame(f["samples"][()], columns=columns)
-            theta = f["theta"][()]
-            chain = f["chain"][()]
-            log_prob = f["log_prob"][()]
+            samples = pd.DataFrame(arrays["samples"], columns=columns)
+            theta, chain, log_prob = arrays["theta"], arrays["chain"], arrays["log_prob"]
             burn, thin = int(f.attrs["burn"]), int(f.attrs["thin"])
             windows = json.loads(f.attrs["windows"])
             info = json.loads(f.attrs.get("info", "{}"))
@@ -474,7 +475,8 @@ def save_run(results, out_dir: Path, *, overwrite: bool = False, products: bool 
     The folder is assembled in a hidden sibling staging folder and swapped
     in. Without ``lock``, :func:`prepare_run_folder` is called first (same
     checks and lock, released at the end); with the ``lock`` a caller took
-    before the fit, that lock must still be held. Either way the target's
+    before the fit, that lock must still be held (and ``overwrite`` was
+    decided by that call: the folder it prepared is replaced). Either way the target's
     files (:func:`target_paths`) are protected, and just before the swap the
     folder is checked again: if files orbitmass did not write appeared in it,
     or the lock was lost, the new run is kept beside it as
