@@ -298,27 +298,27 @@ def foreign_entries(folder: str | os.PathLike[str], *, kind: str, known_names: I
     marker = read_marker(folder)
     recognised = bool(marker and marker.get("kind") == kind)
     listed = set(marker["files"]) if recognised else set()
-    entries = folder_entries(folder)
     foreign: list[str] = []
-    for entry in entries:
-        parts = entry.rstrip("/").split("/")
-        top, is_dir = parts[0], entry.endswith("/")
-        if any(entry.startswith(f) for f in foreign if f.endswith("/")):
-            continue  # inside a foreign folder, which is listed once
-        if entry.rstrip("/") in listed:
-            ours = True
-        elif len(parts) == 1:
-            ours = top in dirs if is_dir else _is_ours_by_name(top, known)
-        elif top in dirs:
-            # a run that recorded its files owns only those (and temporary files); one without a list
-            # (earlier versions) owns what lies in its known folders
-            ours = is_dir or not listed or bool(_TMP_RE.match(parts[-1]))
-        else:
-            ours = False
-        if not ours:
-            foreign.append(entry)
+    tops = sorted(folder.iterdir(), key=lambda p: p.name)
+    for top in tops:
+        name = top.name
+        if not top.is_dir() or top.is_symlink():
+            if name not in listed and not _is_ours_by_name(name, known):
+                foreign.append(name)
+            continue
+        if name not in dirs and not any(e.startswith(name + "/") for e in listed):
+            foreign.append(name + "/")  # a foreign folder is listed once and never walked
+            continue
+        for entry in folder_entries(top):
+            rel = f"{name}/{entry}"
+            if entry.endswith("/") or rel in listed:
+                continue
+            # a run that recorded its files owns only those (and temporary files); one without a
+            # list (earlier versions) owns what lies in its known folders
+            if listed and not _TMP_RE.match(Path(entry).name):
+                foreign.append(rel)
     if not recognised:
-        recognised = bool({e.rstrip("/").split("/", 1)[0] for e in entries} & set(core_names))
+        recognised = bool({p.name for p in tops} & set(core_names))
     return recognised, foreign
 
 

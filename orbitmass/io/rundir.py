@@ -301,10 +301,9 @@ def _check_product_folder(out_dir: Path) -> None:
     check_writable(out_dir)
     if not out_dir.is_dir():
         return
-    recognised, foreign = foreign_entries(out_dir, kind=RUN_KIND, known_names=RUN_FILES, known_dirs=RUN_DIRS,
-                                          core_names=_CORE_FILES)
     clash = sorted(p.name for p in out_dir.iterdir() if p.name in RUN_FILES)
-    if clash and not recognised:
+    if clash and not foreign_entries(out_dir, kind=RUN_KIND, known_names=RUN_FILES, known_dirs=RUN_DIRS,
+                                     core_names=_CORE_FILES)[0]:
         raise RunFolderError(f"{out_dir}: not a folder orbitmass wrote, and it holds {', '.join(clash)}, which "
                              "writing the report would replace; choose another folder")
 
@@ -461,7 +460,7 @@ def _refuse_foreign(out_dir: Path) -> None:
         return
     recognised, foreign = foreign_entries(out_dir, kind=RUN_KIND, known_names=RUN_FILES, known_dirs=RUN_DIRS,
                                           core_names=_CORE_FILES)
-    others = [e for e in folder_entries(out_dir) if "/" not in e.rstrip("/") and e not in (MARKER_NAME, LOCK_NAME)]
+    others = sorted(p.name for p in out_dir.iterdir() if p.name not in (MARKER_NAME, LOCK_NAME))
     if foreign or (others and not recognised):
         raise RunFolderError(f"{out_dir}: files orbitmass did not write appeared while the fit ran "
                              f"({', '.join(foreign or others)}), so the folder is not replaced")
