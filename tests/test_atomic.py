@@ -8,8 +8,10 @@ inputs from FIPS 180-4 (checked against Python's hashlib below).
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import json
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -241,3 +243,21 @@ def test_created_folder_left_empty_is_removed_on_release(tmp_path):
     lock.release()
     assert not folder.exists()
     assert MARKER_NAME == ".orbitmass-run"
+
+
+@pytest.mark.parametrize("code, words", [(errno.EROFS, "read-only file system"), (errno.EACCES, "read-only")])
+def test_check_writable_tries_a_file_and_names_the_reason(tmp_path, monkeypatch, code, words):
+    # root ignores permission bits, so the refusal is simulated at os.open (what a read-only mount or
+    # a folder without write permission makes it raise: EROFS / EACCES, POSIX open(2))
+    real_open = os.open
+
+    def refusing_open(path, *args, **kwargs):
+        if "write-probe" in str(path):
+            raise OSError(code, os.strerror(code), str(path))
+        return real_open(path, *args, **kwargs)
+
+    monkeypatch.setattr("orbitmass._atomic.os.open", refusing_open)
+    with pytest.raises(RunFolderError, match=words):
+        check_writable(tmp_path)
+    with pytest.raises(RunFolderError, match=f"cannot be created in {tmp_path}: .*{words}"):
+        check_writable(tmp_path / "new" / "run")

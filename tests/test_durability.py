@@ -444,3 +444,28 @@ def test_prepared_folder_holds_checkpoint_and_publish_keeps_it(small_target, tmp
     lock = prepare_run_folder(tmp_path / "never")
     lock.release()
     assert not (tmp_path / "never").exists()
+
+
+def test_cli_report_on_read_only_run_folder_one_line_before_drawing(fitted, tmp_path, monkeypatch, capsys):
+    import errno
+
+    from orbitmass.outputs import plots
+
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    before = tree_digest(out)
+    real_open = os.open
+
+    def read_only_open(path, *args, **kwargs):  # a read-only mount refuses new files with EROFS (POSIX open(2))
+        if "write-probe" in str(path):
+            raise OSError(errno.EROFS, os.strerror(errno.EROFS), str(path))
+        return real_open(path, *args, **kwargs)
+
+    def no_drawing(*a, **k):
+        raise AssertionError("a figure was drawn before the writability check")
+
+    monkeypatch.setattr("orbitmass._atomic.os.open", read_only_open)
+    monkeypatch.setattr(plots, "corner_figure", no_drawing)
+    code = main(["report", str(out)])
+    err = capsys.readouterr().err
+    assert code == 2 and "read-only file system" in err and len(err.strip().splitlines()) == 1
+    assert tree_digest(out) == before
