@@ -469,3 +469,16 @@ def test_cli_report_on_read_only_run_folder_one_line_before_drawing(fitted, tmp_
     err = capsys.readouterr().err
     assert code == 2 and "read-only file system" in err and len(err.strip().splitlines()) == 1
     assert tree_digest(out) == before
+
+
+def test_failing_figure_still_saves_the_run(fitted, tmp_path, monkeypatch):
+    from orbitmass.outputs import plots
+
+    def broken(*a, **k):
+        raise ValueError("simulated plotting failure")
+
+    monkeypatch.setattr(plots, "orbit_figure", broken)
+    with pytest.raises(RunFolderError, match=r"the run is saved .*simulated plotting failure"):
+        fitted.save(tmp_path / "run")
+    back = load(tmp_path / "run")  # samples and summary were published
+    assert back.results.samples.equals(fitted.results.samples)

@@ -451,7 +451,6 @@ def prepare_run_folder(out_dir: str | os.PathLike[str], *, overwrite: bool = Fal
     except BaseException:
         lock.release()
         raise
-    lock.options = {"overwrite": overwrite, "resume": resume, "protected": [str(p) for p in protected]}
     return lock
 
 
@@ -480,7 +479,9 @@ def save_run(results, out_dir: Path, *, overwrite: bool = False, products: bool 
     folder is checked again: if files orbitmass did not write appeared in it,
     or the lock was lost, the new run is kept beside it as
     ``<name>.unpublished-<random>`` and the error says so. Files of the old
-    folder named in ``keep`` (e.g. a checkpoint) are carried over.
+    folder named in ``keep`` (e.g. a checkpoint) are carried over. If the
+    figures or reports fail, the run (posterior, summary, inputs) is still
+    published and then a :class:`RunFolderError` says what failed.
 
     Returns
     -------
@@ -502,7 +503,7 @@ def save_run(results, out_dir: Path, *, overwrite: bool = False, products: bool 
     try:
         lock.verify()
         _check(out_dir, overwrite=True, protected=protected)
-        created_utc = (read_marker(out_dir) or {}).get("created_utc")
+        failed = None
 
         def before_publish(staging: Path) -> None:
             try:
@@ -518,15 +519,22 @@ def save_run(results, out_dir: Path, *, overwrite: bool = False, products: bool 
             write_posterior(results, staging / "posterior.h5")
             _copy_inputs(results.target, staging / "input")
             if products:
-                write_products(results, staging)
+                try:
+                    write_products(results, staging)
+                except Exception as exc:  # a figure or report failed: the samples are still saved
+                    log.warning("writing the figures and reports failed", exc_info=True)
+                    failed = f"{type(exc).__name__}: {exc}"
             write_json_atomic(results.summary, staging / "summary.json")
             for name in keep:
                 if (out_dir / name).is_file():
                     shutil.copy2(out_dir / name, staging / name)
-            write_marker(staging, RUN_KIND, files=[e for e in folder_entries(staging) if not e.endswith("/")],
-                         created_utc=created_utc)
+            write_marker(staging, RUN_KIND, files=[e for e in folder_entries(staging) if not e.endswith("/")])
         lock.published = True
     finally:
         if own:
             lock.release()
+    if failed:
+        raise RunFolderError(f"{out_dir}: the run is saved (summary.json, posterior.h5), but writing its figures "
+                             f"and reports failed ({failed}); render them again from the saved run once the cause "
+                             "is fixed")
     return out_dir
