@@ -90,7 +90,7 @@ log = logging.getLogger(__name__)
 MARKER_NAME = ".orbitmass-run"
 #: Lock file of the one process writing a folder (JSON: pid, host, created_utc, token).
 LOCK_NAME = ".orbitmass-lock"
-_TMP_RE = re.compile(r"^\.(?P<base>.+)\.[0-9a-z]+\.tmp$")
+_TMP_RE = re.compile(r"^\.(?P<base>.+)\.[0-9A-Za-z_-]+\.tmp$")
 
 
 def _error(message: str, remedy: str | None = None) -> RunFolderError:
