@@ -31,6 +31,9 @@ The output-folder check
     ("pass overwrite to replace it") and carry the attribute ``remedy``
     (``"overwrite"`` or ``None``) so a command line can name its own option.
 
+The module is a little over 600 lines, half of them docstrings: it is kept
+whole on purpose, as the one place where every rule of safe writing lives.
+
 Examples
 --------
 >>> import tempfile, pathlib
