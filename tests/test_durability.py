@@ -1,25 +1,33 @@
-"""Checkpoints, resume, interruption and atomic output (common practice, no source).
+"""Checkpoints, resume, interruption, atomic output and safe run folders (common practice, no source).
 
 The resume test demands bit-for-bit equality: an interrupted and resumed chain
 is the same chain as an uninterrupted run of the same seed and length.
+
+The run-folder probes (issue "hard edges": data loss first) check users' files
+by SHA-256 before and after (hashlib, FIPS 180-4): a refused write changes nothing.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
 import signal
 import subprocess
 import sys
 import time
+from pathlib import Path
 
+import h5py
 import numpy as np
 import pytest
 
-from orbitmass import Fit, RunFolderError, load
+from orbitmass import Fit, InputError, RunFolderError, load
 from orbitmass.cli import main
-from orbitmass.io import rundir
 from orbitmass.demo.simulate import TrueOrbit
+from orbitmass.io import rundir
+from orbitmass.io.checkpoint import load_checkpoint
+from orbitmass.io.rundir import check_run_folder_writable, load_run, prepare_run_folder, save_run
 
 from .conftest import make_target
 
@@ -155,3 +163,322 @@ def test_cli_sigint_saves_and_resume_continues(small_target, tmp_path):
     summary = json.loads((out / "summary.json").read_text())
     assert summary["diagnostics"]["n_steps"] > steps_before
     assert summary["diagnostics"]["interrupted"] is False
+
+
+# ------------------------------------------------------------------ run-folder safety probes
+def tree_digest(folder: Path) -> dict[str, str]:
+    """SHA-256 of every file below ``folder`` (relative path -> hex digest)."""
+    return {p.relative_to(folder).as_posix(): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+@pytest.fixture(scope="module")
+def fitted(tmp_path_factory):
+    """One tiny chain-sampled fit shared by the probes (300 steps, ~1 s)."""
+    folder = tmp_path_factory.mktemp("fitted")
+    rng = np.random.default_rng(20261201)
+    t = np.sort(rng.uniform(2000, 2024, 16))
+    target = make_target(folder / "data", TRUTH, rng=rng, t_pos=t, pos_err=3.0,
+                         distance_toml='parallax = { dist = "normal", mean = "50 mas", sd = "1 mas" }')
+    fit = Fit(seed=4, linear=False, max_steps=300, min_steps=300, progress=False).fit(target)
+    return fit
+
+
+def user_folder(base: Path) -> Path:
+    folder = base / "thesis"
+    (folder / "raw").mkdir(parents=True)
+    (folder / "thesis.tex").write_text("\\chapter{Orbits}", encoding="utf-8")
+    (folder / "raw" / "night1.fits").write_bytes(os.urandom(256))
+    return folder
+
+
+def test_overwrite_refuses_folder_with_unrelated_files(fitted, tmp_path):
+    folder = user_folder(tmp_path)
+    before = tree_digest(folder)
+    with pytest.raises(RunFolderError, match=r"not a folder orbitmass wrote.*raw/.*thesis\.tex"):
+        fitted.save(folder, overwrite=True)
+    with pytest.raises(RunFolderError):
+        prepare_run_folder(folder, overwrite=True)
+    assert tree_digest(folder) == before
+    assert sorted(p.name for p in folder.iterdir()) == ["raw", "thesis.tex"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["thesis"]  # no staging left
+
+
+def test_overwrite_refuses_run_folder_with_a_user_file_added(fitted, tmp_path):
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    (out / "my-notes.txt").write_text("do not lose", encoding="utf-8")
+    before = tree_digest(out)
+    with pytest.raises(RunFolderError, match=r"did not write \(my-notes\.txt\)"):
+        save_run(fitted.results, out, overwrite=True, products=False)
+    assert tree_digest(out) == before
+    (out / "my-notes.txt").unlink()
+    # a run folder holding only what orbitmass wrote is replaced with overwrite, and stays loadable
+    save_run(fitted.results, out, overwrite=True, products=False)
+    assert load_run(out).samples.equals(fitted.results.samples)
+    marker = json.loads((out / ".orbitmass-run").read_text())
+    assert marker["kind"] == "run" and "posterior.h5" in marker["files"] and marker["created_utc"]
+    assert not (out / ".orbitmass-lock").exists()
+
+
+def test_out_equal_to_input_folder_is_refused(fitted, tmp_path):
+    data = Path(fitted.results.target.source).parent
+    before = tree_digest(data)
+    for place in (data, data.parent):  # the input folder, and a folder containing it
+        with pytest.raises(RunFolderError, match="an input of this job"):
+            fitted.save(place, overwrite=True)
+    with pytest.raises(RunFolderError, match="an input of this job"):
+        prepare_run_folder(tmp_path / "x", protected=[tmp_path / "x" / "target.toml"])
+    assert tree_digest(data) == before
+
+
+def test_out_is_cwd_parent_or_home_is_refused(fitted, tmp_path, monkeypatch):
+    work = tmp_path / "project" / "work"
+    work.mkdir(parents=True)
+    (work / "draft.txt").write_text("mine", encoding="utf-8")
+    before = tree_digest(tmp_path / "project")
+    monkeypatch.chdir(work)
+    for place, why in ((".", "working directory"), (str(work), "working directory"),
+                       ("..", "contains the working directory"), ("/", "root of the file system")):
+        with pytest.raises(RunFolderError, match=why):
+            fitted.save(place, overwrite=True)
+    home = tmp_path / "home"
+    home.mkdir()
+    (home / ".profile").write_text("# mine", encoding="utf-8")
+    monkeypatch.setenv("HOME", str(home))  # Path.home() reads HOME (Python docs, os.path.expanduser)
+    with pytest.raises(RunFolderError, match="it is the home folder"):
+        save_run(fitted.results, home, overwrite=True, products=False)
+    assert tree_digest(tmp_path / "project") == before
+    assert (home / ".profile").read_text(encoding="utf-8") == "# mine"
+
+
+def test_two_writers_second_gets_lock_error_first_finishes(fitted, tmp_path):
+    out = tmp_path / "run"
+    first = prepare_run_folder(out)  # the first fit took the folder before sampling
+    assert (out / ".orbitmass-lock").is_file()
+    for attempt in (lambda: prepare_run_folder(out), lambda: prepare_run_folder(out, overwrite=True),
+                    lambda: save_run(fitted.results, out, overwrite=True, products=False)):
+        with pytest.raises(RunFolderError, match="another orbitmass process"):
+            attempt()
+    save_run(fitted.results, out, products=False, lock=first)  # the first publishes normally
+    first.release()
+    assert not (out / ".orbitmass-lock").exists()
+    back = load_run(out)
+    assert back.samples.equals(fitted.results.samples)
+    assert back.summary == json.loads((out / "summary.json").read_text())
+
+
+def test_second_writer_in_another_process(fitted, tmp_path):
+    out = tmp_path / "run"
+    code = ("import sys, time; from orbitmass.io.rundir import prepare_run_folder; "
+            f"lock = prepare_run_folder({str(out)!r}); print('locked', flush=True); sys.stdin.read()")
+    proc = subprocess.Popen([sys.executable, "-c", code], stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout.readline().strip() == "locked"
+        with pytest.raises(RunFolderError, match=rf"another orbitmass process \(pid {proc.pid}"):
+            fitted.save(out, overwrite=True)
+    finally:
+        proc.communicate("")
+    assert sorted(p.name for p in out.iterdir()) == [".orbitmass-lock", ".orbitmass-run"]
+
+
+def test_stale_lock_reported_with_how_to_remove(fitted, tmp_path):
+    out = tmp_path / "run"
+    code = f"from orbitmass.io.rundir import prepare_run_folder; prepare_run_folder({str(out)!r})"
+    subprocess.run([sys.executable, "-c", code], check=True)  # exits without releasing: a crashed fit
+    with pytest.raises(RunFolderError, match="stale lock") as err:
+        fitted.save(out, overwrite=True)
+    assert "remove that file" in str(err.value) and "--" not in str(err.value)
+    assert (out / ".orbitmass-lock").is_file()  # not silently stolen
+
+
+def test_hand_edited_samples_are_refused(fitted, tmp_path):
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    with h5py.File(out / "posterior.h5", "r+") as f:
+        samples = f["samples"]
+        samples[0, 0] = samples[0, 0] * 2.0
+    with pytest.raises(RunFolderError, match="dataset /samples does not match"):
+        load(out)
+
+
+def test_runs_saved_without_checksums_still_load(fitted, tmp_path):
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    with h5py.File(out / "posterior.h5", "r+") as f:  # what earlier versions wrote
+        del f.attrs["summary_sha256"]
+        f.visititems(lambda name, obj: obj.attrs.__delitem__("sha256") if "sha256" in obj.attrs else None)
+    assert load_run(out).samples.equals(fitted.results.samples)
+
+
+def test_edited_summary_numbers_are_refused(fitted, tmp_path):
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    summary = json.loads((out / "summary.json").read_text())
+    summary["derived"]["mass_msun"]["median"] *= 1.5
+    (out / "summary.json").write_text(json.dumps(summary))
+    with pytest.raises(RunFolderError, match="do not match posterior.h5"):
+        load_run(out)
+
+
+@pytest.mark.parametrize("content, why", [("[1, 2, 3]", "holds a JSON list, expected a JSON object"),
+                                          ("\x00\xff garbage", "cannot read summary.json")])
+def test_summary_not_an_object_or_unreadable(fitted, tmp_path, content, why):
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    (out / "summary.json").write_bytes(content.encode("latin-1"))
+    with pytest.raises(RunFolderError, match=why):
+        load(out)
+
+
+def test_report_on_missing_folder_says_it_does_not_exist(tmp_path, capsys):
+    with pytest.raises(RunFolderError, match="no such folder"):
+        load(tmp_path / "gone")
+    code = main(["report", str(tmp_path / "gone")])
+    err = capsys.readouterr().err
+    assert code == 2 and "no such folder" in err and "Traceback" not in err
+
+
+def test_report_fails_before_any_work_when_folder_unwritable(fitted, tmp_path, monkeypatch):
+    from orbitmass.outputs import plots
+
+    def no_drawing(*a, **k):
+        raise AssertionError("a figure was drawn before the writability check")
+
+    monkeypatch.setattr(plots, "corner_figure", no_drawing)
+    a_file = tmp_path / "a-file"
+    a_file.write_text("x")
+    with pytest.raises(RunFolderError, match="is a file"):
+        fitted.report(a_file / "report")
+    with pytest.raises(RunFolderError, match="not a folder"):
+        check_run_folder_writable(a_file)
+    # a folder of the user holding a file the report would replace
+    mine = tmp_path / "paper"
+    mine.mkdir()
+    (mine / "table.tex").write_text("my own table")
+    with pytest.raises(RunFolderError, match="table.tex"):
+        fitted.report(mine)
+    assert (mine / "table.tex").read_text() == "my own table"
+
+
+def skip_unless_write_protected(folder: Path) -> None:
+    """Skip when chmod 0555 does not stop writes (root, CAP_DAC_OVERRIDE): detected by trying."""
+    try:
+        (folder / "probe").write_text("x")
+    except PermissionError:
+        return
+    (folder / "probe").unlink()
+    pytest.skip("running as root: chmod 0555 does not stop writes (the path-under-a-file probes cover it)")
+
+
+def test_report_on_read_only_run_folder(fitted, tmp_path):
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    out.chmod(0o555)
+    try:
+        skip_unless_write_protected(out)
+        with pytest.raises(RunFolderError, match="read-only"):
+            check_run_folder_writable(out)
+    finally:
+        out.chmod(0o755)
+
+
+def test_garbled_checkpoint_gives_input_error(small_target, tmp_path):
+    ckpt = tmp_path / "checkpoint.h5"
+    ckpt.write_bytes(b"\x89HDF\r\n\x1a\n" + os.urandom(200))  # HDF5 signature, then garbage
+    with pytest.raises(InputError, match="not a readable orbitmass checkpoint") as err:
+        Fit(seed=1, linear=False, max_steps=50, checkpoint=ckpt, resume=True, progress=False).fit(small_target)
+    assert err.value.file == str(ckpt)
+    # a real checkpoint whose chain was edited, and one whose random state was garbled
+    Fit(seed=1, linear=False, max_steps=200, min_steps=200, progress=False, checkpoint=ckpt).fit(
+        small_target, stop_flag=stop_after(30))
+    load_checkpoint(ckpt)  # intact
+    with h5py.File(ckpt, "r+") as f:
+        f["chain"][0, 0, 0] += 1.0
+    with pytest.raises(InputError, match="/chain does not match its recorded checksum"):
+        load_checkpoint(ckpt)
+    Fit(seed=1, linear=False, max_steps=200, min_steps=200, progress=False, checkpoint=ckpt).fit(
+        small_target, stop_flag=stop_after(30))
+    with h5py.File(ckpt, "r+") as f:
+        f.attrs["random_state"] = '["MT19937", [1, 2], 0'
+    with pytest.raises(InputError, match=str(ckpt)):
+        Fit(seed=1, linear=False, max_steps=50, checkpoint=ckpt, resume=True, progress=False).fit(small_target)
+
+
+def test_read_only_parent_refused_before_sampling(tmp_path):
+    parent = tmp_path / "ro"
+    parent.mkdir()
+    parent.chmod(0o555)
+    try:
+        skip_unless_write_protected(parent)
+        with pytest.raises(RunFolderError, match="read-only"):
+            prepare_run_folder(parent / "run")
+    finally:
+        parent.chmod(0o755)
+
+
+def test_path_under_a_file_refused_before_sampling(fitted, tmp_path):
+    a_file = tmp_path / "results.txt"
+    a_file.write_text("mine", encoding="utf-8")
+    before = tree_digest(tmp_path)
+    for out in (a_file / "run", a_file / "deeper" / "run"):
+        with pytest.raises(RunFolderError, match="is a file, not a folder"):
+            prepare_run_folder(out)
+        with pytest.raises(RunFolderError, match="is a file, not a folder"):
+            fitted.save(out)
+    with pytest.raises(RunFolderError, match="exists and is not a folder"):
+        fitted.save(a_file, overwrite=True)
+    assert tree_digest(tmp_path) == before
+
+
+def test_prepared_folder_holds_checkpoint_and_publish_keeps_it(small_target, tmp_path):
+    out = tmp_path / "run"
+    with prepare_run_folder(out) as lock:
+        ckpt = out / "checkpoint.h5"
+        fit = Fit(seed=2, linear=False, max_steps=200, min_steps=200, progress=False, checkpoint=ckpt)
+        fit.fit(small_target, stop_flag=stop_after(40))
+        save_run(fit.results, out, keep=("checkpoint.h5",), products=False, lock=lock)
+    assert sorted(p.name for p in out.iterdir()) == [".orbitmass-run", "checkpoint.h5", "input", "posterior.h5",
+                                                     "summary.json"]
+    # resume into the same folder: allowed without overwrite, the checkpoint continues
+    with prepare_run_folder(out, resume=True) as lock:
+        again = Fit(seed=2, linear=False, max_steps=200, min_steps=200, progress=False,
+                    checkpoint=out / "checkpoint.h5", resume=True).fit(small_target)
+        save_run(again.results, out, products=False, lock=lock)
+    assert load_run(out).chain.shape[0] == 200
+    # a failed fit leaves no empty folder behind
+    lock = prepare_run_folder(tmp_path / "never")
+    lock.release()
+    assert not (tmp_path / "never").exists()
+
+
+def test_cli_report_on_read_only_run_folder_one_line_before_drawing(fitted, tmp_path, monkeypatch, capsys):
+    import errno
+
+    from orbitmass.outputs import plots
+
+    out = save_run(fitted.results, tmp_path / "run", products=False)
+    before = tree_digest(out)
+    real_open = os.open
+
+    def read_only_open(path, *args, **kwargs):  # a read-only mount refuses new files with EROFS (POSIX open(2))
+        if "write-probe" in str(path):
+            raise OSError(errno.EROFS, os.strerror(errno.EROFS), str(path))
+        return real_open(path, *args, **kwargs)
+
+    def no_drawing(*a, **k):
+        raise AssertionError("a figure was drawn before the writability check")
+
+    monkeypatch.setattr("orbitmass._atomic.os.open", read_only_open)
+    monkeypatch.setattr(plots, "corner_figure", no_drawing)
+    code = main(["report", str(out)])
+    err = capsys.readouterr().err
+    assert code == 2 and "read-only file system" in err and len(err.strip().splitlines()) == 1
+    assert tree_digest(out) == before
+
+
+def test_failing_figure_still_saves_the_run(fitted, tmp_path, monkeypatch):
+    from orbitmass.outputs import plots
+
+    def broken(*a, **k):
+        raise ValueError("simulated plotting failure")
+
+    monkeypatch.setattr(plots, "orbit_figure", broken)
+    with pytest.raises(RunFolderError, match=r"the run is saved .*simulated plotting failure"):
+        fitted.save(tmp_path / "run")
+    back = load(tmp_path / "run")  # samples and summary were published
+    assert back.results.samples.equals(fitted.results.samples)

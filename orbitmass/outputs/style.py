@@ -24,10 +24,12 @@ from __future__ import annotations
 import contextlib
 import logging
 import os
-import secrets
 from collections.abc import Iterator, Sequence
 from pathlib import Path
 from typing import Any
+
+from orbitmass._atomic import atomic_file as _atomic
+from orbitmass._atomic import write_atomic
 
 __all__ = [
     "PALETTE",
@@ -182,53 +184,6 @@ def figure_size(columns: int = 1, aspect: float = 0.75) -> tuple[float, float]:
         raise ValueError(f"aspect must be positive, got {aspect!r}")
     width = SINGLE_COLUMN_IN if columns == 1 else DOUBLE_COLUMN_IN
     return (width, width * aspect)
-
-
-def _open_temp(dest: Path) -> tuple[int, Path]:
-    """Open a new temporary file beside ``dest`` (mode 0666 less the umask, like a plain open)."""
-    for _ in range(100):
-        tmp = dest.parent / f".{dest.name}.{secrets.token_hex(6)}.tmp"
-        try:
-            return os.open(tmp, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o666), tmp
-        except FileExistsError:
-            continue
-    raise FileExistsError(f"no free temporary name beside {dest}")
-
-
-@contextlib.contextmanager
-def _atomic(dest: Path) -> Iterator[Any]:
-    """Binary file handle whose content replaces ``dest`` only when the block succeeds."""
-    fd, tmp = _open_temp(dest)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            yield fh
-        os.replace(tmp, dest)
-    except BaseException:
-        with contextlib.suppress(FileNotFoundError):
-            os.unlink(tmp)
-        raise
-
-
-def write_atomic(path: str | os.PathLike[str], data: str | bytes) -> Path:
-    """Write ``data`` to ``path`` atomically (temporary file, then :func:`os.replace`).
-
-    Parameters
-    ----------
-    path : str or path-like
-        Destination file; its folder must exist.
-    data : str or bytes
-        Text (written as UTF-8) or raw bytes.
-
-    Returns
-    -------
-    Path
-        The destination path.
-    """
-    path = Path(path)
-    payload = data.encode("utf-8") if isinstance(data, str) else bytes(data)
-    with _atomic(path) as fh:
-        fh.write(payload)
-    return path
 
 
 def save_figure(
