@@ -9,6 +9,7 @@ explicit rotations; nothing of the package is reused in it).
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import astropy.constants as const
@@ -415,3 +416,37 @@ def test_extended_mass_term_rotates_like_the_schwarzschild_term():
         np.testing.assert_allclose(both[key], kepler[key], rtol=0, atol=1e-9 * np.abs(kepler[key]).max())
     with pytest.raises(ValueError, match="exactly one"):
         ExtendedMassTerm()
+
+
+# ----------------------------------------------------------------------------- the 1PN simulator of the demo
+
+def test_simulate_pn_newtonian_mode_matches_keplerian_simulator():
+    # orbitmass.demo.simulate (closed-form Keplerian, independent formulation) against the
+    # integrator with every relativistic piece off
+    from orbitmass.demo.simulate import TrueOrbit, simulate
+    from orbitmass.demo.simulate_pn import simulate_pn
+    truth = TrueOrbit(mass_msun=4.0e6, distance_pc=8000.0, period_yr=16.0, eccentricity=0.88, inclination_deg=130.0,
+                      arg_periastron_deg=70.0, ascending_node_deg=225.0, periastron_time=2018.0)
+    t = np.linspace(2004.0, 2036.0, 801)
+    kepler = simulate(truth, t)
+    newton = simulate_pn(truth, t, pn=False, redshift=False, roemer=False)
+    for key in ("east_mas", "north_mas"):
+        assert np.abs(newton[key] - kepler[key]).max() < 1e-6
+    assert np.abs(newton["rv_companion_kms"] - kepler["rv_companion_kms"]).max() < 1e-4
+
+
+def test_simulate_pn_matches_the_test_integration(pn_run):
+    # The demo's simulator against the integration written in this file (same physics, separate code)
+    from orbitmass.demo.simulate import TrueOrbit
+    from orbitmass.demo.simulate_pn import simulate_pn
+    case, t_obs, run = pn_run
+    truth = TrueOrbit(mass_msun=case["mass"], distance_pc=case["distance"], period_yr=case["period"],
+                      eccentricity=case["ecc"], inclination_deg=math.degrees(case["inc"]),
+                      arg_periastron_deg=math.degrees(case["w"]), ascending_node_deg=math.degrees(case["node"]),
+                      periastron_time=case["t_ref"] + case["period"] / 2)
+    north, east, vz, _ = run.observe(t_obs, case["distance"])
+    sim = simulate_pn(truth, t_obs)
+    assert np.hypot(sim["north_mas"] - north, sim["east_mas"] - east).max() < 1e-5
+    assert np.abs(sim["rv_companion_kms"] - vz).max() < 1e-3
+    with pytest.raises(ValueError, match="test particle"):
+        simulate_pn(dataclasses.replace(truth, mass_ratio=0.1), t_obs)
