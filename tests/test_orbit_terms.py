@@ -85,7 +85,10 @@ def test_vectorised_equals_loop(term):
         single = evaluate(_row(state, k), EPOCHS, terms=(term,), extra=ON)
         for key in ("north_mas", "east_mas", "vz_kms"):
             assert joint[key].shape == (3, EPOCHS.size)
-            np.testing.assert_allclose(joint[key][k], single[key][0], rtol=1e-12, atol=1e-9)
+            # the Roemer solve decides jointly whether to iterate: equal to its 10 ms tolerance,
+            # i.e. to 1e-7 mas and 1e-5 km/s for these orbits (v < 10,000 km/s, a < 1e5 km/s/yr)
+            np.testing.assert_allclose(joint[key][k], single[key][0], rtol=1e-12,
+                                       atol=1e-5 if term.name == "roemer" else 1e-9)
 
 
 @pytest.mark.parametrize("term", TERMS, ids=lambda t: f"{t.name}")
