@@ -381,6 +381,15 @@ def test_plummer_precession_uniform_core_limit():
     assert abs(float(plummer_precession_per_orbit(mass, a, ecc, frac, 1e-4))) < 1e-9 * abs(expected) * 1e6
 
 
+@pytest.mark.parametrize("ecc", [0.3, 0.88, 0.99])
+def test_plummer_quadrature_converged(ecc):
+    # The default 256-node trapezoid rule against 8192 nodes (exponential convergence of the trapezoid
+    # rule for smooth periodic integrands, common practice, no source), scale radius 1 au to 3000 au
+    for b in (1.0, 10.0, 300.0, 3000.0):
+        dense = float(plummer_precession_per_orbit(4.0e6, 1000.0, ecc, 0.01, b, n_nodes=8192))
+        assert float(plummer_precession_per_orbit(4.0e6, 1000.0, ecc, 0.01, b)) == pytest.approx(dense, rel=1e-9)
+
+
 def test_plummer_precession_against_integration():
     # Independent check: integrate Newton's law plus the Plummer force (Plummer 1911; Binney &
     # Tremaine 2008 eq. 2.44a, from memory) with scipy over one radial period from apoastron and
