@@ -254,7 +254,7 @@ def test_engine_matches_pn_integration(pn_run):
     # Engine (Roemer + Schwarzschild precession + first-order redshift, factors 1) against the
     # independent 1PN integration over two orbits, elements = osculating Keplerian elements at the
     # reference apoastron, period = the integration's anomalistic period (what a fit measures).
-    # Measured: 0.026 mas and 2.2 km/s (at the periastra). Requirements:
+    # Measured: 0.026 mas and 2.14 km/s (at the periastra; Keplerian: 1.78 mas, 234 km/s). Requirements:
     #  - positions < 0.05 mas: half of the best astrometric errors (0.1 mas); the remaining 1PN shape
     #    differences are O(GM/c^2) = 0.005 mas times a few;
     #  - velocities < 3 km/s and < 1.2 x max |v_z| v^2/c^2: the difference is third order in v/c
@@ -280,8 +280,10 @@ def test_engine_matches_pn_integration(pn_run):
 def test_best_fitting_engine_orbit_matches_pn_integration(pn_run):
     # What a fit does: adjust the engine's elements (period, e, a, mean anomaly, i, omega, Omega) to
     # the 1PN integration by least squares (scipy), weights 0.01 mas and 0.1 km/s. The rotated
-    # Keplerian ellipse then represents the 1PN orbit to (measured) 0.025 mas and 1.06 km/s, the
-    # remaining velocity difference again third order in v/c, at the periastra only.
+    # Keplerian ellipse then represents the 1PN orbit over two orbits to (measured) 0.034 mas and
+    # 0.16 km/s: the 2.1 km/s of the osculating match above is the O(GM/(c^2 a)) difference between
+    # osculating and effective elements (here e lower by 2.7e-5, a by 0.068 au), which a fit absorbs.
+    # Required: 0.05 mas (half the best astrometric errors) and 0.5 km/s (1/20 of velocity errors).
     from scipy.optimize import least_squares
     case, t_obs, run = pn_run
     north, east, vz, _ = run.observe(t_obs, case["distance"])
@@ -306,7 +308,7 @@ def test_best_fitting_engine_orbit_matches_pn_integration(pn_run):
     fit = least_squares(residuals, start, x_scale=[1e-4, 1e-5, 1e-2, 1e-5, 1e-5, 1e-5, 1e-5], xtol=1e-12,
                         ftol=1e-12)
     dpos, dv = _differences(model(fit.x), north, east, vz)
-    assert dpos < 0.05 and dv < 1.5
+    assert dpos < 0.05 and dv < 0.5
 
 
 def test_velocity_difference_is_third_order():
