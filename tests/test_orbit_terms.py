@@ -145,3 +145,15 @@ def test_missing_state_fields_are_named():
         evaluate(no_distance, EPOCHS, terms=(ExtendedMassTerm(scale_radius_mas=20.0),), extra=ON)
     with pytest.raises(ValueError, match="positive"):
         ExtendedMassTerm(scale_radius_au=-1.0)
+
+
+def test_semimajor_axis_from_keplers_law_when_absent():
+    # Without a_au the terms use Kepler's third law (a^3 = G M P^2 / (4 pi^2), common practice) with
+    # the rest-frame period: identical results to passing the same a_au explicitly
+    state = _states()
+    bare = dataclasses.replace(state, a_au=None)
+    terms = (RedshiftTerm(), PrecessionTerm(), ExtendedMassTerm(scale_radius_au=300.0))
+    with_a = evaluate(state, EPOCHS, terms=terms, extra=ON)
+    without = evaluate(bare, EPOCHS, terms=terms, extra=ON)
+    for key in with_a:
+        np.testing.assert_allclose(without[key], with_a[key], rtol=1e-12, atol=1e-9)

@@ -32,6 +32,19 @@ line-of-sight Thiele-Innes constants in au) for the Roemer delay;
 Helpers for derived posteriors: :func:`precession_arcmin_per_orbit`,
 :func:`redshift_at_periastron_kms`, :func:`periastron_schwarzschild_radii`,
 :func:`roemer_delay_range_days`, :func:`plummer_precession_per_orbit`.
+
+Verification (tests/test_relativity.py)
+---------------------------------------
+Against an independent first post-Newtonian integration (scipy) of an
+e = 0.88, 16-yr orbit around 4e6 solar masses at 8 kpc (periastron 1,530
+Schwarzschild radii; 11.3 arcmin per orbit, 190 km/s redshift at
+periastron, 8.5-day Roemer range), over two orbits: with the osculating
+elements at the reference apoastron and the anomalistic period, the engine
+with all three relativistic terms differs by at most 0.026 mas and 2.1 km/s
+(the velocity difference third order in v/c, at the periastra); with
+least-squares elements by 0.034 mas and 0.16 km/s. A Keplerian evaluation
+differs by 1.8 mas and 234 km/s; a precession spread uniformly in time
+instead of with the true anomaly by 0.17 mas and 4 km/s.
 """
 
 from __future__ import annotations
@@ -45,6 +58,7 @@ from numpy.typing import NDArray
 
 from orbitmass.core.kepler import kepler_cos_sin
 from orbitmass.core.orbit import KeplerBasis, OrbitState
+from orbitmass.core.physics import semimajor_axis_au
 from orbitmass.units import (
     C_AU_PER_YR,
     C_KMS,
@@ -82,7 +96,7 @@ def _semimajor_axis_au(state: OrbitState) -> Array:
         return np.asarray(state.a_au, dtype=float)
     if state.mass_msun is None:
         raise ValueError("a relativistic model term needs OrbitState.a_au or OrbitState.mass_msun")
-    return np.cbrt(np.asarray(state.mass_msun, dtype=float) * np.asarray(state.period_rest_yr, dtype=float) ** 2)
+    return semimajor_axis_au(state.mass_msun, state.period_rest_yr)
 
 
 def _mass_msun(state: OrbitState) -> Array:
