@@ -80,9 +80,11 @@ def test_declares_the_contract(term):
 @pytest.mark.parametrize("term", TERMS, ids=lambda t: f"{t.name}")
 def test_vectorised_equals_loop(term):
     state = _states()
-    joint = evaluate(state, EPOCHS, terms=(term,), extra=ON)
+    # factors differ between the parameter sets, shape (n_sets, 1) as the parameter space passes them
+    per_set = {key: value * np.array([[1.0], [0.5], [2.0]]) for key, value in ON.items()}
+    joint = evaluate(state, EPOCHS, terms=(term,), extra=per_set)
     for k in range(3):
-        single = evaluate(_row(state, k), EPOCHS, terms=(term,), extra=ON)
+        single = evaluate(_row(state, k), EPOCHS, terms=(term,), extra={key: v[k:k + 1] for key, v in per_set.items()})
         for key in ("north_mas", "east_mas", "vz_kms"):
             assert joint[key].shape == (3, EPOCHS.size)
             # the Roemer solve decides jointly whether to iterate: equal to its 10 ms tolerance,

@@ -238,11 +238,14 @@ class RedshiftTerm:
 
     to the Keplerian ``v_z``, with ``f`` the ``redshift_factor`` (0 Newton,
     1 general relativity). Dropped: the third-order terms
-    ``v_z (v^2 / 2 + G M / r) / c^2``, about ``|v_z| v^2 / c^2``: ~2-3 km/s at
-    the periastron of an e = 0.88, 16-yr orbit around 4e6 solar masses (where
-    ``v ~ 7,700 km/s``), well below 0.1 km/s elsewhere on that orbit; and the
-    fourth-order ones (below 0.1 km/s). The
-    tests compare the expansion with the exact expression evaluated in mpmath.
+    ``v_z (v^2 / 2 + G M / r) / c^2``, about ``|v_z| v^2 / c^2``: at most
+    ``v^3 / c^2`` = 4.5 km/s at the periastron of an e = 0.88, 16-yr orbit
+    around 4e6 solar masses (``v = 7,400 km/s``; 1.9 km/s for the orientation
+    of the tests), below 0.1 km/s beyond ~10 periastron distances; and the
+    fourth-order ones (below 0.1 km/s there). The tests compare the expansion
+    with the exact expression evaluated in mpmath. The same order is the
+    accuracy of any rotated-ellipse model of a 1PN orbit's velocities, and is
+    coordinate-dependent.
 
     ``v`` and ``r`` are taken from the (possibly rotated) in-plane basis:
     ``r = a sqrt(X^2 + Y^2)``, ``v = n a sqrt(dX^2 + dY^2)`` with
