@@ -241,11 +241,11 @@ class RedshiftTerm:
     ``v_z (v^2 / 2 + G M / r) / c^2``, about ``|v_z| v^2 / c^2``: at most
     ``v^3 / c^2`` = 4.5 km/s at the periastron of an e = 0.88, 16-yr orbit
     around 4e6 solar masses (``v = 7,400 km/s``; 1.9 km/s for the orientation
-    of the tests), below 0.1 km/s beyond ~10 periastron distances; and the
-    fourth-order ones (below 0.1 km/s there). The tests compare the expansion
-    with the exact expression evaluated in mpmath. The same order is the
-    accuracy of any rotated-ellipse model of a 1PN orbit's velocities, and is
-    coordinate-dependent.
+    of the tests), ~0.1 km/s at ten periastron distances; and the
+    fourth-order ones (below 0.2 km/s at periastron). The tests compare the
+    expansion with the exact expression evaluated in mpmath. At third order
+    the split between orbital velocity and redshift also depends on the
+    coordinates in which the orbit is written.
 
     ``v`` and ``r`` are taken from the (possibly rotated) in-plane basis:
     ``r = a sqrt(X^2 + Y^2)``, ``v = n a sqrt(dX^2 + dY^2)`` with
