@@ -471,3 +471,77 @@ def test_simulate_pn_matches_the_test_integration(pn_run):
     assert np.abs(sim["rv_companion_kms"] - vz).max() < 1e-3
     with pytest.raises(ValueError, match="test particle"):
         simulate_pn(dataclasses.replace(truth, mass_ratio=0.1), t_obs)
+
+
+# ----------------------------------------------------------------------------- recovery (least squares)
+
+def _fit_least_squares(t_pos, north, east, t_rv, rv, pos_err, rv_err, terms, start, free_factors):
+    """Least-squares fit of the engine (scipy) to positions and velocities; returns (x, sigma).
+
+    Parameters: period, e, mean anomaly at 2010, i, omega, Omega, mass (1e6 M_sun), distance (kpc),
+    then the factors in ``free_factors`` (redshift, precession). Uncertainties from the Jacobian,
+    sigma = sqrt(diag((J^T J)^-1)) (Gauss-Newton covariance, common practice, no source).
+    """
+    from scipy.optimize import least_squares
+
+    def model(p, t, positions):
+        period, ecc, m0, inc, w, node, mass6, dist_kpc = p[:8]
+        extra = {"redshift_factor": 0.0, "precession_factor": 0.0}
+        extra.update(dict(zip(free_factors, p[8:])))
+        a = (GM_SUN * mass6 * 1e6 * period**2 / (4 * math.pi**2)) ** (1 / 3)
+        A, B, F, G, C, H = thiele_innes(a, math.cos(inc), math.sin(inc), math.cos(w), math.sin(w), math.cos(node),
+                                        math.sin(node))
+        mas = 1.0 / dist_kpc
+        st = OrbitState(period_rest_yr=period, period_obs_yr=period, ecc=ecc, mean_anomaly_ref=m0, t_ref_yr=2010.0,
+                        ti_mas=(A * mas, B * mas, F * mas, G * mas), ch_au=(C, H), mass_msun=mass6 * 1e6, a_au=a,
+                        distance_pc=dist_kpc * 1000)
+        return evaluate(st, t, positions=positions, velocities=not positions, terms=terms, extra=extra)
+
+    def residuals(p):
+        pos = model(p, t_pos, True)
+        vel = model(p, t_rv, False)
+        return np.concatenate([(pos["north_mas"] - north) / pos_err, (pos["east_mas"] - east) / pos_err,
+                               (vel["vz_kms"] - rv) / rv_err])
+
+    lower = [15.0, 0.8, 2.5, 1.5, 0.5, 3.0, 3.0, 6.0] + [-3.0] * len(free_factors)
+    upper = [17.0, 0.95, 3.8, 3.0, 2.0, 4.8, 5.0, 10.0] + [5.0] * len(free_factors)
+    scale = [1e-3, 1e-4, 1e-3, 1e-3, 1e-3, 1e-3, 1e-2, 1e-2] + [0.05] * len(free_factors)
+    fit = least_squares(residuals, start, bounds=(lower, upper), x_scale=scale, xtol=1e-12, ftol=1e-12,
+                        max_nfev=2000)
+    assert fit.success and np.all(np.abs(fit.active_mask) == 0)      # converged, inside the bounds
+    cov = np.linalg.inv(fit.jac.T @ fit.jac)
+    return fit.x, np.sqrt(np.diag(cov))
+
+
+@pytest.mark.parametrize("gr", [True, False], ids=["GR data", "Newtonian control"])
+def test_least_squares_recovers_factors_mass_distance(gr, rng):
+    # Data from the demo's 1PN simulator (orbitmass.demo.simulate_pn, its own scipy integration):
+    # astrometry every 0.25 yr over two orbits at 0.1 mas, velocities at 10 km/s, dense around the
+    # periastra. The engine with sampled factors recovers the factors (1 GR, 0 Newton), the mass and
+    # the distance within 3 sigma of the truth (Gauss-Newton uncertainties). Measured (this seed):
+    # f_z = 1.002 +- 0.029, f_SP = 0.987 +- 0.031, M = 3.994 +- 0.012 (1e6), D = 7.998 +- 0.011 kpc;
+    # Newtonian control 0.014 +- 0.028, -0.015 +- 0.031. The Keplerian fit of the GR data is biased:
+    # M = 4.240 +- 0.010 (+6.0 %, 23 sigma), D = 8.177 +- 0.009 kpc (+2.2 %, 21 sigma).
+    from orbitmass.demo.simulate import TrueOrbit
+    from orbitmass.demo.simulate_pn import simulate_pn
+    truth = TrueOrbit(mass_msun=4.0e6, distance_pc=8000.0, period_yr=16.0, eccentricity=0.88, inclination_deg=130.0,
+                      arg_periastron_deg=70.0, ascending_node_deg=225.0, periastron_time=2018.0)
+    t_pos = np.arange(2002.1, 2034.0, 0.25)
+    t_rv = np.sort(np.concatenate([np.arange(2002.3, 2034.0, 1.0), 2018.0 + np.linspace(-0.3, 0.3, 13),
+                                   2034.0 + np.linspace(-0.3, 0.3, 13)]))
+    pos = simulate_pn(truth, t_pos, t_ref_yr=2010.0, pn=gr, redshift=gr)
+    vel = simulate_pn(truth, t_rv, t_ref_yr=2010.0, pn=gr, redshift=gr)
+    north = pos["north_mas"] + rng.normal(0, 0.1, t_pos.size)
+    east = pos["east_mas"] + rng.normal(0, 0.1, t_pos.size)
+    rv = vel["rv_companion_kms"] + rng.normal(0, 10.0, t_rv.size)
+    start = [16.0, 0.88, math.pi, math.radians(130), math.radians(70), math.radians(225), 4.0, 8.0]
+    factors = ("redshift_factor", "precession_factor")
+    x, sigma = _fit_least_squares(t_pos, north, east, t_rv, rv, 0.1, 10.0, ALL_TERMS, start + [0.5, 0.5], factors)
+    expected = 1.0 if gr else 0.0
+    assert abs(x[8] - expected) < 3 * sigma[8] and sigma[8] < 0.2          # redshift factor
+    assert abs(x[9] - expected) < 3 * sigma[9] and sigma[9] < 0.2          # precession factor
+    assert abs(x[6] - 4.0) < 3 * sigma[6]                                  # mass (1e6 M_sun)
+    assert abs(x[7] - 8.0) < 3 * sigma[7]                                  # distance (kpc)
+    if gr:
+        kx, ksigma = _fit_least_squares(t_pos, north, east, t_rv, rv, 0.1, 10.0, (), start, ())
+        assert kx[6] - 4.0 > 10 * ksigma[6] and kx[7] - 8.0 > 10 * ksigma[7]   # Keplerian mass, distance biased
