@@ -130,6 +130,8 @@ class KeplerBasis:
     ``cos_E``, ``sin_E``: the eccentric anomaly; ``X``, ``Y``: position in
     units of ``a``; ``dX``, ``dY``: derivatives with respect to the mean
     anomaly (multiply by ``2 pi / P`` for a rate per year).
+    ``mean_anomaly``: the mean anomaly (rad), not wrapped, so a term can count
+    the orbits swept since the reference epoch (None if not known).
     """
 
     cos_E: Array
@@ -138,6 +140,7 @@ class KeplerBasis:
     Y: Array
     dX: Array
     dY: Array
+    mean_anomaly: Array | None = None
 
 
 def kepler_basis(t_yr, *, t_ref_yr: float, period_obs_yr, ecc, mean_anomaly_ref,
@@ -167,7 +170,7 @@ def kepler_basis(t_yr, *, t_ref_yr: float, period_obs_yr, ecc, mean_anomaly_ref,
         dY = root * cos_E * inv
     else:
         dX = dY = None
-    return KeplerBasis(cos_E=cos_E, sin_E=sin_E, X=X, Y=Y, dX=dX, dY=dY)
+    return KeplerBasis(cos_E=cos_E, sin_E=sin_E, X=X, Y=Y, dX=dX, dY=dY, mean_anomaly=mean)
 
 
 @dataclass(frozen=True)
@@ -275,10 +278,12 @@ def _rotate_basis(basis: KeplerBasis, delta, delta_rate) -> KeplerBasis:
     Xr = c * X - s * Y
     Yr = s * X + c * Y
     if basis.dX is None:
-        return KeplerBasis(cos_E=basis.cos_E, sin_E=basis.sin_E, X=Xr, Y=Yr, dX=None, dY=None)
+        return KeplerBasis(cos_E=basis.cos_E, sin_E=basis.sin_E, X=Xr, Y=Yr, dX=None, dY=None,
+                           mean_anomaly=basis.mean_anomaly)
     dXr = c * basis.dX - s * basis.dY - delta_rate * Yr
     dYr = s * basis.dX + c * basis.dY + delta_rate * Xr
-    return KeplerBasis(cos_E=basis.cos_E, sin_E=basis.sin_E, X=Xr, Y=Yr, dX=dXr, dY=dYr)
+    return KeplerBasis(cos_E=basis.cos_E, sin_E=basis.sin_E, X=Xr, Y=Yr, dX=dXr, dY=dYr,
+                       mean_anomaly=basis.mean_anomaly)
 
 
 def relative_orbit(t_yr, *, t_ref_yr: float, period_obs_yr, period_rest_yr, ecc, mean_anomaly_ref,
