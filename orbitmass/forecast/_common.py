@@ -42,6 +42,7 @@ EPOCH_RANGE_JYEAR = (-5000.0, 10000.0)
 MAX_EPOCHS = 200_000
 #: file that marks a folder written by ``orbitmass predict`` or ``orbitmass plan``
 MANIFEST_NAME = "forecast-manifest.json"
+_COMMAND = {"predictions": "predict", "plan": "plan"}
 _PROBS = np.array(list(QUANTILES.values()))
 
 
@@ -332,13 +333,14 @@ def _event(companion: str, kind: str, t_ev: NDArray, start: float) -> dict[str, 
 
 
 # ---------------------------------------------------------------------- folders
-def prepare_out_dir(out_dir: str | os.PathLike, *, kind: str, overwrite: bool) -> Path:
+def prepare_out_dir(out_dir: str | os.PathLike, *, kind: str, overwrite: bool, check_only: bool = False) -> Path:
     """Make ``out_dir`` ready for writing; never touch files orbitmass did not write there.
 
     A missing or empty folder is fine. A non-empty folder is accepted only
     with ``overwrite`` and only when it holds a :data:`MANIFEST_NAME` of an
     earlier ``kind`` folder (``"predictions"`` or ``"plan"``) and nothing
-    but the files that manifest lists; those files are then removed.
+    but the files that manifest lists; those files are then removed
+    (unless ``check_only``, which only checks and changes nothing).
 
     Raises
     ------
@@ -351,8 +353,8 @@ def prepare_out_dir(out_dir: str | os.PathLike, *, kind: str, overwrite: bool) -
     if out.is_dir() and any(out.iterdir()):
         manifest = out / MANIFEST_NAME
         if not manifest.is_file():
-            raise RunFolderError(f"{out}: folder exists, is not empty and was not written by 'orbitmass {kind}'; "
-                                 "choose another --out")
+            raise RunFolderError(f"{out}: folder exists, is not empty and was not written by "
+                                 f"'orbitmass {_COMMAND[kind]}'; choose another --out")
         try:
             info = json.loads(manifest.read_text(encoding="utf-8"))
             listed = set(info["files"]) | {MANIFEST_NAME}
@@ -360,19 +362,21 @@ def prepare_out_dir(out_dir: str | os.PathLike, *, kind: str, overwrite: bool) -
         except (OSError, ValueError, KeyError, TypeError):
             raise RunFolderError(f"{manifest}: unreadable manifest; choose another --out") from None
         if old_kind != kind:
-            raise RunFolderError(f"{out}: holds an earlier '{old_kind}' output, not '{kind}'; choose another --out")
+            raise RunFolderError(f"{out}: holds an earlier 'orbitmass {_COMMAND.get(old_kind, old_kind)}' output, "
+                                 f"not '{_COMMAND[kind]}'; choose another --out")
         if not overwrite:
-            raise RunFolderError(f"{out}: holds an earlier '{kind}' output; pass --overwrite to replace it "
-                                 "or choose another --out")
+            raise RunFolderError(f"{out}: holds an earlier 'orbitmass {_COMMAND[kind]}' output; pass --overwrite "
+                                 "to replace it or choose another --out")
         foreign = sorted(p.name for p in out.iterdir() if p.name not in listed)
         if foreign:
             raise RunFolderError(f"{out}: also holds files orbitmass did not write ({', '.join(foreign[:5])}); "
                                  "nothing replaced; choose another --out")
-        for name in listed:
+        for name in [] if check_only else listed:
             p = out / name
             if p.is_file():
                 p.unlink()
-    out.mkdir(parents=True, exist_ok=True)
+    if not check_only:
+        out.mkdir(parents=True, exist_ok=True)
     return out
 
 

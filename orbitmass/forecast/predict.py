@@ -463,21 +463,22 @@ def write_predictions(results: Results, epochs: ArrayLike, out_dir: str | Path, 
     dict
         File role -> path.
     """
+    import matplotlib.pyplot as plt
+
     from orbitmass.outputs.style import save_figure, write_atomic
 
     t = _epochs(epochs)
-    out = prepare_out_dir(out_dir, kind="predictions", overwrite=overwrite)
+    prepare_out_dir(out_dir, kind="predictions", overwrite=overwrite, check_only=True)  # refuse before the work
     table = predict(results, t, n_draws=n_draws, seed=seed)
     after = float(t.min()) if after is None else float(after)
     events = next_events(results, after, seed=seed)
+    fig = prediction_figure(results, t, events=events, seed=seed)
+    out = prepare_out_dir(out_dir, kind="predictions", overwrite=overwrite)
     paths: dict[str, Path] = {}
     paths["predictions"] = write_atomic(out / "predictions.csv", table.to_csv(index=False, float_format="%.10g"))
     paths["events_json"] = write_atomic(out / "next_events.json", strict_json(
         {"target": results.target.name, "after_jyear": after, "companions": events}))
     paths["events_md"] = write_atomic(out / "next_events.md", events_markdown(events, after, results.target.name))
-    import matplotlib.pyplot as plt
-
-    fig = prediction_figure(results, t, events=events, seed=seed)
     try:
         png, pdf = save_figure(fig, out / "predictions")
     finally:
