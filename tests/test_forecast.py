@@ -88,8 +88,10 @@ def test_parse_costs():
 
 # ------------------------------------------------------------------ (c) contract
 def test_prediction_columns_exactly_match_contract(run_rv):
-    res = load(run_rv).results
+    fit = load(run_rv)
+    res = fit.results
     table = predict(res, [2013.0, 2014.5, 2020.0], n_draws=500)
+    pd.testing.assert_frame_equal(fit.predict([2013.0, 2014.5, 2020.0], n_draws=500), table)  # Fit.predict delegates
     expected = ["companion", "epoch_jyear"]
     for q in ("east_mas", "north_mas", "rho_mas", "theta_deg", "rv_kms"):
         expected += [f"{q}_{k}" for k in CONTRACT_BLOCK]

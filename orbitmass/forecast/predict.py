@@ -339,7 +339,7 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
     blue, verm, grey = PALETTE["blue"], PALETTE["vermillion"], "#7f7f7f"
     offsets = results.velocity_offsets()
     with style_context():
-        fig, axes = plt.subplots(len(names), n_cols, figsize=(DOUBLE_COLUMN_IN, 2.5 * len(names) + 0.3),
+        fig, axes = plt.subplots(len(names), n_cols, figsize=(DOUBLE_COLUMN_IN, 2.6 * len(names) + 0.8),
                                  squeeze=False, constrained_layout=True)
         for r, c in enumerate(names):
             comp = results.space.companion(c)
@@ -356,22 +356,23 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
             # sky
             ax = axes[r, 0]
             for k in range(min(n_tracks, d["east_mas"].shape[0])):
-                ax.plot(d["east_mas"][k], d["north_mas"][k], color=grey, lw=0.4, alpha=0.25, zorder=1)
+                ax.plot(d["east_mas"][k], d["north_mas"][k], color=grey, lw=0.4, alpha=0.25, zorder=1,
+                        label="posterior-draw tracks" if k == 0 else None)
             in_pred = (grid >= t_pred.min()) & (grid <= t_pred.max())
             med_e, med_n = np.median(d["east_mas"], axis=0), np.median(d["north_mas"], axis=0)
             if t_pred.size > 1:
-                ax.plot(med_e[in_pred], med_n[in_pred], color=verm, lw=1.4, zorder=3, label="predicted (median)")
+                ax.plot(med_e[in_pred], med_n[in_pred], color=verm, lw=1.4, zorder=3, label="predicted track (median)")
             pt = predictive_draws(results, t_pred[:: max(1, t_pred.size // 25)], companions=[c],
                                   n_draws=n_draws, seed=seed)[c]
             e_q, n_q = quantiles(pt["east_mas"]), quantiles(pt["north_mas"])
             ax.errorbar(e_q[0], n_q[0], xerr=[e_q[0] - e_q[3], e_q[4] - e_q[0]],
                         yerr=[n_q[0] - n_q[3], n_q[4] - n_q[0]], fmt="D", ms=2.5, color=verm, lw=0.7,
-                        zorder=4, label="predicted epochs (95 %)")
+                        zorder=4, label="predicted positions (95 %)")
             if comp.astrometry is not None and len(comp.astrometry):
                 east, north = comp.astrometry.east_north()
                 se, sn = comp.astrometry.east_north_errors()
                 ax.errorbar(east, north, xerr=se, yerr=sn, fmt="o", ms=2.5, color=blue, lw=0.6, zorder=5,
-                            label="measured")
+                            label="positions measured")
             if results.target.frame == "relative":
                 ax.plot([0], [0], marker="+", color="black", ms=7, zorder=6)
             ax.set_xlabel("east offset (mas)")
@@ -380,14 +381,13 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
             if not ax.xaxis_inverted():
                 ax.invert_xaxis()  # east to the left, as on the sky
             ax.set_title(f"{c}: sky track", loc="left")
-            ax.legend(loc="best", fontsize=6.5)
             # east/north vs time
             ax = axes[r, 1]
             for q, colour, lab in (("east_mas", blue, "east"), ("north_mas", PALETTE["bluish_green"], "north")):
                 qs = quantiles(d[q])
                 ax.fill_between(grid, qs[3], qs[4], color=colour, alpha=0.18, lw=0)
                 ax.fill_between(grid, qs[1], qs[2], color=colour, alpha=0.35, lw=0)
-                ax.plot(grid, qs[0], color=colour, lw=1.0, label=f"{lab} (median, 68/95 %)")
+                ax.plot(grid, qs[0], color=colour, lw=1.0, label=f"{lab} offset (median, 68/95 % bands)")
             if comp.astrometry is not None and len(comp.astrometry):
                 ax.errorbar(comp.astrometry.t_yr, east, yerr=se, fmt="o", ms=2.2, color=blue, lw=0.5)
                 ax.errorbar(comp.astrometry.t_yr, north, yerr=sn, fmt="s", ms=2.2, color=PALETTE["bluish_green"],
@@ -395,15 +395,14 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
             ax.set_xlabel("epoch (Julian year)")
             ax.set_ylabel("offset (mas)")
             ax.set_title(f"{c}: positions", loc="left")
-            ax.legend(loc="best", fontsize=6.5)
             time_axes = [ax]
             if with_rv:
                 ax = axes[r, 2]
                 if "rv_kms" in d and np.isfinite(d["rv_kms"]).any():
                     qs = quantiles(d["rv_kms"])
-                    ax.fill_between(grid, qs[3], qs[4], color=verm, alpha=0.18, lw=0, label="95 %")
-                    ax.fill_between(grid, qs[1], qs[2], color=verm, alpha=0.35, lw=0, label="68 %")
-                    ax.plot(grid, qs[0], color=verm, lw=1.0, label="model (median)")
+                    ax.fill_between(grid, qs[3], qs[4], color=verm, alpha=0.18, lw=0, label="velocity: 95 % band")
+                    ax.fill_between(grid, qs[1], qs[2], color=verm, alpha=0.35, lw=0, label="velocity: 68 % band")
+                    ax.plot(grid, qs[0], color=verm, lw=1.0, label="velocity: median")
                     vel = comp.velocities
                     if vel is not None and len(vel):
                         own = ~np.asarray(vel.central)
@@ -411,10 +410,10 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
                         for k, name in enumerate(dict.fromkeys(insts)):
                             m = own & (np.array(insts) == name)
                             if m.any():
-                                ax.errorbar(np.asarray(vel.t_yr)[m], np.asarray(vel.rv_kms)[m] - offsets.get(name, 0.0),
-                                            yerr=np.asarray(vel.rv_err_kms)[m], fmt=MARKERS[k % len(MARKERS)],
-                                            ms=2.5, color=blue, lw=0.5, label=f"measured ({name})")
-                    ax.legend(loc="best", fontsize=6.5)
+                                rv = np.asarray(vel.rv_kms)[m] - offsets.get(name, 0.0)
+                                ax.errorbar(np.asarray(vel.t_yr)[m], rv, yerr=np.asarray(vel.rv_err_kms)[m],
+                                            fmt=MARKERS[k % len(MARKERS)], ms=2.5, color=blue, lw=0.5,
+                                            label=f"velocity measured ({name}, offset removed)")
                 else:
                     ax.text(0.5, 0.5, "no line-of-sight information\nfor this orbital plane", ha="center",
                             va="center", transform=ax.transAxes)
@@ -424,12 +423,16 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
                 time_axes.append(ax)
             for ax in time_axes:
                 ax.axvspan(float(t_pred.min()), float(t_pred.max()) if t_pred.size > 1 else float(t_pred.min()) + pad,
-                           color=PALETTE["yellow"], alpha=0.25, lw=0, zorder=0)
+                           color=PALETTE["yellow"], alpha=0.3, lw=0, zorder=0, label="predicted span")
                 ev = (events or {}).get(c, {}).get("periastron")
-                if ev is not None and ev["epoch_jyear"]["median"] is not None:
-                    ax.axvline(ev["epoch_jyear"]["median"], color="black", ls="--", lw=0.7)
-                    ax.text(ev["epoch_jyear"]["median"], 0.98, " periastron", transform=ax.get_xaxis_transform(),
-                            va="top", ha="left", fontsize=6.5)
+                t_ev = None if ev is None else ev["epoch_jyear"]["median"]
+                if t_ev is not None and grid[0] <= t_ev <= grid[-1]:
+                    ax.axvline(t_ev, color="black", ls="--", lw=0.7, label="next periastron")
+        handles: dict[str, Any] = {}
+        for ax in axes.flat:
+            for h, lab in zip(*ax.get_legend_handles_labels()):
+                handles.setdefault(lab, h)
+        fig.legend(list(handles.values()), list(handles.keys()), loc="outside lower center", ncol=4, fontsize=7)
     return fig
 
 
