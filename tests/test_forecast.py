@@ -142,7 +142,8 @@ def test_next_periastron_matches_simulated_orbit(run_rv):
 # ------------------------------------------------------------------ (d) CLI
 def test_cli_predict_and_plan_write_their_folders(run_rv, tmp_path, capsys):
     out = tmp_path / "pred"
-    assert main(["predict", str(run_rv), "--from", "2013", "--to", "2016", "--step", "0.25", "--out", str(out)]) == 0
+    assert main(["predict", str(run_rv), "--from", "2013", "--to", "2016", "--step", "0.25", "--draws", "500",
+                 "--out", str(out)]) == 0
     table = pd.read_csv(out / "predictions.csv")
     assert list(table.columns) == prediction_columns(True)
     assert np.allclose(table["epoch_jyear"], 2013 + 0.25 * np.arange(13))
@@ -152,12 +153,13 @@ def test_cli_predict_and_plan_write_their_folders(run_rv, tmp_path, capsys):
     assert events["companions"]["S1"]["periastron"]["epoch_jyear"]["median"] == pytest.approx(2013.0, abs=0.1)
     # an existing folder of ours: refused without --overwrite, replaced with it
     assert main(["predict", str(run_rv), "--at", "2030.0", "--out", str(out)]) == 2
-    assert main(["predict", str(run_rv), "--at", "2030-01-01", "2031.5", "--out", str(out), "--overwrite"]) == 0
+    assert main(["predict", str(run_rv), "--at", "2030-01-01", "2031.5", "--draws", "300", "--out", str(out),
+                 "--overwrite"]) == 0
     assert len(pd.read_csv(out / "predictions.csv")) == 2
     # plan
     pout = tmp_path / "plan"
     assert main(["plan", str(run_rv), "--window", "2013", "2019", "--cadence", "0.1", "--max-epochs", "2",
-                 "--cost", "positions=1,velocities=2", "--out", str(pout)]) == 0
+                 "--cost", "positions=1,velocities=2", "--draws", "50", "--out", str(pout)]) == 0
     ranked = pd.read_csv(pout / "plan.csv")
     assert ranked["rank"].tolist() == list(range(1, len(ranked) + 1))
     assert {"positions_reduction_pct", "velocities_reduction_pct", "best_kind"} <= set(ranked.columns)
@@ -194,7 +196,7 @@ def test_cli_bad_input_one_line_exit_2(run_rv, tmp_path, capsys):
 
 def test_overwrite_refuses_folder_with_foreign_files(run_rv, tmp_path):
     out = tmp_path / "p"
-    assert main(["predict", str(run_rv), "--at", "2030", "--out", str(out)]) == 0
+    assert main(["predict", str(run_rv), "--at", "2030", "--draws", "300", "--out", str(out)]) == 0
     (out / "my_table.csv").write_text("keep me")
     with pytest.raises(RunFolderError, match="did not write"):
         prepare_out_dir(out, kind="predictions", overwrite=True)

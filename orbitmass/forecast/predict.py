@@ -475,7 +475,7 @@ def write_predictions(results: Results, epochs: ArrayLike, out_dir: str | Path, 
     table = predict(results, t, n_draws=n_draws, seed=seed)
     after = float(t.min()) if after is None else float(after)
     events = next_events(results, after, seed=seed)
-    fig = prediction_figure(results, t, events=events, seed=seed)
+    fig = prediction_figure(results, t, events=events, seed=seed, n_draws=min(1000, n_draws or 1000))
     out = prepare_out_dir(out_dir, kind="predictions", overwrite=overwrite)
     paths: dict[str, Path] = {}
     paths["predictions"] = write_atomic(out / "predictions.csv", table.to_csv(index=False, float_format="%.10g"))
