@@ -247,7 +247,7 @@ def test_predictions_cover_true_orbit_at_95_percent(tmp_path, record_property):
     for k in range(n):
         t_pos = np.sort(rng.uniform(2000, 2012, 12))
         path = make_target(tmp_path / f"d{k}", TRUTH, rng=rng, t_pos=t_pos, pos_err=1.0, distance_toml=PARALLAX)
-        res = Fit(seed=100 + k, progress=False).fit(path).results
+        res = Fit(seed=100 + k, progress=False, max_periods=300).fit(path).results
         t_h = float(rng.uniform(2012.0, 2014.0))
         row = predict(res, [t_h], n_draws=2000, seed=k).iloc[0]
         q = "east_mas" if k % 2 == 0 else "north_mas"
@@ -295,10 +295,13 @@ def test_plan_beats_evenly_spaced_epochs(tmp_path, record_property):
                             np.concatenate([old["east_mas"], sim["east_mas"] + noise.normal(0, err, k)]),
                             np.concatenate([old["north_mas"], sim["north_mas"] + noise.normal(0, err, k)]), err)
         shutil.copy(tmp_path / "base" / "target.toml", folder / "target.toml")
-        m = Fit(seed=2, progress=False).fit(folder / "target.toml").summary["derived"]["mass_msun"]
+        fit = Fit(seed=2, progress=False).fit(folder / "target.toml")
+        m = fit.summary["derived"]["mass_msun"]
         assert m["q2.5"] <= truth.mass_msun <= m["q97.5"]
+        sd_ln_m[name] = float(np.std(np.log(fit.results.samples["mass_msun"])))
         return (m["q84"] - m["q16"]) / m["median"]
 
+    sd_ln_m: dict[str, float] = {}
     w_plan, w_even = refit("planned", planned), refit("even", even)
     record_property("width_ratio", w_plan / w_even)
     log.info("68 %% relative mass width: planned %.4f, even %.4f, ratio %.2f", w_plan, w_even, w_plan / w_even)
@@ -307,4 +310,9 @@ def test_plan_beats_evenly_spaced_epochs(tmp_path, record_property):
     s = p.sets
     red = {name: s.loc[s["set"] == name, "reduction_pct"].iloc[-1] for name in ("positions", "even-positions")}
     assert red["positions"] > red["even-positions"]
+    # the plan's expected sd of ln M after the three planned epochs is the refit's within a factor 2
+    # (linearised expectation on a skewed posterior; measured while writing the test: 0.0047 vs 0.0054)
+    expected = s.loc[s["set"] == "positions", "sd_after"].iloc[-1]
+    log.info("sd of ln M after the planned epochs: expected %.4f, refit %.4f", expected, sd_ln_m["planned"])
+    assert 0.5 <= sd_ln_m["planned"] / expected <= 2.0
     assert math.isfinite(p.sd_now)

@@ -18,7 +18,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p = subparsers.add_parser(
         "predict", help="predict positions, separation, position angle and velocity of a saved run",
         description="Posterior-predictive east/north offsets, separation, position angle and line-of-sight "
-                    "velocity (median, 68 %% and 95 %% bands, measurement noise not added) of every companion "
+                    "velocity (median, 68 % and 95 % bands, measurement noise not added) of every companion "
                     "of RUN_DIR at the given epochs; the next periastron passage and velocity extrema. Writes "
                     "DIR/predictions.csv, predictions.png/.pdf, next_events.json/.md. Epochs are Julian years "
                     "(2031.5) or ISO 8601 UTC dates (2031-07-02).")
@@ -45,6 +45,8 @@ def read_epochs(args) -> np.ndarray:
     from orbitmass.forecast._common import epoch_grid, parse_epoch, parse_step_yr
 
     if args.at:
+        if args.stop is not None or args.step is not None:
+            raise InputError("--to and --step go with --from, not with --at", key="--at")
         return np.array([parse_epoch(a, key="--at") for a in args.at])
     if args.stop is None or args.step is None:
         raise InputError("--from needs --to and --step", key="--from")
