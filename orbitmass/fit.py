@@ -335,6 +335,16 @@ class Fit:
 
         return trace_figure(self.results, **kwargs)
 
+    def predict(self, epochs, **kwargs) -> pd.DataFrame:
+        """Posterior-predictive positions and velocities at ``epochs`` (Julian years), median and 68/95 % bands.
+
+        The ``predictions.csv`` table; see :func:`orbitmass.forecast.predict.predict`
+        for the columns and ``kwargs``.
+        """
+        from orbitmass.forecast.predict import predict
+
+        return predict(self.results, epochs, **kwargs)
+
     def report(self, out_dir: str | Path) -> Path:
         """Write figures, tables, report.md and report.html into ``out_dir``; returns the report path."""
         from orbitmass.io.rundir import write_products

@@ -89,6 +89,11 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_compare_parser(sub)
     add_batch_parser(sub)
+    from orbitmass.cli import plan as plan_cmd
+    from orbitmass.cli import predict as predict_cmd
+
+    predict_cmd.add_parser(sub)
+    plan_cmd.add_parser(sub)
     return parser
 
 
@@ -196,8 +201,17 @@ def _cmd_compare(args) -> int:
     return cmd_compare(args)
 
 
+def _cmd_module(name: str):
+    def call(args) -> int:
+        import importlib
+
+        return importlib.import_module(f"orbitmass.cli.{name}").run(args)
+
+    return call
+
+
 COMMANDS = {"fit": _cmd_fit, "demo": _cmd_demo, "report": _cmd_report, "batch": _cmd_batch,
-            "compare": _cmd_compare}
+            "compare": _cmd_compare, "predict": _cmd_module("predict"), "plan": _cmd_module("plan")}
 
 
 def main(argv: list[str] | None = None) -> int:
