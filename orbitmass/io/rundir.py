@@ -232,27 +232,9 @@ def load_run(run_dir: Path):
 # ------------------------------------------------------------------ products
 def write_products(results, out_dir: Path) -> Path:
     """Figures, tables and reports of ``results`` into ``out_dir``; returns report.md's path."""
-    import matplotlib
+    from orbitmass.outputs.products import write_products as _write_products
 
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
-
-    from orbitmass.outputs import plots, reports
-    from orbitmass.outputs.style import save_figure
-
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    figures = {}
-    # the trace figure is a diagnostic of many noisy lines: a lower resolution keeps it light
-    for name, func, dpi in (("corner", plots.corner_figure, 200), ("orbit", plots.orbit_figure, 200),
-                            ("trace", plots.trace_figure, 110)):
-        fig = func(results)
-        save_figure(fig, out_dir / name, dpi=dpi)
-        plt.close(fig)
-        figures[name] = f"{name}.png"
-    reports.write_tables(results, out_dir)
-    reports.write_report(results, out_dir, figures)
-    return out_dir / "report.md"
+    return _write_products(results, out_dir)
 
 
 def is_complete_run(run_dir: Path) -> bool:
