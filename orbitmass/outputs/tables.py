@@ -32,6 +32,7 @@ from orbitmass.model.quantities import QUANTITIES, UNITS, Unit, base_of
 from orbitmass.outputs.formatting import (
     Measurement,
     display_measurement,
+    format_number,
     latex_escape,
     markdown_escape,
     measurement,
@@ -332,14 +333,28 @@ def display_rows(results: Results, table: pd.DataFrame | None = None, *,
     return out
 
 
+_PRIOR_NUMBER = re.compile(r"(?<![\w.])(-?\d+(?:\.\d+)?(?:e[+-]?\d+)?) (yr|Msun|M_sun)\b")
+
+
+def _tidy_prior(text: str) -> str:
+    """Prior text for readers: M☉ spelt out, sub-year bounds in days, powers of ten written out."""
+
+    def sub(m: re.Match) -> str:
+        value, unit = float(m.group(1)), m.group(2)
+        if unit == "yr":
+            return format_number(value, digits=6, column="period_yr") if value < 1.0 else m.group(0)
+        return format_number(value, digits=6) + " M☉"
+
+    return _PRIOR_NUMBER.sub(sub, text)
+
+
 def priors(results: Results) -> list[dict[str, str]]:
-    """Every prior in force as recorded in ``summary.json`` (parameter, prior), M☉ spelt out."""
+    """Every prior in force as recorded in ``summary.json`` (parameter, prior text for readers)."""
     pri = (results.summary or {}).get("priors")
     if not isinstance(pri, list):
         return []
     return [
-        {"parameter": str(p.get("parameter", "")),
-         "prior": re.sub(r"\bM_?sun\b", "M☉", str(p.get("prior", "")))}
+        {"parameter": str(p.get("parameter", "")), "prior": _tidy_prior(str(p.get("prior", "")))}
         for p in pri
         if isinstance(p, Mapping)
     ]
