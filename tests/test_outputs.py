@@ -293,3 +293,31 @@ def test_write_products_uses_no_pyplot(tmp_path):
     expected = sorted(f for r in registry.RENDERERS.values() for f in r.files)
     assert names == expected
     assert re.search(r"table\.ecsv", " ".join(names))
+
+
+def test_orbit_marks_direction_node_periastron_and_one_time_range(nucleus):
+    fig = figures.orbit_figure(nucleus, n_draws=6, n_grid=400)
+    labels = [t.get_text() for sub in fig.subfigs for leg in sub.legends for t in leg.get_texts()]
+    for want in ("direction of motion", "periastron", "line of nodes, ascending node"):
+        assert want in labels
+    assert [sub._suptitle.get_text() for sub in fig.subfigs] == ["Companion C1", "Companion C2"]
+    sky = fig.subfigs[0].axes[0]
+    orbits = [ln for ln in sky.get_lines() if len(ln.get_xdata()) >= 400]
+    track = np.concatenate([np.column_stack([ln.get_xdata(), ln.get_ydata()]) for ln in orbits])
+    scale = np.ptp(track[:, 0])
+    for marker in ("^", "D"):  # the node and the periastron lie on the drawn orbits
+        (mark,) = [ln for ln in sky.get_lines() if ln.get_marker() == marker]
+        xy = np.array([mark.get_xdata()[0], mark.get_ydata()[0]])
+        assert np.min(np.hypot(*(track - xy).T)) < 0.02 * scale
+    # the arrow is a short step along the drawn track
+    (arrow,) = [c for c in sky.texts if getattr(c, "arrow_patch", None) is not None]
+    start, end = np.array(arrow.xyann), np.array(arrow.xy)
+    assert 0 < np.hypot(*(end - start)) < 0.2 * scale
+    # velocities have the instrument offsets removed, and the axis says so
+    rv_ax = fig.subfigs[0].axes[1]
+    assert r"\Delta v_\mathrm{inst}" in rv_ax.get_ylabel()
+    # position and velocity residuals of C1 span one time range
+    from orbitmass.outputs.figures.common import TIME_LABEL
+
+    ranges = {ax.get_xlim() for ax in fig.subfigs[0].axes if ax.get_xlabel() == TIME_LABEL}
+    assert len(ranges) == 1

@@ -26,6 +26,8 @@ from orbitmass.results import Results
 
 __all__ = ["orbit_figure", "ARCSEC_ABOVE_MAS"]
 
+#: velocity axis when instrument offsets were subtracted from the measured velocities
+RV_LABEL_OFFSETS = r"$v_\mathrm{LOS} - \Delta v_\mathrm{inst}$ [km s$^{-1}$]"
 #: angular extent (mas) above which sky panels switch to arcsec
 ARCSEC_ABOVE_MAS = 5000.0
 
@@ -207,10 +209,60 @@ class _CompanionPanels:
                 self._line_handle(color=PALETTE["vermillion"], marker="*", ls="none", ms=7),
             )
         self._note("posterior draws", self._line_handle(color=self.draw_kw.get("color"), lw=1.0))
+        self._orientation_marks(ax)
         ax.set_aspect("equal", adjustable="datalim")
         ax.invert_xaxis()  # east to the left, as on the sky
         ax.set_xlabel(EAST_LABEL.format(unit=self.unit))
         ax.set_ylabel(NORTH_LABEL.format(unit=self.unit))
+
+    def marks(self) -> dict[str, NDArray[np.float64]]:
+        """Sky positions (mas, relative orbit) of the periastron and the ascending node, and two
+        points of the median-draw track that show the direction of motion."""
+        res, name = self.results, self.name
+        s = res.samples.iloc[self.rows]
+        out: dict[str, NDArray[np.float64]] = {}
+        col = f"{name}.periastron_time_jyr"
+        if col in s:
+            pred = res.predict(name, t_astro=np.array([float(np.median(s[col]))]), rows=self.rows)
+            out["periastron"] = np.array([np.median(pred["east_mas"][:, 0]),
+                                          np.median(pred["north_mas"][:, 0])])
+        need = [f"{name}.{k}" for k in ("semimajor_axis_mas", "eccentricity", "arg_periastron_deg",
+                                        "ascending_node_deg")]
+        if res.target.frame != "absolute" and all(c in s for c in need):
+            a, e, w, node = (float(np.median(s[c])) for c in need)
+            # the node lies on the line of nodes at position angle Omega, true anomaly -omega:
+            # r = a (1 - e^2) / (1 + e cos omega) (Kepler ellipse; common practice, no source)
+            r = a * (1 - e * e) / (1 + e * np.cos(np.radians(w)))
+            out["node"] = np.array([r * np.sin(np.radians(node)), r * np.cos(np.radians(node))])
+            out["node_line"] = np.array([np.sin(np.radians(node)), np.cos(np.radians(node))])
+        if self.tracks:
+            te, tn = self.tracks[0]
+            k = len(te) // 5
+            out["motion"] = np.array([[te[k], tn[k]], [te[k + 3], tn[k + 3]]])
+        return out
+
+    def _orientation_marks(self, ax) -> None:
+        f = self.factor
+        marks = self.marks()
+        if "node_line" in marks:
+            extent = max(float(np.nanmax(np.abs(np.concatenate(tr)))) for tr in self.tracks) * f
+            d = marks["node_line"] * extent * 1.05
+            ax.plot([-d[0], d[0]], [-d[1], d[1]], ls=":", color="0.45", lw=0.8, zorder=2)
+            ax.plot(*(marks["node"] * f), marker="^", ms=5, color="0.25", ls="none", zorder=4)
+            self._note("line of nodes, ascending node",
+                       self._line_handle(color="0.25", ls=":", marker="^", ms=4))
+        if "periastron" in marks:
+            ax.plot(*(marks["periastron"] * f), marker="D", ms=4.5, mfc="white",
+                    color=PALETTE["vermillion"], ls="none", zorder=5)
+            self._note("periastron", self._line_handle(color=PALETTE["vermillion"], marker="D",
+                                                       mfc="white", ls="none", ms=4))
+        if "motion" in marks:
+            (x0, y0), (x1, y1) = marks["motion"] * f
+            ax.annotate("", xy=(x1, y1), xytext=(x0, y0), zorder=5,
+                        arrowprops={"arrowstyle": "-|>", "color": PALETTE["blue"], "lw": 1.2,
+                                    "mutation_scale": 10})
+            self._note("direction of motion", self._line_handle(color=PALETTE["blue"], marker=">",
+                                                                ls="-", ms=4))
 
     def position_residuals(self, ax) -> None:
         f = self.factor
@@ -298,7 +350,8 @@ class _CompanionPanels:
                 "central body (open)",
                 self._line_handle(color="0.3", marker="o", mfc="white", ls="none", ms=3),
             )
-        ax.set_ylabel(RV_LABEL)
+        shifted = any(abs(offsets.get(i, 0.0)) > 0 for i in set(inst))
+        ax.set_ylabel(RV_LABEL_OFFSETS if shifted else RV_LABEL)
         _time_axis(ax)
         if res_ax is not None:
             res_ax.axhline(0.0, color="0.5", lw=0.6)
@@ -461,8 +514,23 @@ def orbit_figure(
             }
             lkw.update(legend_kwargs or {})
             sub.legend(list(panels.legend.values()), list(panels.legend.keys()), **lkw)
-            sub.suptitle(mpl_text(comp.name), fontsize=9, x=0.01, ha="left", fontweight="bold")
+            sub.suptitle(f"Companion {mpl_text(comp.name)}", fontsize=9, x=0.01, ha="left",
+                         fontweight="bold")
+            _common_time_range(sub)
     return fig
+
+
+def _common_time_range(sub) -> None:
+    """One time range for every time axis of a companion's panels (positions and velocities)."""
+    time_axes = [ax for ax in sub.axes if ax.get_xlabel() == TIME_LABEL]
+    time_axes += [ax for ax in sub.axes if ax not in time_axes and any(
+        ax.get_shared_x_axes().joined(ax, t) for t in time_axes)]
+    if len(time_axes) < 2:
+        return
+    lo = min(ax.get_xlim()[0] for ax in time_axes)
+    hi = max(ax.get_xlim()[1] for ax in time_axes)
+    for ax in time_axes:
+        ax.set_xlim(lo, hi)
 
 
 
