@@ -132,6 +132,9 @@ def test_offsets_name_the_reference_instrument_and_footnote_lists_every_prior(nu
         assert p["parameter"] in foot
     # a sub-year prior bound in days (1 d = 0.00273785 yr), no "0.00273785 yr"
     assert "0.00273785" not in foot and "[1 d, 10000 yr]" in foot
+    # standard LaTeX only: the whole float is ASCII (M☉ and powers of ten in math mode)
+    assert tex.isascii(), [ch for ch in tex if not ch.isascii()]
+    assert r"[1000 $M_\odot$, 1$\times10^{9}$ $M_\odot$]" in foot
 
 
 def test_table_params_selection(nucleus):

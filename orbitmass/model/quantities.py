@@ -232,7 +232,7 @@ QUANTITIES: dict[str, Quantity] = {
            "<i>M</i><sub>c</sub>", "central body mass M / (1 + q)"),
         _q("companion_mass_msun", "m", "Companion mass", "M_sun", "m", "m", "<i>m</i>",
            "companion mass q M / (1 + q)"),
-        *(_q(f"{c}_mas", c, f"Thiele–Innes constant {c}", "mas", c, c, f"<i>{c}</i>",
+        *(_q(f"{c}_mas", c, f"Thiele-Innes constant {c}", "mas", c, c, f"<i>{c}</i>",
              f"Thiele-Innes constant {c}") for c in "ABFG"),
         _q("log_posterior", "ln p", "Log posterior", "", r"\ln p", "ln p", "ln <i>p</i>",
            "log posterior density (sampled variables)"),

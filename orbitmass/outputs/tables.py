@@ -348,6 +348,20 @@ def _tidy_prior(text: str) -> str:
     return _PRIOR_NUMBER.sub(sub, text)
 
 
+_LATEX_TEXT = {"M☉": r"$M_\odot$", "±": r"$\pm$", "≤": r"$\leq$", "≥": r"$\geq$", "−": "-",
+               "ϖ": r"$\varpi$", "µ": r"$\mu$", "σ": r"$\sigma$", "λ": r"$\lambda$",
+               "ω": r"$\omega$", "Ω": r"$\Omega$"}
+
+
+def _prior_latex(text: str) -> str:
+    """Prior text for the LaTeX footnote: escaped, symbols and powers of ten in math mode."""
+    out = latex_escape(text)
+    out = re.sub(r" × 10\\\^\{\}(-?\d+)", r"$\\times10^{\1}$", out)
+    for k, v in _LATEX_TEXT.items():
+        out = out.replace(k, v)
+    return out
+
+
 def priors(results: Results) -> list[dict[str, str]]:
     """Every prior in force as recorded in ``summary.json`` (parameter, prior text for readers)."""
     pri = (results.summary or {}).get("priors")
@@ -419,7 +433,7 @@ def table_tex(results: Results, table: pd.DataFrame | None = None, **kw: Any) ->
     pri = priors(results)
     if pri:
         notes.append("Priors: " + "; ".join(
-            f"{latex_escape(p['parameter'])}: {latex_escape(p['prior'])}" for p in pri) + ".")
+            f"{latex_escape(p['parameter'])}: {_prior_latex(p['prior'])}" for p in pri) + ".")
     amb = ambiguous_companions(results)
     if amb:
         notes.append(
