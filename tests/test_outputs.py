@@ -324,3 +324,25 @@ def test_orbit_marks_direction_node_periastron_and_one_time_range(nucleus):
 
     ranges = {ax.get_xlim() for ax in fig.subfigs[0].axes if ax.get_xlabel() == TIME_LABEL}
     assert len(ranges) == 1
+
+
+def test_console_summary_text():
+    from orbitmass.outputs.formatting import summary_text
+
+    # two significant digits on the smaller error, display unit by magnitude (common practice)
+    block = {"median": 4.1234e6, "q16": 4.0834e6, "q84": 4.1754e6}
+    assert summary_text("mass_msun", block) == "(4.123 +0.052 -0.040) × 10^6 M☉"
+    # a fixed quantity: no "(+0 / -0)"
+    fixed = {"median": 8.0e3, "q16": 8.0e3, "q84": 8.0e3}
+    assert summary_text("distance_pc", fixed) == "8 kpc (fixed)"
+
+
+def test_stellar_mass_lengths_in_sensible_units(wide):
+    # a 2 M☉ pair: R_S = 2 x 2.953 km (astropy constants, see module docstring), shown in km
+    rows = {r.parameter: r for r in display_rows(wide)}
+    rs = rows["schwarzschild_radius_au"]
+    assert rs.unit.text == "km"
+    assert float(rs.value.median) == pytest.approx(5.906, abs=0.01)
+    rp = rows["B.periastron_rs"] if "B.periastron_rs" in rows else next(
+        r for k, r in rows.items() if k.endswith(".periastron_rs"))
+    assert rp.value.exponent >= 5 and rp.unit.text == "R_S"  # a power of ten, not 1.9e8 digits

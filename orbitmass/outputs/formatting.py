@@ -37,6 +37,7 @@ __all__ = [
     "measurement",
     "display_measurement",
     "format_number",
+    "summary_text",
     "latex_escape",
     "markdown_escape",
 ]
@@ -319,6 +320,37 @@ def format_number(value: float, *, digits: int = 4, column: str | None = None,
         if k:
             out = f"{out} × 10^{k}"
     return f"{out} {text_unit}".strip()
+
+
+def summary_text(column: str, block, *, companions: Sequence[str] = (), unit: str | None = None) -> str:
+    """A ``summary.json`` quantile block as one line for a console: value, errors, display unit.
+
+    Two significant digits on the smaller error (:func:`format_value`); a block
+    whose quantiles coincide (a fixed quantity) prints its value and ``(fixed)``,
+    never ``+0 / -0``.
+
+    Parameters
+    ----------
+    column : str
+        Sample column or base key, e.g. ``"mass_msun"``.
+    block : mapping
+        With keys ``median``, ``q16``, ``q84`` (stored unit).
+
+    Examples
+    --------
+    >>> summary_text("distance_pc", {"median": 46190.0, "q16": 46010.0, "q84": 46380.0})
+    '46.19 +0.19 -0.18 kpc'
+    >>> summary_text("C1.eccentricity", {"median": 0.0, "q16": 0.0, "q84": 0.0}, companions=["C1"])
+    '0 (fixed)'
+    """
+    med, lo, hi = float(block["median"]), float(block["q16"]), float(block["q84"])
+    fixed = lo == med == hi
+    m, u = display_measurement(column, med, med - lo, hi - med, fixed=fixed, companions=companions,
+                               unit=unit)
+    text = m.text()
+    if u.text:
+        text = text.replace(" (fixed)", f" {u.text} (fixed)") if fixed else f"{text} {u.text}"
+    return text
 
 
 def unit_of(key: str) -> Unit:
