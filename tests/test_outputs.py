@@ -346,3 +346,47 @@ def test_stellar_mass_lengths_in_sensible_units(wide):
     rp = rows["B.periastron_rs"] if "B.periastron_rs" in rows else next(
         r for k, r in rows.items() if k.endswith(".periastron_rs"))
     assert rp.value.exponent >= 5 and rp.unit.text == "R_S"  # a power of ten, not 1.9e8 digits
+
+
+def _with_polar_rows(res, companion: str, every: int = 2):
+    """The same Results with every ``every``-th position row given as separation and angle."""
+    import dataclasses
+
+    comps = []
+    for comp in res.target.companions:
+        ast = comp.astrometry
+        if comp.name == companion:
+            east, north = ast.east_north()
+            polar = np.zeros(len(ast), bool)
+            polar[::every] = True
+            rho = np.hypot(east, north)
+            theta = np.degrees(np.arctan2(east, north)) % 360.0
+            err_rho = np.where(polar, 0.5, ast.err1)
+            err_theta = np.where(polar, np.degrees(0.5 / rho), ast.err2)
+            ast = dataclasses.replace(ast, polar=polar, value1=np.where(polar, rho, ast.value1),
+                                      value2=np.where(polar, theta, ast.value2), err1=err_rho,
+                                      err2=err_theta)
+            comp = dataclasses.replace(comp, astrometry=ast)
+        comps.append(comp)
+    return dataclasses.replace(res, target=dataclasses.replace(res.target, companions=tuple(comps)))
+
+
+def test_polar_rows_marked_and_residuals_in_measured_form(nucleus):
+    res = _with_polar_rows(nucleus, "C2")
+    fig = figures.orbit_figure(res, n_draws=4, n_grid=200)
+    labels = [t.get_text() for sub in fig.subfigs for leg in sub.legends for t in leg.get_texts()]
+    assert "positions (ρ, θ; open)" in labels
+    assert r"O − C in $\rho$ (open)" in labels and r"O − C in $\rho\,\Delta\theta$ (open)" in labels
+    c2 = fig.subfigs[1]
+    res_ax = [ax for ax in c2.axes if ax.get_ylabel() == "O − C [mas]"][0]
+    # the converted rows reproduce the same positions, so rho residuals equal the radial
+    # projection of the east/north residuals: |O - C| stays at the noise level (0.5 mas)
+    values = np.concatenate([np.ravel(ln.get_ydata()) for ln in res_ax.get_lines()
+                             if len(ln.get_ydata()) > 1 and ln.get_marker() in ("o", "s")])
+    assert np.nanmax(np.abs(values)) < 3.0
+
+
+def test_residuals_keep_mas_when_the_sky_panel_is_in_arcsec(wide):
+    fig = figures.orbit_figure(wide, n_draws=3, n_grid=100)
+    ylabels = [ax.get_ylabel() for ax in fig.axes]
+    assert r"$\Delta\delta$ [arcsec]" in ylabels and "O − C [mas]" in ylabels

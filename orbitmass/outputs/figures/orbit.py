@@ -169,13 +169,15 @@ class _CompanionPanels:
         f = self.factor
         for te, tn in self.tracks:
             ax.plot(te * f, tn * f, **self.draw_kw)
-        ax.errorbar(
-            self.east * f, self.north * f, xerr=self.e_err * f, yerr=self.n_err * f, **self.data_kw
-        )
-        self._note(
-            "positions",
-            self._line_handle(color=self.data_kw.get("color"), marker="o", ls="none", ms=3),
-        )
+        polar = np.asarray(self.comp.astrometry.polar, bool)
+        for mask, mfc, label in ((~polar, None, "positions"), (polar, "white", "positions (ρ, θ; open)")):
+            if not mask.any():
+                continue
+            kw = dict(self.data_kw, mfc=mfc or self.data_kw.get("color"))
+            ax.errorbar(self.east[mask] * f, self.north[mask] * f, xerr=self.e_err[mask] * f,
+                        yerr=self.n_err[mask] * f, **kw)
+            self._note(label, self._line_handle(color=self.data_kw.get("color"), marker="o",
+                                                mfc=kw["mfc"], ls="none", ms=3))
         res = self.results
         if res.target.frame == "absolute":
             s = res.samples
@@ -265,26 +267,46 @@ class _CompanionPanels:
                                                                 ls="-", ms=4))
 
     def position_residuals(self, ax) -> None:
-        f = self.factor
+        """Data minus the median model, in the form each row was measured.
+
+        East/north rows: O - C in Δα cos δ and Δδ (filled markers). Separation and
+        position-angle rows: O - C in ρ and ρ Δθ (open markers; Δθ in radians times
+        the model separation, so both are lengths on the sky).
+        """
         model = self._median(t_astro=self.t_pos)
-        d_e = (self.east - model["east_mas"]) * f
-        d_n = (self.north - model["north_mas"]) * f
+        ast = self.comp.astrometry
+        polar = np.asarray(ast.polar, bool)
+        d1 = self.east - model["east_mas"]
+        d2 = self.north - model["north_mas"]
+        e1, e2 = np.array(self.e_err, float), np.array(self.n_err, float)
+        if polar.any():
+            rho_m = np.hypot(model["east_mas"], model["north_mas"])
+            theta_m = np.degrees(np.arctan2(model["east_mas"], model["north_mas"]))
+            dtheta = (np.asarray(ast.value2, float) - theta_m + 180.0) % 360.0 - 180.0
+            d1 = np.where(polar, np.asarray(ast.value1, float) - rho_m, d1)
+            d2 = np.where(polar, rho_m * np.radians(dtheta), d2)
+            e1 = np.where(polar, np.asarray(ast.err1, float), e1)
+            e2 = np.where(polar, rho_m * np.radians(np.asarray(ast.err2, float)), e2)
+        # residuals are small: their own unit, mas unless they exceed the arcsec threshold
+        big = float(np.nanmax(np.abs(np.concatenate([d1, d2, e1, e2])))) > ARCSEC_ABOVE_MAS
+        f, unit = (1e-3, "arcsec") if big else (1.0, "mas")
         ax.axhline(0.0, color="0.5", lw=0.6)
         kw = {k: v for k, v in self.data_kw.items() if k not in ("color", "marker")}
-        ax.errorbar(self.t_pos, d_e, yerr=self.e_err * f, color=PALETTE["blue"], marker="o", **kw)
-        ax.errorbar(
-            self.t_pos, d_n, yerr=self.n_err * f, color=PALETTE["vermillion"], marker="s", **kw
+        rows = (
+            (~polar, d1, e1, PALETTE["blue"], "o", r"O − C in $\Delta\alpha\,\cos\delta$", None),
+            (~polar, d2, e2, PALETTE["vermillion"], "s", r"O − C in $\Delta\delta$", None),
+            (polar, d1, e1, PALETTE["blue"], "o", r"O − C in $\rho$ (open)", "white"),
+            (polar, d2, e2, PALETTE["vermillion"], "s", r"O − C in $\rho\,\Delta\theta$ (open)", "white"),
         )
-        self._note(
-            r"O − C in $\Delta\alpha\,\cos\delta$",
-            self._line_handle(color=PALETTE["blue"], marker="o", ls="none", ms=3),
-        )
-        self._note(
-            r"O − C in $\Delta\delta$",
-            self._line_handle(color=PALETTE["vermillion"], marker="s", ls="none", ms=3),
-        )
+        for mask, d, e, colour, marker, label, mfc in rows:
+            if not mask.any():
+                continue
+            ax.errorbar(self.t_pos[mask], d[mask] * f, yerr=e[mask] * f, color=colour, marker=marker,
+                        mfc=mfc or colour, **kw)
+            self._note(label, self._line_handle(color=colour, marker=marker, mfc=mfc or colour,
+                                                ls="none", ms=3))
         ax.set_xlabel(TIME_LABEL)
-        ax.set_ylabel(f"O − C [{self.unit}]")
+        ax.set_ylabel(f"O − C [{unit}]")
         _time_axis(ax)
 
     def position_time(self, ax_e, ax_n) -> None:
