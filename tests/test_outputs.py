@@ -303,7 +303,7 @@ def test_orbit_marks_direction_node_periastron_and_one_time_range(nucleus):
     labels = [t.get_text() for sub in fig.subfigs for leg in sub.legends for t in leg.get_texts()]
     for want in ("direction of motion", "periastron", "line of nodes, ascending node"):
         assert want in labels
-    assert [sub._suptitle.get_text() for sub in fig.subfigs] == ["Companion C1", "Companion C2"]
+    assert [sub.axes[0].get_title(loc="left") for sub in fig.subfigs] == ["Companion C1", "Companion C2"]
     sky = fig.subfigs[0].axes[0]
     orbits = [ln for ln in sky.get_lines() if len(ln.get_xdata()) >= 400]
     track = np.concatenate([np.column_stack([ln.get_xdata(), ln.get_ydata()]) for ln in orbits])

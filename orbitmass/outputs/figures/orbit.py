@@ -536,8 +536,10 @@ def orbit_figure(
             }
             lkw.update(legend_kwargs or {})
             sub.legend(list(panels.legend.values()), list(panels.legend.keys()), **lkw)
-            sub.suptitle(f"Companion {mpl_text(comp.name)}", fontsize=9, x=0.01, ha="left",
-                         fontweight="bold")
+            # the companion's name titles its first panel (a figure-level title would collide
+            # with the legend above the panels in a single-column figure)
+            sub.axes[0].set_title(f"Companion {mpl_text(comp.name)}", loc="left", fontsize=9,
+                                  fontweight="bold")
             _common_time_range(sub)
     return fig
 
