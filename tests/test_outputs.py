@@ -390,3 +390,44 @@ def test_residuals_keep_mas_when_the_sky_panel_is_in_arcsec(wide):
     fig = figures.orbit_figure(wide, n_draws=3, n_grid=100)
     ylabels = [ax.get_ylabel() for ax in fig.axes]
     assert r"$\Delta\delta$ [arcsec]" in ylabels and "O − C [mas]" in ylabels
+
+
+def test_html_report_captions_every_figure(nucleus, tmp_path):
+    from html.parser import HTMLParser
+
+    registry.render_all(nucleus, tmp_path, names=["corner", "orbit", "trace", "report.html"])
+
+    class Captions(HTMLParser):
+        def __init__(self):
+            super().__init__()
+            self.inside, self.captions = False, []
+
+        def handle_starttag(self, tag, attrs):
+            if tag == "figcaption":
+                self.inside = True
+                self.captions.append("")
+
+        def handle_endtag(self, tag):
+            if tag == "figcaption":
+                self.inside = False
+
+        def handle_data(self, data):
+            if self.inside:
+                self.captions[-1] += data
+
+    p = Captions()
+    p.feed((tmp_path / "report.html").read_text(encoding="utf-8"))
+    assert len(p.captions) == 3
+    assert "contours enclose 39.3 %" in p.captions[0]
+    assert "instrument offsets removed" in p.captions[1]
+    assert "walkers drawn" in p.captions[2]
+
+
+def test_registry_refuses_bad_registrations():
+    with pytest.raises(ValueError, match="kind"):
+        registry.register("table.fits-test", lambda r, p: [], kind="sheet", files=("x",))
+    with pytest.raises(ValueError, match="declares no file"):
+        registry.register("table.fits-test", lambda r, p: [], kind="table", files=())
+    with pytest.raises(KeyError, match="no renderer"):
+        registry.render("no-such-format", None, ".")
+    assert "table.fits-test" not in registry.RENDERERS
