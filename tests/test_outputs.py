@@ -312,6 +312,14 @@ def test_orbit_marks_direction_node_periastron_and_one_time_range(nucleus):
         (mark,) = [ln for ln in sky.get_lines() if ln.get_marker() == marker]
         xy = np.array([mark.get_xdata()[0], mark.get_ydata()[0]])
         assert np.min(np.hypot(*(track - xy).T)) < 0.02 * scale
+    # the line of nodes passes through the central body and reaches past the node
+    (line,) = [ln for ln in sky.get_lines() if ln.get_linestyle() == ":"]
+    (node,) = [ln for ln in sky.get_lines() if ln.get_marker() == "^"]
+    xs, ys = np.asarray(line.get_xdata()), np.asarray(line.get_ydata())
+    assert xs[0] == pytest.approx(-xs[1]) and ys[0] == pytest.approx(-ys[1])
+    nx, ny = node.get_xdata()[0], node.get_ydata()[0]
+    assert abs(xs[1] * ny - ys[1] * nx) < 1e-6 * (xs[1] ** 2 + ys[1] ** 2)  # collinear
+    assert np.hypot(xs[1], ys[1]) > np.hypot(nx, ny)
     # the arrow is a short step along the drawn track
     (arrow,) = [c for c in sky.texts if getattr(c, "arrow_patch", None) is not None]
     start, end = np.array(arrow.xyann), np.array(arrow.xy)

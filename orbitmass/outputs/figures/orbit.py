@@ -247,7 +247,8 @@ class _CompanionPanels:
         f = self.factor
         marks = self.marks()
         if "node_line" in marks:
-            extent = max(float(np.nanmax(np.abs(np.concatenate(tr)))) for tr in self.tracks) * f
+            # through the central body, a little beyond the farthest point of the drawn orbits
+            extent = max(float(np.nanmax(np.hypot(*tr))) for tr in self.tracks) * f
             d = marks["node_line"] * extent * 1.05
             ax.plot([-d[0], d[0]], [-d[1], d[1]], ls=":", color="0.45", lw=0.8, zorder=2)
             ax.plot(*(marks["node"] * f), marker="^", ms=5, color="0.25", ls="none", zorder=4)
