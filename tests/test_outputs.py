@@ -197,8 +197,12 @@ def test_corner_ticks_do_not_overlap_levels_stated_truths_drawn(nucleus):
     for i, a in enumerate(boxes):
         for b in boxes[i + 1 :]:
             assert not a.overlaps(b), "tick labels overlap"
-    texts = " ".join(t.get_text() for t in fig.texts)
+    # the note is wrapped into the empty upper-right panel (no-break space before "%")
+    texts = " ".join(t.get_text() for t in fig.texts).replace("\n", " ").replace("\u00a0", " ")
     assert "39.3 %" in texts and "86.5 %" in texts and "true values" in texts
+    note_box = fig.texts[0].get_window_extent(renderer)
+    for i in range(n):  # the note runs into no title of a diagonal panel
+        assert not note_box.overlaps(axes[i, i].title.get_window_extent(renderer))
     # truth lines: corner draws a vertical line at the truth on each diagonal panel that has one
     mass_lines = [ln for ln in axes[0, 0].get_lines() if np.allclose(ln.get_xdata(), 2.3)]
     assert mass_lines, "no truth line at 2.3 (10^6 M☉) in the mass panel"
@@ -212,7 +216,7 @@ def test_truth_from_results(nucleus):
 
     with_truth = dataclasses.replace(nucleus, info={"truth": {"mass_msun": 2.3e6}})
     fig = figures.corner_figure(with_truth, params=["mass_msun", "distance_pc"])
-    assert any("true values" in t.get_text() for t in fig.texts)
+    assert any("true values" in t.get_text().replace("\n", " ") for t in fig.texts)
     assert "Vermillion lines" in figures.corner.caption(with_truth)
     assert "Vermillion" not in figures.corner.caption(nucleus)
 

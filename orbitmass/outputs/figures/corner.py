@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import logging
 import math
+import textwrap
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -214,8 +215,12 @@ def corner_figure(
         if "truths" in opts:
             note += "; vermillion lines: true values"
         if n > 1:
-            fig.text(1 - 0.08 / width, 1 - 0.05 / height, note[0].upper() + note[1:], ha="right", va="top",
-                     fontsize=7, wrap=True)
+            # inside the empty upper-right panel, wrapped to its width (about 19 characters of
+            # 7-pt text per inch), so it cannot run into the titles of the diagonal panels
+            box = axes[0, -1].get_position()
+            chars = max(16, int(box.width * width * 19))
+            fig.text(box.x1, box.y1, textwrap.fill((note[0].upper() + note[1:]).replace(" %", "\u00a0%"), chars), ha="right",
+                     va="top", fontsize=7)
     return fig
 
 
