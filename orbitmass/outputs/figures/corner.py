@@ -219,8 +219,8 @@ def corner_figure(
             # 7-pt text per inch), so it cannot run into the titles of the diagonal panels
             box = axes[0, -1].get_position()
             chars = max(16, int(box.width * width * 19))
-            fig.text(box.x1, box.y1, textwrap.fill((note[0].upper() + note[1:]).replace(" %", "\u00a0%"), chars), ha="right",
-                     va="top", fontsize=7)
+            text = (note[0].upper() + note[1:]).replace(" %", "\u00a0%")
+            fig.text(box.x1, box.y1, textwrap.fill(text, chars), ha="right", va="top", fontsize=7)
     return fig
 
 
