@@ -215,10 +215,11 @@ def corner_figure(
         if "truths" in opts:
             note += "; vermillion lines: true values"
         if n > 1:
-            # inside the empty upper-right panel, wrapped to its width (about 19 characters of
+            # inside the empty upper-right panels, wrapped to their width (about 19 characters of
             # 7-pt text per inch), so it cannot run into the titles of the diagonal panels
             box = axes[0, -1].get_position()
-            chars = max(16, int(box.width * width * 19))
+            span = box.x1 - axes[0, max(1, n // 2)].get_position().x0  # empty panels of row 1
+            chars = max(16, int(span * width * 19))
             text = (note[0].upper() + note[1:]).replace(" %", "\u00a0%")
             fig.text(box.x1, box.y1, textwrap.fill(text, chars), ha="right", va="top", fontsize=7)
     return fig
