@@ -28,6 +28,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from orbitmass.exceptions import InputError
 from orbitmass.model.quantities import QUANTITIES, UNITS, Unit, base_of
 from orbitmass.outputs.formatting import (
     Measurement,
@@ -208,8 +209,6 @@ def results_table(results: Results, *, params: Sequence[str] | None = None) -> p
     InputError
         If a name in ``params`` is not a sample column.
     """
-    from orbitmass.exceptions import InputError
-
     cols = set(results.samples.columns)
     if params is not None:
         unknown = [p for p in params if p not in cols]
