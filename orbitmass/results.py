@@ -25,6 +25,7 @@ from orbitmass.core.physics import (
 )
 from orbitmass.model.data import Target
 from orbitmass.model.parameters import ParameterSpace
+from orbitmass.model.quantities import column_doc
 
 __all__ = ["Results", "QUANTILES", "quantile_block", "derive_samples", "COLUMN_DOC"]
 
@@ -32,43 +33,9 @@ __all__ = ["Results", "QUANTILES", "quantile_block", "derive_samples", "COLUMN_D
 QUANTILES = {"median": 0.5, "q16": 0.15865525393145707, "q84": 0.8413447460685429,
              "q2.5": 0.025, "q97.5": 0.975}
 
-#: column (with ``<C>.`` for a companion, ``<I>`` an instrument) -> (label, unit, meaning)
-COLUMN_DOC: dict[str, tuple[str, str, str]] = {
-    "mass_msun": ("M", "M_sun", "total mass of central body + companion (Kepler III)"),
-    "distance_pc": ("D", "pc", "distance (angular-diameter distance for a redshift)"),
-    "parallax_mas": ("varpi", "mas", "parallax 1000 / D"),
-    "schwarzschild_radius_au": ("R_S", "au", "Schwarzschild radius 2GM/c^2 of the total mass"),
-    "systemic_kms": ("v_sys", "km/s", "barycentre line-of-sight velocity (relative frame)"),
-    "x0_mas": ("x0", "mas", "barycentre east offset at the reference epoch"),
-    "y0_mas": ("y0", "mas", "barycentre north offset at the reference epoch"),
-    "vx0_mas_per_yr": ("vx0", "mas/yr", "barycentre east proper motion"),
-    "vy0_mas_per_yr": ("vy0", "mas/yr", "barycentre north proper motion"),
-    "vz0_kms": ("vz0", "km/s", "barycentre line-of-sight velocity (absolute frame)"),
-    "offset_kms.<I>": ("offset", "km/s", "zero-point offset of instrument <I>"),
-    "jitter_kms.<I>": ("jitter", "km/s", "extra velocity scatter of instrument <I>"),
-    "<C>.period_yr": ("P", "yr", "orbital period (rest frame)"),
-    "<C>.period_obs_yr": ("P_obs", "yr", "orbital period on the observed timeline (1+z) P"),
-    "<C>.eccentricity": ("e", "", "eccentricity"),
-    "<C>.inclination_deg": ("i", "deg", "inclination; < 90 deg: position angle increases"),
-    "<C>.arg_periastron_deg": ("omega", "deg", "argument of periastron of the companion"),
-    "<C>.ascending_node_deg": ("Omega", "deg", "position angle of the ascending (receding) node"),
-    "<C>.mean_anomaly_deg": ("M0", "deg", "mean anomaly at the reference epoch"),
-    "<C>.periastron_time_jyr": ("T_p", "Julian yr", "epoch of periastron nearest the reference epoch"),
-    "<C>.semimajor_axis_mas": ("a", "mas", "angular semimajor axis of the relative orbit"),
-    "<C>.semimajor_axis_au": ("a", "au", "semimajor axis of the relative orbit"),
-    "<C>.periastron_au": ("r_p", "au", "periastron distance a (1 - e)"),
-    "<C>.periastron_rs": ("r_p", "R_S", "periastron in Schwarzschild radii of the total mass"),
-    "<C>.periastron_speed_kms": ("v_p", "km/s", "relative speed at periastron (vis-viva)"),
-    "<C>.semi_amplitude_kms": ("K", "km/s", "velocity semi-amplitude of the relative orbit"),
-    "<C>.mass_ratio": ("q", "", "companion / central body mass"),
-    "<C>.central_mass_msun": ("M_c", "M_sun", "central body mass M / (1 + q)"),
-    "<C>.companion_mass_msun": ("m", "M_sun", "companion mass q M / (1 + q)"),
-    "<C>.A_mas": ("A", "mas", "Thiele-Innes constant A"),
-    "<C>.B_mas": ("B", "mas", "Thiele-Innes constant B"),
-    "<C>.F_mas": ("F", "mas", "Thiele-Innes constant F"),
-    "<C>.G_mas": ("G", "mas", "Thiele-Innes constant G"),
-    "log_posterior": ("ln p", "", "log posterior density (sampled variables)"),
-}
+#: column (with ``<C>.`` for a companion, ``<I>`` an instrument) -> (label, unit, meaning);
+#: derived from the one table of quantities, :data:`orbitmass.model.quantities.QUANTITIES`
+COLUMN_DOC: dict[str, tuple[str, str, str]] = column_doc()
 
 
 def quantile_block(x: NDArray[np.float64]) -> dict[str, float]:

@@ -335,12 +335,10 @@ def test_report_on_missing_folder_says_it_does_not_exist(tmp_path, capsys):
 
 
 def test_report_fails_before_any_work_when_folder_unwritable(fitted, tmp_path, monkeypatch):
-    from orbitmass.outputs import plots
-
     def no_drawing(*a, **k):
         raise AssertionError("a figure was drawn before the writability check")
 
-    monkeypatch.setattr(plots, "corner_figure", no_drawing)
+    monkeypatch.setattr("orbitmass.outputs.figures.corner.corner_figure", no_drawing)
     a_file = tmp_path / "a-file"
     a_file.write_text("x")
     with pytest.raises(RunFolderError, match="is a file"):
@@ -449,7 +447,6 @@ def test_prepared_folder_holds_checkpoint_and_publish_keeps_it(small_target, tmp
 def test_cli_report_on_read_only_run_folder_one_line_before_drawing(fitted, tmp_path, monkeypatch, capsys):
     import errno
 
-    from orbitmass.outputs import plots
 
     out = save_run(fitted.results, tmp_path / "run", products=False)
     before = tree_digest(out)
@@ -464,7 +461,7 @@ def test_cli_report_on_read_only_run_folder_one_line_before_drawing(fitted, tmp_
         raise AssertionError("a figure was drawn before the writability check")
 
     monkeypatch.setattr("orbitmass._atomic.os.open", read_only_open)
-    monkeypatch.setattr(plots, "corner_figure", no_drawing)
+    monkeypatch.setattr("orbitmass.outputs.figures.corner.corner_figure", no_drawing)
     code = main(["report", str(out)])
     err = capsys.readouterr().err
     assert code == 2 and "read-only file system" in err and len(err.strip().splitlines()) == 1
@@ -472,12 +469,11 @@ def test_cli_report_on_read_only_run_folder_one_line_before_drawing(fitted, tmp_
 
 
 def test_failing_figure_still_saves_the_run(fitted, tmp_path, monkeypatch):
-    from orbitmass.outputs import plots
 
     def broken(*a, **k):
         raise ValueError("simulated plotting failure")
 
-    monkeypatch.setattr(plots, "orbit_figure", broken)
+    monkeypatch.setattr("orbitmass.outputs.figures.orbit.orbit_figure", broken)
     with pytest.raises(RunFolderError, match=r"the run is saved .*simulated plotting failure"):
         fitted.save(tmp_path / "run")
     back = load(tmp_path / "run")  # samples and summary were published

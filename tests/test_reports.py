@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 from orbitmass.io.target import read_target
 from orbitmass.model.parameters import ParameterSpace
 from orbitmass.outputs.reports import (
@@ -44,7 +45,6 @@ from orbitmass.outputs.reports import (
     write_tables,
 )
 from orbitmass.results import Results, derive_samples, quantile_block
-from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 
 # --------------------------------------------------------------------------- test posterior
 
@@ -529,7 +529,7 @@ def _brace_balance_ok(tex: str) -> bool:
 def test_write_tables(tmp_path, nucleus):
     out = tmp_path / "out"
     paths = write_tables(nucleus, out)
-    assert sorted(p.name for p in out.iterdir()) == ["table.csv", "table.md", "table.tex"]
+    assert sorted(p.name for p in out.iterdir()) == ["table.csv", "table.ecsv", "table.md", "table.tex"]
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]  # nothing outside out_dir
     tex = paths["tex"].read_text(encoding="utf-8")
     assert _brace_balance_ok(tex)
@@ -545,7 +545,9 @@ def test_write_tables(tmp_path, nucleus):
     table = results_table(nucleus)
     body = tex[tex.index(r"\begin{tabular}") : tex.index(r"\end{tabular}")]
     data_rows = [ln for ln in body.splitlines() if ln.endswith(r"\\") and "multicolumn" not in ln]
-    assert len(data_rows) == len(table) + 1  # + header
+    # + header, + the periastron time of each companion also as MJD and ISO date
+    n_tp = int(table["parameter"].str.endswith(".periastron_time_jyr").sum())
+    assert n_tp == 2 and len(data_rows) == len(table) + 1 + 2 * n_tp
     for ln in data_rows:  # four columns: three unescaped ampersands
         assert len(re.findall(r"(?<!\\)&", ln)) == 3
     mass = table.iloc[0]
@@ -557,7 +559,7 @@ def test_write_tables(tmp_path, nucleus):
     assert list(csv["parameter"]) == list(table["parameter"])
     np.testing.assert_allclose(csv["median"], table["median"], rtol=1e-9)
     md = paths["md"].read_text(encoding="utf-8")
-    assert md.count("\n| ") == len(table) + 1
+    assert md.count("\n| ") == len(table) + 1 + 2 * n_tp
     assert m.text().replace("*", r"\*") in md
 
 

@@ -70,6 +70,7 @@ from orbitmass.exceptions import RunFolderError
 from orbitmass.io.checkpoint import CHECKPOINT_NAME
 from orbitmass.model.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
 from orbitmass.model.priors import FAMILIES, Prior
+from orbitmass.outputs.products import write_products as render_products
 
 __all__ = [
     "save_run",
@@ -91,7 +92,8 @@ RUN_KIND = "run"
 #: Top-level file names a run folder may hold (products, data, checkpoint).
 RUN_FILES = frozenset({
     "summary.json", "posterior.h5", CHECKPOINT_NAME, "report.md", "report.html", "table.tex", "table.csv",
-    "table.md", *(f"{n}.{ext}" for n in ("corner", "orbit", "trace") for ext in ("png", "pdf")),
+    "table.md", "table.ecsv", "residuals.csv",
+    *(f"{n}.{ext}" for n in ("corner", "orbit", "trace") for ext in ("png", "pdf")),
 })
 #: Folders a run folder may hold.
 RUN_DIRS = frozenset({"input"})
@@ -324,38 +326,23 @@ def check_run_folder_writable(run_dir: str | os.PathLike[str]) -> Path:
     return run_dir
 
 
-def write_products(results, out_dir: Path) -> Path:
+def write_products(results, out_dir: Path, **options) -> Path:
     """Figures, tables and reports of ``results`` into ``out_dir``; returns report.md's path.
 
     The folder is checked first (:func:`check_run_folder_writable`; a
-    missing one is created), so a read-only folder fails before any figure is drawn.
+    missing one is created), so a read-only folder fails before any figure is
+    drawn. Keyword options (``params``, ``units``, ``truths``, ``names``) go to
+    :func:`orbitmass.outputs.products.write_products`.
     """
-    import matplotlib
-
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
-
-    from orbitmass.outputs import plots, reports
-    from orbitmass.outputs.style import save_figure
-
     out_dir = Path(out_dir)
     _check_product_folder(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     marker = read_marker(out_dir)
-    figures = {}
-    # the trace figure is a diagnostic of many noisy lines: a lower resolution keeps it light
-    for name, func, dpi in (("corner", plots.corner_figure, 200), ("orbit", plots.orbit_figure, 200),
-                            ("trace", plots.trace_figure, 110)):
-        fig = func(results)
-        save_figure(fig, out_dir / name, dpi=dpi)
-        plt.close(fig)
-        figures[name] = f"{name}.png"
-    reports.write_tables(results, out_dir)
-    reports.write_report(results, out_dir, figures)
+    report = render_products(results, out_dir, **options)
     if marker is not None and marker.get("kind") == RUN_KIND:  # re-rendered into a run folder: record new files
         files = set(marker["files"]) | {e for e in folder_entries(out_dir) if "/" not in e and e in RUN_FILES}
         write_marker(out_dir, RUN_KIND, files=files, created_utc=marker.get("created_utc"))
-    return out_dir / "report.md"
+    return report
 
 
 def is_complete_run(run_dir: Path) -> bool:
