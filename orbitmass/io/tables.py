@@ -391,9 +391,9 @@ def _read_astropy(data: bytes, source: str, fmt: str):
             raise InputError(f"decompresses to more than {MAX_TABLE_BYTES / 1024**2:.0f} MiB, "
                              "the limit of one table", file=source)
         fmt = "fits"
-    if fmt == "ecsv":
-        stream: io.IOBase = io.StringIO(decode_text(data, source))
-        reader = "ascii.ecsv"
+    stream: object
+    if fmt == "ecsv":  # astropy reads ECSV from a list of lines, never from a path here
+        stream, reader = decode_text(data, source).split("\n"), "ascii.ecsv"
     else:
         stream, reader = io.BytesIO(data), fmt
     label = {"ascii.ecsv": "ECSV", "fits": "FITS", "votable": "VOTable"}[reader]
@@ -423,14 +423,14 @@ def _astropy_column(col, name: str, quantities: dict, source: str) -> tuple[str,
     values = col
     if name in quantities:  # no suffix: the unit comes from the metadata
         allowed = quantities[name]
+        kind = "degree" if allowed is _DEGREE else "speed" if allowed is _SPEED else "angle"
         if unit is None:
-            example = next(iter(allowed))
+            example = _INTERNAL_SUFFIX[kind]
             raise InputError(f"column '{name}' has no unit in its metadata; give one (e.g. "
                              f"{_SUFFIX_UNITS[example]}) or name it {name}_{example}",
                              file=source, key=name)
         suffix = next((s for s in allowed if unit == u.Unit(_SUFFIX_UNITS[s])), None)
         if suffix is None:
-            kind = "degree" if allowed is _DEGREE else "speed" if allowed is _SPEED else "angle"
             suffix = _INTERNAL_SUFFIX[kind]
             try:
                 with np.errstate(over="ignore", invalid="ignore"):
