@@ -23,7 +23,7 @@ import orbitmass.io.tables as tables
 import orbitmass.io.target as target_module
 from orbitmass.exceptions import InputError
 from orbitmass.io.tables import load_bytes, read_velocities
-from orbitmass.io.target import read_target
+from orbitmass.io.target import read_target, read_target_name
 from orbitmass.model.data import ExtendedMass, FitOptions, Relativity
 from orbitmass.model.priors import Fixed, LogUniform, Uniform
 
@@ -155,8 +155,11 @@ def test_bom_at_the_start_of_target_and_table_is_ignored(tmp_path):
     assert t.name == "Vexa 9"
     assert t.companions[0].astrometry.t_yr.tolist() == plain.companions[0].astrometry.t_yr.tolist()
     assert t.companions[0].velocities.rv_kms.tolist() == [10.0, 12.0]
+    # the name alone (for seeds derived from it) is the same with and without a BOM
+    assert read_target_name(path) == "Vexa 9"
     # the default name is the file stem, also with a BOM
     assert read_target(make(tmp_path, bom + (DIST + COMP).encode())).name == "target"
+    assert read_target_name(make(tmp_path, '[target]\nname = "Vexa 9"\n')) == "Vexa 9"
 
 
 # --------------------------------------------------------------------------- tables

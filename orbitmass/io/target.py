@@ -127,7 +127,8 @@ from orbitmass.model.data import (
 from orbitmass.model.priors import FAMILIES, Fixed, Isotropic, LogUniform, Normal, Prior, Uniform
 from orbitmass.units import DAYS_PER_YEAR, parse_quantity
 
-__all__ = ["read_target", "parse_prior", "DEFAULT_PRIORS", "MAX_TARGET_BYTES", "FIT_LIMITS"]
+__all__ = ["read_target", "read_target_name", "parse_prior", "DEFAULT_PRIORS", "MAX_TARGET_BYTES",
+           "FIT_LIMITS"]
 
 logger = logging.getLogger(__name__)
 
@@ -767,6 +768,43 @@ def _reference_epoch(head: dict[str, Any], companions: list[Companion], where: s
 
 
 # --------------------------------------------------------------------------- public
+
+
+def read_target_name(path: str | os.PathLike[str]) -> str:
+    """The name :func:`read_target` gives a target file, without reading its tables.
+
+    The file is decoded as :func:`read_target` decodes it (a byte-order mark
+    is ignored), so the name, and any seed derived from it, does not depend
+    on how an editor saved the file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The target file.
+
+    Returns
+    -------
+    str
+        ``target.name`` (blanks at both ends removed), or the file name
+        without its extension when the file gives none.
+
+    Raises
+    ------
+    InputError
+        When the file cannot be read or is not valid TOML, or ``target.name``
+        is not a non-empty string.
+
+    Examples
+    --------
+    >>> import tempfile, pathlib
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "t.toml"
+    >>> _ = p.write_bytes("\\ufeff[target]\\nname = 'Vexa 9'\\n".encode())
+    >>> read_target_name(p)
+    'Vexa 9'
+    """
+    doc, _, where = _read_toml(path)
+    head = _table(doc.get("target", {}), "target", where)
+    return _string(head["name"], "target.name", where) if "name" in head else Path(path).stem
 
 
 def read_target(path: str | os.PathLike[str]) -> Target:
