@@ -200,7 +200,9 @@ _RANGES: dict[str, tuple[float, float, bool, bool]] = {
 # just meet it; the upper end of a closed-open range is allowed as a bound (uniform 0 to 1)
 _CONTAINED = ("eccentricity", "mass_ratio", "jitter", "inclination", "periastron_time",
               "factor", "fraction")
-_RANGE_UNITS = {"inclination": ("deg", 180.0 / math.pi)}
+_RANGE_UNITS = {"inclination": ("deg", 180.0 / math.pi), "mass": ("solMass", 1.0),
+                "period": ("yr", 1.0), "distance": ("pc", 1.0), "parallax": ("mas", 1.0),
+                "jitter": ("km/s", 1.0)}
 
 _TOP_LEVEL = ("target", "central", "distance", "instruments", "companion", "relativity",
               "extended_mass", "fit")
