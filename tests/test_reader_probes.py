@@ -394,3 +394,19 @@ def test_extended_mass_table_of_the_contract(tmp_path, radius, mas, au):
 ])
 def test_bad_extended_mass_tables(tmp_path, body, key):
     fails(read_target, make(tmp_path, f"[extended_mass]\n{body}\n" + DIST + COMP), key=key)
+
+
+def test_the_documented_example_reads(tmp_path):
+    # the example target file of docs/input-format.md (its TOML blocks) is valid as written
+    import re
+
+    doc = (Path(__file__).resolve().parents[1] / "docs" / "input-format.md").read_text(encoding="utf-8")
+    blocks = re.findall(r"```toml\n(.*?)```", doc, re.S)
+    (tmp_path / "c1_positions.csv").write_text(POS, encoding="utf-8")
+    (tmp_path / "c1_velocities.csv").write_text(
+        "jyear,rv_kms,rv_err_kms,instrument\n2019,10,1,spec-a\n2023,12,1,spec-a\n", encoding="utf-8")
+    path = tmp_path / "t.toml"
+    path.write_text("\n".join(blocks), encoding="utf-8")
+    t = read_target(path)
+    assert t.fit_options == FitOptions(walkers=64, seed=7, max_steps=20000)
+    assert t.relativity.roemer_delay and t.extended_mass.scale_radius_mas == 10.0
