@@ -77,6 +77,7 @@ import io
 import logging
 import math
 import os
+import re
 import stat
 import warnings
 import zlib
@@ -311,7 +312,14 @@ class _Grid:
         return [r[j] for r in self.rows]
 
 
+_BLANK = re.compile(r"\s")
+
+
 def _split(line: str, source: str, lineno: int) -> list[str]:
+    if '"' not in line:  # no quoting: the csv module would split at every comma too
+        if _BLANK.search(line) is None:
+            return line.split(",")
+        return [f.strip() for f in line.split(",")]
     try:
         fields = next(csv.reader([line], strict=True, skipinitialspace=True))
     except csv.Error as exc:
@@ -550,8 +558,43 @@ def _number(grid: _Grid, row: int, column: str, text: str, scale: _Scale = (1.0,
     return value * scale[0] / scale[1]
 
 
+def _floats(grid: _Grid, column: str, scale: _Scale = (1.0, 1.0)) -> tuple[NDArray, NDArray] | None:
+    """Fast path: (values in internal units, empty mask) of a column, or None when some
+    cell is not a finite number (the per-cell path then finds and names it)."""
+    cells = grid.cells(column)
+    empty = np.fromiter((not c for c in cells), dtype=bool, count=len(cells))
+    try:
+        values = np.array([c or "nan" for c in cells], dtype=float)
+    except ValueError:
+        return None
+    with np.errstate(over="ignore", invalid="ignore"):
+        values = values * scale[0] / scale[1]
+    if not np.all(np.isfinite(values[~empty])):
+        return None
+    return values, empty
+
+
+def _all_plausible(values: NDArray, check: str) -> bool:
+    """Vectorised ``_check_value``: True when no value of the array would be refused."""
+    if not np.all(np.isfinite(values)):
+        return False
+    if check == "corr":
+        return bool(np.all(np.abs(values) < 1.0))
+    if check not in _RANGES:
+        return True
+    low, high, _, _ = _RANGES[check]
+    if check.endswith("_err") and not np.all(values > 0.0):
+        return False
+    if check == "speed":
+        return bool(np.all(np.abs(values) < high))
+    return bool(np.all((values >= low) & (values <= high)))
+
+
 def _values(grid: _Grid, column: str, scale: _Scale = (1.0, 1.0), *, check: str = "") -> NDArray:
     """Numbers of one column, in internal units, each passed through ``_check_value``."""
+    fast = _floats(grid, column, scale)
+    if fast is not None and not fast[1].any() and _all_plausible(fast[0], check):
+        return fast[0]
     out = np.empty(len(grid.rows))
     for i, text in enumerate(grid.cells(column)):
         out[i] = _number(grid, i, column, text, scale)
@@ -694,6 +737,61 @@ def astrometry_from_bytes(data: bytes, source: str) -> Astrometry:
                          "north_err_<u> or rho_<u>, theta_deg, rho_err_<u>, theta_err_deg "
                          "(u = uas, mas, arcsec)")
     t_yr = _epochs(grid, found)
+    fast = _positions_fast(grid, found, has_cart, has_polar)
+    if fast is not None:
+        polar, vals, corr = fast
+    else:
+        polar, vals, corr = _positions_by_row(grid, found, has_cart, has_polar)
+    for form, rows in ((_CARTESIAN, np.nonzero(~polar)[0]), (_POLAR, np.nonzero(polar)[0])):
+        for k in (0, 1):
+            if rows.size:
+                _check_relative_errors(grid, rows, found[form[k]][0], found[form[k + 2]][0],
+                                       vals[k], vals[k + 2])
+    t_yr, lines, polar, v1, v2, e1, e2, corr = _sorted(t_yr, grid.lines, polar, *vals, corr)
+    return Astrometry(t_yr=t_yr, polar=polar, value1=v1, value2=v2, err1=e1, err2=e2, corr=corr,
+                      source=source, lines=lines)
+
+
+def _positions_fast(grid: _Grid, found: dict, has_cart: bool, has_polar: bool):
+    """(polar, values (4, n), corr) read column by column, or None when any cell would be
+    refused (then :func:`_positions_by_row` finds the first problem and names it)."""
+    n = len(grid.rows)
+    polar = np.zeros(n, dtype=bool)
+    vals = np.zeros((4, n))
+    filled_count = np.zeros(n, dtype=int)
+    for form, present in ((_CARTESIAN, has_cart), (_POLAR, has_polar)):
+        if not present:
+            continue
+        columns = [_floats(grid, found[q][0], found[q][1]) for q in form]
+        if any(c is None for c in columns):
+            return None
+        empties = np.array([c[1] for c in columns])
+        full = ~empties.any(axis=0)
+        if np.any(empties.any(axis=0) & ~empties.all(axis=0)):  # a partly filled group
+            return None
+        for k, (values, _) in enumerate(columns):
+            if not _all_plausible(values[full], _POSITION_CHECKS[form][k]):
+                return None
+            vals[k, full] = values[full]
+        filled_count += full
+        if form is _POLAR:
+            polar = full
+    if np.any(filled_count != 1):
+        return None
+    corr = np.zeros(n)
+    if "corr" in found:
+        column = _floats(grid, "corr")
+        if column is None:
+            return None
+        values, empty = column
+        corr = np.where(empty, 0.0, values)
+        if not _all_plausible(corr, "corr"):
+            return None
+    return polar, vals, corr
+
+
+def _positions_by_row(grid: _Grid, found: dict, has_cart: bool, has_polar: bool):
+    """(polar, values (4, n), corr) read row by row; raises at the first refused cell."""
     n = len(grid.rows)
     polar = np.zeros(n, dtype=bool)
     vals = np.zeros((4, n))
@@ -725,14 +823,7 @@ def astrometry_from_bytes(data: bytes, source: str) -> Astrometry:
         if "corr" in found and row[index["corr"]]:
             corr[i] = _number(grid, i, "corr", row[index["corr"]])
             _check_value(grid, i, "corr", row[index["corr"]], corr[i], "corr")
-    for form, rows in ((_CARTESIAN, np.nonzero(~polar)[0]), (_POLAR, np.nonzero(polar)[0])):
-        for k in (0, 1):
-            if rows.size:
-                _check_relative_errors(grid, rows, found[form[k]][0], found[form[k + 2]][0],
-                                       vals[k], vals[k + 2])
-    t_yr, lines, polar, v1, v2, e1, e2, corr = _sorted(t_yr, grid.lines, polar, *vals, corr)
-    return Astrometry(t_yr=t_yr, polar=polar, value1=v1, value2=v2, err1=e1, err2=e2, corr=corr,
-                      source=source, lines=lines)
+    return polar, vals, corr
 
 
 def read_astrometry(path: str | os.PathLike[str]) -> Astrometry:
@@ -805,11 +896,16 @@ def velocities_from_bytes(data: bytes, source: str) -> Velocities:
     n = len(grid.rows)
     instrument = np.full(n, DEFAULT_INSTRUMENT, dtype=object)
     if "instrument" in found:
+        checked: set[str] = set()
         for i, name in enumerate(grid.cells("instrument")):
+            if name in checked:
+                instrument[i] = name
+                continue
             if not name:
                 raise grid.error("empty cell in column 'instrument', expected an instrument "
                                  "name", row=i, column="instrument")
             problem = name_problem(name)
+            checked.add(name)
             if problem:
                 raise grid.error(f"instrument name {name!r} {problem}", row=i,
                                  column="instrument")
