@@ -410,3 +410,9 @@ def test_the_documented_example_reads(tmp_path):
     t = read_target(path)
     assert t.fit_options == FitOptions(walkers=64, seed=7, max_steps=20000)
     assert t.relativity.roemer_delay and t.extended_mass.scale_radius_mas == 10.0
+
+
+def test_name_with_a_newline_gives_a_one_line_message(tmp_path):
+    path = make(tmp_path, DIST + COMP.replace('"C1"', '"C\\n1"'))
+    err = fails(read_target, path, key="companion[0].name", words=('"C\\n1"', "U+000A"))
+    assert "\n" not in str(err)

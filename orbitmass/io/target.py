@@ -91,6 +91,7 @@ from __future__ import annotations
 import datetime
 import difflib
 import hashlib
+import json
 import logging
 import math
 import os
@@ -226,7 +227,7 @@ def _show(value: object, depth: int = 0) -> str:
         text = value if len(value) <= 60 else value[:57] + "..."
         if "'" not in text and text.isprintable():
             return f"'{text}'"
-        return '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
+        return json.dumps(text, ensure_ascii=False)  # TOML basic-string escapes (\\n, \\")
     if isinstance(value, int):
         digits = len(str(abs(value)))
         return str(value) if digits <= 30 else f"an integer of {digits} digits"
