@@ -192,3 +192,14 @@ def test_format_by_suffix():
     assert [table_format(n) for n in ("a.csv", "a.ECSV", "a.fit", "a.fits.gz", "a.xml",
                                       "a.vot", "a.txt", "a")] == \
         ["csv", "ecsv", "fits", "fits.gz", "votable", "votable", "csv", "csv"]
+
+
+def test_unrecognised_unit_in_the_metadata(tmp_path):
+    path = tmp_path / "v.ecsv"
+    path.write_text("# %ECSV 1.0\n# ---\n# datatype:\n# - {name: jyear, datatype: float64}\n"
+                    "# - {name: rv, unit: furlongs_per_fortnight, datatype: float64}\n"
+                    "# - {name: rv_err_kms, datatype: float64}\n# schema: astropy-2.0\n"
+                    "jyear rv rv_err_kms\n2020.0 1.0 0.5\n", encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        read_velocities(path)
+    assert info.value.key == "rv" and "does not convert" in str(info.value)

@@ -443,7 +443,7 @@ def _astropy_column(col, name: str, quantities: dict, source: str) -> tuple[str,
             try:
                 with np.errstate(over="ignore", invalid="ignore"):
                     values = u.Quantity(col).to_value(_SUFFIX_UNITS[suffix])
-            except u.UnitConversionError:
+            except (u.UnitsError, ValueError, TypeError):  # also units astropy did not recognise
                 want = ", ".join(_SUFFIX_UNITS[s] for s in allowed)
                 raise InputError(f"column '{name}' has unit {unit}, which does not convert to "
                                  f"{want}", file=source, key=name) from None
