@@ -416,3 +416,12 @@ def test_name_with_a_newline_gives_a_one_line_message(tmp_path):
     path = make(tmp_path, DIST + COMP.replace('"C1"', '"C\\n1"'))
     err = fails(read_target, path, key="companion[0].name", words=('"C\\n1"', "U+000A"))
     assert "\n" not in str(err)
+
+
+@pytest.mark.parametrize(("cosmology", "key"), [
+    ('{ H0 = "[70, 71] km / (s Mpc)", Om0 = 0.3 }', "distance.cosmology.H0"),
+    ('{ H0 = "70 km / (s Mpc)", Om0 = 0.3, Tcmb0 = "[2, 3] K" }', "distance.cosmology.Tcmb0"),
+])
+def test_list_quantities_in_the_cosmology_table(tmp_path, cosmology, key):
+    toml = f"[distance]\nredshift = 0.1\ncosmology = {cosmology}\n" + COMP
+    fails(read_target, make(tmp_path, toml), key=key)

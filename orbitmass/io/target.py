@@ -506,7 +506,7 @@ def _flat_lcdm_spec(table: dict, where: str) -> str:
             raise InputError(f"missing key {key!r} of the flat Lambda-CDM model", file=where,
                              key=f"distance.cosmology.{key}")
     try:
-        h0 = u.Quantity(table["H0"]).to_value(u.km / u.s / u.Mpc) if isinstance(table["H0"], str) else None
+        h0 = float(u.Quantity(table["H0"]).to_value(u.km / u.s / u.Mpc)) if isinstance(table["H0"], str) else None
     except (TypeError, ValueError, u.UnitsError):
         h0 = None
     if h0 is None or not math.isfinite(h0) or h0 <= 0:
@@ -518,7 +518,7 @@ def _flat_lcdm_spec(table: dict, where: str) -> str:
     tcmb = 0.0
     if "Tcmb0" in table:
         try:
-            tcmb = u.Quantity(table["Tcmb0"]).to_value(u.K) if isinstance(table["Tcmb0"], str) else -1.0
+            tcmb = float(u.Quantity(table["Tcmb0"]).to_value(u.K)) if isinstance(table["Tcmb0"], str) else -1.0
         except (TypeError, ValueError, u.UnitsError):
             tcmb = -1.0
         if not (math.isfinite(tcmb) and tcmb >= 0):
