@@ -203,3 +203,12 @@ def test_unrecognised_unit_in_the_metadata(tmp_path):
     with pytest.raises(InputError) as info:
         read_velocities(path)
     assert info.value.key == "rv" and "does not convert" in str(info.value)
+
+
+def test_truncated_fits_file_is_refused(tmp_path):
+    path = write(rv_table(), tmp_path / "v.fits")
+    data = path.read_bytes()
+    path.write_bytes(data[: len(data) - 1000])  # FITS files are blocks of 2880 bytes
+    with pytest.raises(InputError) as info:
+        read_velocities(path)
+    assert info.value.file == str(path) and "truncated" in str(info.value)

@@ -413,6 +413,8 @@ def _read_astropy(data: bytes, source: str, fmt: str):
             reason = str(exc).split("\n")[0].rstrip(".") or type(exc).__name__
             raise InputError(f"cannot read the file as {label} ({reason})", file=source) from None
     for w in caught:  # e.g. several tables in one file, or VOTable specification notes
+        if "truncated" in str(w.message):  # missing bytes would be read as zeros
+            raise InputError(f"the {label} file is truncated ({w.message})", file=source)
         logger.warning("%s: %s", source, w.message)
     return table
 
