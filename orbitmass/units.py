@@ -125,6 +125,7 @@ def parse_quantity(text: object, physical_type: str, *, key: str, where: str = "
     8100.0
     """
     target_unit = INTERNAL_UNITS[physical_type]
+    article = "an" if physical_type[0] in "aeiou" else "a"
     if isinstance(text, bool) or not isinstance(text, str):
         raise InputError(
             f"expected a quantity string like '1.5 {target_unit}' (a number and a unit of "
@@ -138,9 +139,16 @@ def parse_quantity(text: object, physical_type: str, *, key: str, where: str = "
         raise InputError(
             f"cannot read {text!r} as '<number> <unit>' ({exc})", file=where, key=key
         ) from None
+    if not q.isscalar:
+        raise InputError(
+            f"{text!r} is not one number and a unit; expected {article} {physical_type} such "
+            f"as '1.5 {target_unit}' (a prior's bounds are separate keys, low and high)",
+            file=where,
+            key=key,
+        )
     if q.unit == u.dimensionless_unscaled:
         raise InputError(
-            f"{text!r} has no unit; expected a {physical_type} such as '1.5 {target_unit}'",
+            f"{text!r} has no unit; expected {article} {physical_type} such as '1.5 {target_unit}'",
             file=where,
             key=key,
         )
@@ -149,7 +157,7 @@ def parse_quantity(text: object, physical_type: str, *, key: str, where: str = "
             value = float(q.to_value(target_unit))
     except u.UnitConversionError:
         raise InputError(
-            f"{text!r} is not a {physical_type} (cannot convert {q.unit} to {target_unit})",
+            f"{text!r} is not {article} {physical_type} (cannot convert {q.unit} to {target_unit})",
             file=where,
             key=key,
         ) from None

@@ -18,9 +18,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from orbitmass.model.data import Target
 from orbitmass.exceptions import InputError
 from orbitmass.io.target import read_target
+from orbitmass.model.data import Target
 from orbitmass.model.priors import FAMILIES, Fixed, Isotropic, LogUniform, Normal, TruncNormal, Uniform
 
 POS = "jyear,east_mas,north_mas,east_err_mas,north_err_mas\n2018,1,2,0.1,0.1\n2020,2,3,0.1,0.1\n"
@@ -67,7 +67,9 @@ def test_minimal_target_defaults(tmp_path):
     assert isinstance(t, Target)
     assert t.name == "target"
     assert t.frame == "relative"
-    assert t.central_priors == {"mass": LogUniform(1e-3, 1e11), "systemic": Fixed(0.0)}
+    # input-format.md, default-prior table: the systemic velocity is sampled, uniform +-1000 km/s,
+    # whenever the target has velocities
+    assert t.central_priors == {"mass": LogUniform(1e-3, 1e11), "systemic": Uniform(-1000.0, 1000.0)}
     (c,) = t.companions
     assert c.name == "C1" and c.plane is None
     day_in_yr = (1 * u.day).to_value(u.yr)  # astropy: Julian year of 365.25 d
@@ -267,10 +269,10 @@ def test_data_checksum(tmp_path):
     assert {f.name: (f.read_bytes(), f.stat().st_mtime_ns) for f in tmp_path.iterdir()} == before
 
 
-def test_paths_relative_to_target_and_fit_table_ignored(tmp_path, monkeypatch):
+def test_paths_relative_to_target(tmp_path, monkeypatch):
     sub = tmp_path / "deep"
     sub.mkdir()
-    path = make(sub, '[fit]\nwalkers = 64\n[output]\nfolder = "x"\n' + DIST + COMP)
+    path = make(sub, '[fit]\nwalkers = 64\n' + DIST + COMP)
     monkeypatch.chdir(tmp_path)
     t = read_target(Path("deep") / "target.toml")
     assert t.companions[0].astrometry.source == str(Path("deep") / "pos.csv")

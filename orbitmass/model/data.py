@@ -8,14 +8,60 @@ Instances are frozen; arrays are made read-only on construction.
 
 from __future__ import annotations
 
+import unicodedata
 from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.model.priors import Prior
+from orbitmass.model.priors import Fixed, Prior
 
-__all__ = ["Astrometry", "Velocities", "Instrument", "Companion", "Distance", "Target"]
+__all__ = ["Astrometry", "Velocities", "Instrument", "Companion", "Distance", "Relativity",
+           "ExtendedMass", "FitOptions", "Target", "name_problem", "NAME_PUNCTUATION",
+           "NAME_MAX_LENGTH"]
+
+#: Characters besides letters, digits and combining marks (any script) allowed in the
+#: names of companions, instruments and planes.
+NAME_PUNCTUATION = " -_+#"
+#: Longest name of a companion, instrument or plane, in characters.
+NAME_MAX_LENGTH = 64
+
+
+def _char(ch: str) -> str:
+    if ch.isprintable() and not ch.isspace():
+        return f"'{ch}'"
+    return f"U+{ord(ch):04X} ({unicodedata.name(ch, 'a control character').lower()})"
+
+
+def name_problem(name: str) -> str | None:
+    """What is wrong with a companion, instrument or plane name, or None when it is valid.
+
+    A name has 1 to :data:`NAME_MAX_LENGTH` characters: letters, digits and
+    combining marks of any script, spaces (not at either end) and the
+    characters of :data:`NAME_PUNCTUATION` (``- _ + #``), with at least
+    one letter or digit. Dots, slashes, quotes, ``$`` and control
+    characters are refused: names become parts of parameter names
+    (``NAME.period``) and of output tables.
+
+    Examples
+    --------
+    >>> name_problem("S2-a"), name_problem("Ωμέγα 1")
+    (None, None)
+    >>> name_problem("S2.a")
+    "contains '.'; names may use letters, digits, spaces and - _ + # only"
+    """
+    if not name:
+        return "is empty"
+    if len(name) > NAME_MAX_LENGTH:
+        return f"has {len(name)} characters; names have at most {NAME_MAX_LENGTH}"
+    if name != name.strip():
+        return "starts or ends with a blank"
+    for ch in name:
+        if unicodedata.category(ch)[0] not in "LMN" and ch not in NAME_PUNCTUATION:
+            return f"contains {_char(ch)}; names may use letters, digits, spaces and - _ + # only"
+    if not any(unicodedata.category(ch)[0] in "LN" for ch in name):
+        return "has no letter or digit"
+    return None
 
 COMPANION_PRIOR_KEYS = (
     "period",
@@ -155,6 +201,78 @@ class Distance:
     redshift: float | None = None
     cosmology: str = "Planck18"
 
+    def describe(self) -> str:
+        """The distance information in words, for messages and reports.
+
+        Examples
+        --------
+        >>> Distance(parallax=Fixed(2.0)).describe()
+        'parallax fixed at 2 mas'
+        """
+        parts = []
+        if self.prior is not None:
+            parts.append(f"distance {self.prior.describe('pc')}")
+        if self.parallax is not None:
+            parts.append(f"parallax {self.parallax.describe('mas')}")
+        if self.redshift is not None:
+            parts.append(f"redshift {self.redshift:g} ({self.cosmology})")
+        return ", ".join(parts) or "no distance information"
+
+
+@dataclass(frozen=True)
+class Relativity:
+    """The ``[relativity]`` table: first post-Newtonian terms, scaled by factors.
+
+    ``redshift_factor`` (gravitational redshift and transverse Doppler in the
+    velocities) and ``precession_factor`` (Schwarzschild precession of the
+    periastron) are priors on bare numbers, 0 Newtonian and 1 general
+    relativity, shared by every companion; a factor the table does not give
+    is ``Fixed(0.0)``. ``roemer_delay``: light-travel time across the orbit.
+    """
+
+    redshift_factor: Prior = Fixed(0.0)
+    precession_factor: Prior = Fixed(0.0)
+    roemer_delay: bool = False
+
+
+@dataclass(frozen=True)
+class ExtendedMass:
+    """The ``[extended_mass]`` table: a Plummer sphere of mass around the central body.
+
+    ``fraction``: prior on its total mass over the central mass (bare
+    numbers). The scale radius is given either as an angle
+    (``scale_radius_mas``) or as a length (``scale_radius_au``); exactly one
+    of the two is set, the other is None.
+    """
+
+    fraction: Prior
+    scale_radius_mas: float | None = None
+    scale_radius_au: float | None = None
+
+
+@dataclass(frozen=True)
+class FitOptions:
+    """Run options of the ``[fit]`` table; None where the table does not set them.
+
+    Options given on the command line or to :class:`orbitmass.fit.Fit`
+    take precedence over these.
+
+    Examples
+    --------
+    >>> FitOptions(walkers=64, seed=3).as_fit_kwargs()
+    {'n_walkers': 64, 'seed': 3}
+    """
+
+    walkers: int | None = None
+    seed: int | None = None
+    max_steps: int | None = None
+
+    def as_fit_kwargs(self) -> dict[str, int]:
+        """The options that are set, under the keyword names of :class:`orbitmass.fit.Fit`."""
+        names = {"walkers": "n_walkers", "seed": "seed", "max_steps": "max_steps"}
+        return {names[k]: v for k, v in (("walkers", self.walkers), ("seed", self.seed),
+                                          ("max_steps", self.max_steps)) if v is not None}
+
 
 @dataclass(frozen=True)
 class Target:
@@ -166,6 +284,8 @@ class Target:
     (km/s) in the relative frame. ``instruments`` keeps declaration order
     (the first is the zero point). ``reference_epoch`` is a Julian year,
     already resolved to the mean data epoch when the file gave none.
+    ``relativity`` and ``extended_mass`` are None when the target file has no
+    such table; ``fit_options`` holds its ``[fit]`` table (all None without one).
     """
 
     name: str
@@ -177,3 +297,6 @@ class Target:
     companions: tuple[Companion, ...]
     source: str = ""
     data_sha256: str = ""
+    relativity: Relativity | None = None
+    extended_mass: ExtendedMass | None = None
+    fit_options: FitOptions = FitOptions()
