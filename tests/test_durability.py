@@ -22,7 +22,7 @@ import h5py
 import numpy as np
 import pytest
 
-from orbitmass import Fit, InputError, RunFolderError, load
+from orbitmass import Fit, InputError, RunFolderError, load, read_target
 from orbitmass.cli import main
 from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.io import rundir
@@ -478,3 +478,21 @@ def test_failing_figure_still_saves_the_run(fitted, tmp_path, monkeypatch):
         fitted.save(tmp_path / "run")
     back = load(tmp_path / "run")  # samples and summary were published
     assert back.results.samples.equals(fitted.results.samples)
+
+
+def test_beyond_kepler_tables_and_fit_options_survive_save_and_load(small_target, tmp_path):
+    # the [relativity], [extended_mass] and [fit] tables of the input contract
+    # (shared/spec/input-format.md, "Beyond Kepler") must come back from a run folder unchanged
+    text = small_target.read_text(encoding="utf-8")
+    text += ('\n[relativity]\nredshift_factor = { dist = "uniform", low = -1, high = 3 }\nroemer_delay = true\n'
+             '[extended_mass]\nfraction = { dist = "uniform", low = 0, high = 0.05 }\nscale_radius = "10 mas"\n'
+             '[fit]\nwalkers = 32\n')
+    small_target.write_text(text, encoding="utf-8")
+    target = read_target(small_target)
+    fit = Fit(seed=3, linear=False, max_steps=120, min_steps=120, progress=False).fit(target)
+    back = load(fit.save(tmp_path / "run"))
+    assert back.results.target.relativity == target.relativity
+    assert back.results.target.relativity.roemer_delay is True
+    assert back.results.target.extended_mass == target.extended_mass
+    assert back.results.target.extended_mass.scale_radius_mas == 10.0
+    assert back.results.target.fit_options == target.fit_options

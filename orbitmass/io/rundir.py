@@ -68,7 +68,17 @@ from orbitmass._atomic import (
 from orbitmass._atomic import jsonable as _jsonable
 from orbitmass.exceptions import RunFolderError
 from orbitmass.io.checkpoint import CHECKPOINT_NAME
-from orbitmass.model.data import Astrometry, Companion, Distance, Instrument, Target, Velocities
+from orbitmass.model.data import (
+    Astrometry,
+    Companion,
+    Distance,
+    ExtendedMass,
+    FitOptions,
+    Instrument,
+    Relativity,
+    Target,
+    Velocities,
+)
 from orbitmass.model.priors import FAMILIES, Prior
 from orbitmass.outputs.products import write_products as render_products
 
@@ -146,6 +156,16 @@ def _write_target(group: h5py.Group, target: Target) -> None:
                         "astrometry_source": None if c.astrometry is None else c.astrometry.source,
                         "velocities_source": None if c.velocities is None else c.velocities.source}
                        for c in target.companions],
+        "relativity": None if target.relativity is None else {
+            "redshift_factor": _prior_to_dict(target.relativity.redshift_factor),
+            "precession_factor": _prior_to_dict(target.relativity.precession_factor),
+            "roemer_delay": bool(target.relativity.roemer_delay)},
+        "extended_mass": None if target.extended_mass is None else {
+            "fraction": _prior_to_dict(target.extended_mass.fraction),
+            "scale_radius_mas": target.extended_mass.scale_radius_mas,
+            "scale_radius_au": target.extended_mass.scale_radius_au},
+        "fit_options": {"walkers": target.fit_options.walkers, "seed": target.fit_options.seed,
+                        "max_steps": target.fit_options.max_steps},
     }
     group.attrs["meta"] = json.dumps(_jsonable(meta))
     for k, c in enumerate(target.companions):
@@ -177,6 +197,14 @@ def _read_target(group: h5py.Group) -> Target:
         comps.append(Companion(name=cm["name"], astrometry=astro, velocities=vel, plane=cm["plane"],
                                priors={k2: _prior_from_dict(v) for k2, v in cm["priors"].items()}))
     d = meta["distance"]
+    rel = meta.get("relativity")  # absent in run folders of earlier versions
+    ext = meta.get("extended_mass")
+    relativity = None if rel is None else Relativity(
+        redshift_factor=_prior_from_dict(rel["redshift_factor"]),
+        precession_factor=_prior_from_dict(rel["precession_factor"]), roemer_delay=bool(rel["roemer_delay"]))
+    extended = None if ext is None else ExtendedMass(
+        fraction=_prior_from_dict(ext["fraction"]), scale_radius_mas=ext["scale_radius_mas"],
+        scale_radius_au=ext["scale_radius_au"])
     return Target(
         name=meta["name"], reference_epoch=meta["reference_epoch"], frame=meta["frame"],
         central_priors={k: _prior_from_dict(v) for k, v in meta["central_priors"].items()},
@@ -185,7 +213,8 @@ def _read_target(group: h5py.Group) -> Target:
                           redshift=d["redshift"], cosmology=d["cosmology"]),
         instruments={i["name"]: Instrument(name=i["name"], offset=_prior_from_dict(i["offset"]),
                                            jitter=_prior_from_dict(i["jitter"])) for i in meta["instruments"]},
-        companions=tuple(comps), source=meta["source"], data_sha256=meta["data_sha256"])
+        companions=tuple(comps), source=meta["source"], data_sha256=meta["data_sha256"],
+        relativity=relativity, extended_mass=extended, fit_options=FitOptions(**meta.get("fit_options", {})))
 
 
 
