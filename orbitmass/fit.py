@@ -22,9 +22,10 @@ import pandas as pd
 from orbitmass._version import software_versions
 from orbitmass.core.cosmology import redshift_distance_pc
 from orbitmass.exceptions import InputError, NotFittedError
+from orbitmass.inference.quality import assess_fit, issue_warnings
 from orbitmass.model.data import Target
 from orbitmass.model.parameters import priors_used
-from orbitmass.results import COLUMN_DOC, Results, derive_samples, quantile_block
+from orbitmass.results import COLUMN_DOC, Results, derive_samples, prior_dominated, quantile_block
 
 __all__ = ["Fit", "load"]
 
@@ -148,9 +149,11 @@ class Fit:
                     diag["thin"] = lin["diagnostics"]["thin_3d"]
                 info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
                         "n_evaluations": run.n_evaluations, "sampler": "linear"}
+                summary["fit_quality"], info["residuals"] = _quality(space, theta, lp, seed)
                 self.results_ = Results(target=target, space=space, samples=samples, theta=theta,
                                         chain=run.chain, log_prob=run.log_prob, burn=run.burn, thin=run.thin,
                                         summary=summary, info=info)
+                issue_warnings(summary)
                 return self
         ckpt_path = Path(self.checkpoint) if self.checkpoint is not None else None
         backend = None
@@ -196,8 +199,10 @@ class Fit:
         summary = self._summary(target, space, samples, run, init, seed, wall)
         info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
                 "n_evaluations": run.n_evaluations}
+        summary["fit_quality"], info["residuals"] = _quality(space, theta, lp, seed)
         self.results_ = Results(target=target, space=space, samples=samples, theta=theta, chain=run.chain,
                                 log_prob=run.log_prob, burn=run.burn, thin=run.thin, summary=summary, info=info)
+        issue_warnings(summary)
         return self
 
     def _fit_linear(self, space, rng, options, stop_flag):
@@ -233,6 +238,8 @@ class Fit:
             prefix = comp.name + "."
             companions[comp.name] = {col[len(prefix):]: quantile_block(samples[col].to_numpy())
                                      for col in samples.columns if col.startswith(prefix)}
+        for name, flags in prior_dominated(space).items():  # velocity-only companions (issue 11, item 6)
+            companions[name].update(flags)
         instruments = {}
         for name in space.instrument_names:
             instruments[name] = {"offset_kms": quantile_block(samples[f"offset_kms.{name}"].to_numpy()),
@@ -352,6 +359,12 @@ class Fit:
         from orbitmass.io.rundir import save_run
 
         return save_run(self.results, Path(out_dir), overwrite=overwrite)
+
+
+def _quality(space, theta, log_post, seed):
+    """Goodness of fit (``fit_quality``) and the residual table as JSON-ready columns."""
+    fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]))
+    return fq, residuals.to_dict(orient="list")
 
 
 def load(run_dir: str | Path) -> Fit:
