@@ -362,8 +362,18 @@ class Fit:
 
 
 def _quality(space, theta, log_post, seed):
-    """Goodness of fit (``fit_quality``) and the residual table as JSON-ready columns."""
-    fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]))
+    """Goodness of fit (``fit_quality``) and the residual table as JSON-ready columns.
+
+    A failure here must not lose a finished sampling run: it is logged and the block says
+    "poor" with the reason, so the fit is not presented as a good one.
+    """
+    try:
+        fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]))
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError, KeyError, IndexError) as exc:
+        log.exception("goodness of fit could not be computed")
+        reason = f"goodness of fit could not be computed ({type(exc).__name__}: {exc})"
+        return {"chi2": None, "dof": None, "reduced_chi2": None, "p_value": None, "status": "poor",
+                "datasets": {}, "reasons": [reason], "likely_causes": []}, {}
     return fq, residuals.to_dict(orient="list")
 
 

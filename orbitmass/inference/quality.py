@@ -25,13 +25,13 @@ exactly as the likelihood does.
 Where the statistics are computed
 ---------------------------------
 At the maximum-posterior point: the retained sample of highest log posterior,
-polished by a short Nelder-Mead run on the log posterior (kept only when it is
-higher). Over posterior draws: the chi-square of each draw, and a posterior
-predictive check (Gelman, Meng & Stern 1996, Statistica Sinica 6, 733) with the
-chi-square as discrepancy: for draw s, replicated Gaussian data give a
-chi-square distributed as chi2(n) exactly (n values, whitened), so the check is
-the fraction of draws with chi2_rep(s) >= chi2_obs(s), drawn without simulating
-data.
+polished by a short Levenberg-Marquardt minimisation of the chi-square (kept
+only when its log posterior is higher, see :func:`best_point`). Over posterior
+draws: the chi-square of each draw, and a posterior predictive check (Gelman,
+Meng & Stern 1996, Statistica Sinica 6, 733) with the chi-square as
+discrepancy: for draw s, replicated Gaussian data give a chi-square distributed
+as chi2(n) exactly (n values, whitened), so the check is the fraction of draws
+with chi2_rep(s) >= chi2_obs(s), drawn without simulating data.
 
 Degrees of freedom (convention)
 -------------------------------
@@ -253,71 +253,21 @@ class _Values:
 
 
 # ------------------------------------------------------------- best point
-def best_point(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDArray[np.float64], *,
-               polish: bool = True, max_evaluations: int | None = None) -> tuple[NDArray[np.float64], dict]:
-    """The maximum-posterior point: the best retained sample, polished by Nelder-Mead.
+def _model_columns(space: ParameterSpace) -> list[int]:
+    """Sampled variables that can move model values (every one but the jitters)."""
+    return [k for k, name in enumerate(space.names) if name.split(".")[0] not in ("jitter", "ln_jitter")]
 
-    Parameters
-    ----------
-    space : ParameterSpace
-    theta : ndarray, shape (n_samples, n_dim)
-        Retained samples in the sampled variables.
-    log_post : ndarray, shape (n_samples,)
-        Their log posterior.
-    polish : bool
-        Run a short Nelder-Mead maximisation of the log posterior from the
-        best sample (initial simplex: half the posterior standard deviations);
-        its result is kept only when its log posterior is higher.
-    max_evaluations : int, optional
-        Budget of the polish (default ``200 * n_dim + 400``).
 
-    Returns
-    -------
-    theta_best : ndarray, shape (n_dim,)
-    info : dict
-        ``how`` ("best sample" or "polished"), ``log_posterior``,
-        ``log_posterior_best_sample``, ``n_evaluations``.
+def _steps(theta0, scale):
+    return np.where(scale > 0, 1e-4 * scale, 1e-6 * (1.0 + np.abs(theta0)))
+
+
+def _jacobian(vals: _Values, theta0, sigma0, cols, h) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Whitened residuals at ``theta0`` (n,) and their Jacobian (n, len(cols)), sigma held at ``sigma0``.
+
+    Central differences in one vectorised model call; one-sided where a step leaves the
+    model's domain (e.g. e >= 1), zero where both do.
     """
-    theta = np.atleast_2d(np.asarray(theta, float))
-    log_post = np.asarray(log_post, float)
-    post = LogPosterior(space)
-    i = int(np.nanargmax(np.where(np.isfinite(log_post), log_post, -np.inf)))
-    x0 = theta[i].copy()
-    lp0 = float(post(x0[None, :])[0])
-    info = {"how": "best sample", "log_posterior": lp0, "log_posterior_best_sample": lp0, "n_evaluations": 0}
-    if not polish or space.ndim == 0 or not np.isfinite(lp0):
-        return x0, info
-    sd = theta.std(axis=0) if theta.shape[0] > 1 else np.zeros(space.ndim)
-    step = np.where(sd > 0, 0.5 * sd, 1e-4 * (1.0 + np.abs(x0)))
-    simplex = np.vstack([x0, x0 + np.diag(step)])
-
-    def neg(x):
-        v = float(post(np.asarray(x)[None, :])[0])
-        return -v if np.isfinite(v) else 1e300
-
-    budget = max_evaluations or 200 * space.ndim + 400
-    res = optimize.minimize(neg, x0, method="Nelder-Mead",
-                            options={"initial_simplex": simplex, "maxfev": budget, "xatol": 1e-8,
-                                     "fatol": 1e-5, "adaptive": space.ndim > 4})
-    info["n_evaluations"] = int(res.nfev)
-    if np.isfinite(res.fun) and -res.fun > lp0:
-        x = space.wrap_angles(np.asarray(res.x)[None, :])[0]
-        lp = float(post(x[None, :])[0])
-        if lp > lp0:
-            info.update(how="polished", log_posterior=lp)
-            return x, info
-    return x0, info
-
-
-# --------------------------------------------------------------- statistics
-def _dof_shares(vals: _Values, theta0: NDArray[np.float64], sigma0: NDArray[np.float64],
-                scale: NDArray[np.float64]) -> tuple[int, NDArray[np.float64], list[str]]:
-    """Rank of the whitened Jacobian, per-value leverages, and the constrained variables."""
-    space = vals.space
-    cols = [k for k, name in enumerate(space.names) if name.split(".")[0] not in ("jitter", "ln_jitter")]
-    if not cols or vals.n == 0:
-        return 0, np.zeros(vals.n), []
-    h = np.where(scale > 0, 1e-4 * scale, 1e-6 * (1.0 + np.abs(theta0)))
     block = [theta0]
     for k in cols:
         for sgn in (1.0, -1.0):
@@ -337,6 +287,94 @@ def _dof_shares(vals: _Values, theta0: NDArray[np.float64], sigma0: NDArray[np.f
             J[:, j] = (plus - base) / h[k]
         elif np.all(np.isfinite(minus)):
             J[:, j] = (base - minus) / h[k]
+    return base, J
+
+
+def best_point(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDArray[np.float64], *,
+               polish: bool = True, max_iterations: int = 60) -> tuple[NDArray[np.float64], dict]:
+    """The maximum-posterior point: the best retained sample, polished by least squares.
+
+    Parameters
+    ----------
+    space : ParameterSpace
+    theta : ndarray, shape (n_samples, n_dim)
+        Retained samples in the sampled variables.
+    log_post : ndarray, shape (n_samples,)
+        Their log posterior.
+    polish : bool
+        From the best sample, minimise the chi-square (jitters held) with
+        Levenberg-Marquardt (``scipy.optimize.least_squares``) on the whitened
+        residuals, the Jacobian by vectorised central differences. The result
+        is kept only when its log posterior is higher than the best sample's,
+        so the point stays the highest-posterior one found.
+    max_iterations : int
+        Jacobian evaluations allowed to the polish.
+
+    Returns
+    -------
+    theta_best : ndarray, shape (n_dim,)
+    info : dict
+        ``how`` ("best sample" or "polished"), ``log_posterior``,
+        ``log_posterior_best_sample``, ``n_evaluations`` (parameter sets).
+    """
+    theta = np.atleast_2d(np.asarray(theta, float))
+    log_post = np.asarray(log_post, float)
+    vals = _Values(space)
+    post = vals.post
+    i = int(np.argmax(np.where(np.isfinite(log_post), log_post, -np.inf)))
+    x0 = theta[i].copy()
+    lp0 = float(post(x0[None, :])[0])
+    info = {"how": "best sample", "log_posterior": lp0, "log_posterior_best_sample": lp0, "n_evaluations": 0}
+    cols = _model_columns(space)
+    if not polish or not cols or vals.n == 0 or not np.isfinite(lp0):
+        return x0, info
+    scale = theta.std(axis=0) if theta.shape[0] > 1 else np.zeros(space.ndim)
+    h = _steps(x0, scale)
+    _, sigma0 = vals.model(x0[None, :])
+    sigma0 = sigma0[0]
+    count = [0]
+
+    def full(y):
+        x = x0.copy()
+        x[cols] = y
+        return x
+
+    def resid(y):
+        count[0] += 1
+        with np.errstate(all="ignore"):
+            m, _ = vals.model(full(y)[None, :])
+        w = vals.whiten(vals.residuals(m), sigma0[None, :])[0]
+        return np.where(np.isfinite(w), w, 1e8)
+
+    def jac(y):
+        count[0] += 2 * len(cols) + 1
+        return _jacobian(vals, full(y), sigma0, cols, h)[1]
+
+    method = "lm" if vals.n >= len(cols) else "trf"
+    try:
+        res = optimize.least_squares(resid, x0[cols], jac=jac, method=method, x_scale="jac",
+                                     max_nfev=max_iterations * (1 if method == "trf" else len(cols) + 1))
+        x = space.wrap_angles(full(res.x)[None, :])[0]
+        lp = float(post(x[None, :])[0])
+    except (ValueError, np.linalg.LinAlgError) as exc:  # a degenerate start: keep the sample
+        log.info("least-squares polish of the best sample failed (%s)", exc)
+        lp = -np.inf
+    info["n_evaluations"] = int(count[0])
+    if np.isfinite(lp) and lp > lp0:
+        info.update(how="polished", log_posterior=lp)
+        return x, info
+    return x0, info
+
+
+# --------------------------------------------------------------- statistics
+def _dof_shares(vals: _Values, theta0: NDArray[np.float64], sigma0: NDArray[np.float64],
+                scale: NDArray[np.float64]) -> tuple[int, NDArray[np.float64], list[str]]:
+    """Rank of the whitened Jacobian, per-value leverages, and the variables that move the model."""
+    space = vals.space
+    cols = _model_columns(space)
+    if not cols or vals.n == 0:
+        return 0, np.zeros(vals.n), []
+    _, J = _jacobian(vals, theta0, sigma0, cols, _steps(theta0, scale))
     norms = np.linalg.norm(J, axis=0)
     live = norms > 0
     if not live.any():
@@ -510,9 +548,11 @@ def assess_fit(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDAr
         The ``fit_quality`` block of ``summary.json`` (output contract,
         "Goodness of fit"): ``chi2``, ``dof``, ``reduced_chi2``, ``p_value``,
         ``status``, ``datasets`` (same numbers per dataset), and
-        ``reasons``, ``likely_causes``, ``n_values``, ``n_parameters``,
-        ``constrained_parameters``, ``point``, ``posterior``, ``thresholds``,
-        ``dof_convention``.
+        ``reasons``, ``likely_causes``, ``n_values``, ``n_parameters`` (p of
+        the dof convention), ``model_parameters`` (sampled variables that move
+        some model value, plus sampled jitters), ``n_degenerate_directions``
+        (how many of their combinations the data leave undetermined),
+        ``point``, ``posterior``, ``thresholds``, ``dof_convention``.
     residuals : DataFrame
         One row per measured value: ``companion``, ``kind``, ``epoch_jyear``,
         ``instrument``, ``observed``, ``model``, ``sigma``, ``normalised``,
@@ -646,7 +686,8 @@ def assess_fit(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDAr
         "n_values": int(vals.n),
         "n_rows": int(vals.n_rows),
         "n_parameters": int(p_total),
-        "constrained_parameters": constrained,
+        "model_parameters": constrained,
+        "n_degenerate_directions": int(len(constrained) - p_total),
         "point": {**point, "theta": {n: float(v) for n, v in zip(space.names, x0)}},
         "posterior": posterior_block(obs_total, rep_total),
         "thresholds": {"p_value": P_THRESHOLD, "row_sigma": ROW_SIGMA},
