@@ -356,3 +356,23 @@ def test_issue_warnings_names_parameters_and_datasets():
         summary["diagnostics"].update(converged=True, period_modes={})
         summary["fit_quality"]["status"] = "ok"
         issue_warnings(summary)  # nothing to say: no warning (would raise here)
+
+
+def test_one_row_beyond_5_sigma_is_poor_and_named(tmp_path, rng):
+    # issue 11 item 4: a row beyond 5 sigma makes the fit "poor"; 5 sigma = two-sided Gaussian
+    # tail 5.7e-7 (scipy.stats.norm); here one east offset is moved by 8 sigma
+    path, _ = write_target(tmp_path, rng)
+    target = read_target(path)
+    comp = target.companions[0]
+    east = comp.astrometry.value1.copy()
+    east[7] += 8 * 0.5
+    tgt = dataclasses.replace(target, companions=(dataclasses.replace(
+        comp, astrometry=dataclasses.replace(comp.astrometry, value1=east)),))
+    space = ParameterSpace(tgt)
+    fq, table = assess_fit(space, truth_theta(space), np.zeros(1), polish=False)
+    d = fq["datasets"]["B.positions"]
+    assert d["n_rows_beyond_5_sigma"] == 1
+    assert d["status"] == "poor" and fq["status"] == "poor"
+    assert d["likely_causes"] == ["outlier"]
+    assert any("beyond 5 sigma" in r for r in fq["reasons"])
+    assert table.normalised.abs().max() > 7.0

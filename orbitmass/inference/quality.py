@@ -473,6 +473,17 @@ def _diagnose(space, vals, phys, d, info, z, resid, sigma, row_chi2) -> list[dic
     def add(code, text):
         causes.append({"code": code, "dataset": ds["key"], "message": f"{label}: {text}"})
 
+    far = rows[stats.chi2.sf(row_chi2[rows], vals.row_dof[rows]) < _ROW_P]
+    if upper and far.size:
+        rest = info["chi2"] - float(row_chi2[far].sum())
+        rest_dof = info["dof"] - float(vals.row_dof[far].sum())
+        if rest_dof > 0 and stats.chi2.sf(rest, rest_dof) >= P_THRESHOLD:
+            k = np.nonzero(vals.row == far[np.argmax(row_chi2[far])])[0][0]
+            where = f"line {vals.line[k]}, " if vals.line[k] > 0 else ""
+            add("outlier", f"{far.size} row(s) beyond {ROW_SIGMA:g} sigma (worst: {where}epoch {vals.epoch[k]:.3f}); "
+                "without them the rest fits: outliers, typing errors or wrong epochs")
+            return causes
+
     if upper and ds["kind"] == "velocities" and const_share > 0.5:
         add("velocity_zero_point",
             f"the residuals share a constant offset of {const_kms:+.3g} km/s (it accounts for "
