@@ -276,7 +276,7 @@ def _jacobian(vals: _Values, theta0, sigma0, cols, h) -> tuple[NDArray[np.float6
             block.append(x)
     with np.errstate(all="ignore"):
         model, _ = vals.model(np.asarray(block))
-    w = vals.whiten(vals.residuals(model), sigma0[None, :])
+        w = vals.whiten(vals.residuals(model), sigma0[None, :])
     base = w[0]
     J = np.zeros((vals.n, len(cols)))
     for j, k in enumerate(cols):
@@ -343,7 +343,7 @@ def best_point(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDAr
         count[0] += 1
         with np.errstate(all="ignore"):
             m, _ = vals.model(full(y)[None, :])
-        w = vals.whiten(vals.residuals(m), sigma0[None, :])[0]
+            w = vals.whiten(vals.residuals(m), sigma0[None, :])[0]
         return np.where(np.isfinite(w), w, 1e8)
 
     def jac(y):
@@ -352,10 +352,11 @@ def best_point(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDAr
 
     method = "lm" if vals.n >= len(cols) else "trf"
     try:
-        res = optimize.least_squares(resid, x0[cols], jac=jac, method=method, x_scale="jac",
-                                     max_nfev=max_iterations * (1 if method == "trf" else len(cols) + 1))
-        x = space.wrap_angles(full(res.x)[None, :])[0]
-        lp = float(post(x[None, :])[0])
+        with np.errstate(all="ignore"):
+            res = optimize.least_squares(resid, x0[cols], jac=jac, method=method, x_scale="jac",
+                                         max_nfev=max_iterations * (1 if method == "trf" else len(cols) + 1))
+            x = space.wrap_angles(full(res.x)[None, :])[0]
+            lp = float(post(x[None, :])[0])
     except (ValueError, np.linalg.LinAlgError) as exc:  # a degenerate start: keep the sample
         log.info("least-squares polish of the best sample failed (%s)", exc)
         lp = -np.inf
@@ -569,6 +570,13 @@ def assess_fit(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDAr
         ``instrument``, ``observed``, ``model``, ``sigma``, ``normalised``,
         ``unit``, ``line``, ``dataset``.
     """
+    # floating-point noise of far-off trial points (polish, posterior draws) is not the user's
+    # concern; every number returned is checked or reported as it is
+    with np.errstate(all="ignore"):
+        return _assess(space, theta, log_post, rng=rng, n_draws=n_draws, polish=polish)
+
+
+def _assess(space, theta, log_post, *, rng, n_draws, polish):
     rng = np.random.default_rng(0) if rng is None else rng
     theta = np.atleast_2d(np.asarray(theta, float))
     vals = _Values(space)
@@ -602,7 +610,7 @@ def assess_fit(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDAr
     idx = rng.choice(theta.shape[0], size=min(n_draws, theta.shape[0]), replace=False)
     with np.errstate(all="ignore"):
         m_draw, s_draw = vals.model(theta[idx])
-    w_draw = vals.whiten(vals.residuals(m_draw), s_draw)
+        w_draw = vals.whiten(vals.residuals(m_draw), s_draw)
     chi2_draw = np.stack([np.sum(w_draw[:, vals.dataset == d] ** 2, axis=1) for d in range(n_d)], axis=1) \
         if n_d else np.zeros((idx.size, 0))
     n_per = np.bincount(vals.dataset, minlength=n_d)
