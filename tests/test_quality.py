@@ -271,6 +271,11 @@ def test_summary_json_and_residuals_csv(tmp_path, rng):
                                      "normalised"]
     assert len(res) == 80
     assert np.allclose(res.normalised, (res.observed - res.model) / res.sigma)  # no angle rows here
+    # a loaded run keeps them (posterior.h5), so saving it again writes the same residuals.csv
+    from orbitmass import load
+
+    again = save_run(load(out).results, tmp_path / "again", products=False)
+    assert pd.read_csv(again / "residuals.csv").equals(res)
 
 
 # ------------------------------------------------------------ velocity only
