@@ -712,13 +712,7 @@ def _assess(space, theta, log_post, *, rng, n_draws, polish):
         "thresholds": {"p_value": P_THRESHOLD, "row_sigma": ROW_SIGMA},
         "dof_convention": _DOF_CONVENTION,
     }
-    table = pd.DataFrame({
-        "companion": vals.companion.astype(str), "kind": vals.kind.astype(str), "epoch_jyear": vals.epoch,
-        "instrument": vals.instrument.astype(str), "observed": vals.obs, "model": model0, "sigma": sigma0,
-        "normalised": z, "unit": vals.unit.astype(str), "line": vals.line,
-        "dataset": [vals.datasets[d]["key"] for d in vals.dataset],
-    })
-    return fq, table
+    return fq, _table(vals, model0, sigma0)
 
 
 def fit_quality(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDArray[np.float64], *,
@@ -734,11 +728,16 @@ def residuals_table(space: ParameterSpace, theta_point: NDArray[np.float64]) -> 
     """
     vals = _Values(space)
     model, sigma = vals.model(np.asarray(theta_point, float)[None, :])
-    resid = vals.residuals(model)[0]
+    return _table(vals, model[0], sigma[0])
+
+
+def _table(vals: _Values, model: NDArray[np.float64], sigma: NDArray[np.float64]) -> pd.DataFrame:
+    """The residual table of one point (``model``, ``sigma`` of shape (n,))."""
+    resid = vals.residuals(model[None, :])[0]
     return pd.DataFrame({
         "companion": vals.companion.astype(str), "kind": vals.kind.astype(str), "epoch_jyear": vals.epoch,
-        "instrument": vals.instrument.astype(str), "observed": vals.obs, "model": model[0], "sigma": sigma[0],
-        "normalised": resid / sigma[0], "unit": vals.unit.astype(str), "line": vals.line,
+        "instrument": vals.instrument.astype(str), "observed": vals.obs, "model": model, "sigma": sigma,
+        "normalised": resid / sigma, "unit": vals.unit.astype(str), "line": vals.line,
         "dataset": [vals.datasets[d]["key"] for d in vals.dataset],
     })
 
