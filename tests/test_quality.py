@@ -108,13 +108,15 @@ def test_chi2_at_truth_is_the_drawn_noise_and_dof_counts_constrained_parameters(
     assert fq["datasets"]["B.velocities.default"]["chi2"] == pytest.approx(expected_rv, abs=0.05)
     assert fq["chi2"] == pytest.approx(expected_pos + expected_rv, abs=0.1)
     # parameters the data constrain: P, e, omega, Omega, i, M0, mass and (with velocities) the
-    # distance = 8 (orbital parallax; common practice, no source)
-    assert fq["n_parameters"] == 8
-    assert fq["dof"] == 60 + 20 - 8
+    # distance = 8 (orbital parallax; common practice, no source), and the systemic velocity
+    # when it is sampled
+    p = 8 + ("systemic" in space.index)
+    assert fq["n_parameters"] == p
+    assert fq["dof"] == 60 + 20 - p
     assert fq["dof"] == pytest.approx(sum(d["dof"] for d in fq["datasets"].values()), abs=1e-9)
     # p-value and reduced chi-square as scipy.stats defines them
-    assert fq["p_value"] == pytest.approx(stats.chi2.sf(fq["chi2"], 72), rel=1e-12)
-    assert fq["reduced_chi2"] == pytest.approx(fq["chi2"] / 72)
+    assert fq["p_value"] == pytest.approx(stats.chi2.sf(fq["chi2"], 80 - p), rel=1e-12)
+    assert fq["reduced_chi2"] == pytest.approx(fq["chi2"] / (80 - p))
     for d in fq["datasets"].values():
         assert d["p_value"] == pytest.approx(stats.chi2.sf(d["chi2"], d["dof"]), rel=1e-12)
     assert CONTRACT_KEYS <= set(fq) and all(CONTRACT_KEYS - {"datasets"} <= set(d) for d in fq["datasets"].values())
@@ -181,7 +183,7 @@ def test_reduced_chi2_near_one_over_noise_realisations(tmp_path, rng):
         assert fq["point"]["how"] == "polished"
         chi2s.append(fq["chi2"])
         pvals.append(fq["p_value"])
-    dof = 40 - 8
+    dof = 40 - 8 - ("systemic" in space.index)
     assert fq["dof"] == dof
     # mean of 100 chi2(32) draws: sd sqrt(2 * 32 / 100) = 0.8; allow 3.5 sd
     assert np.mean(chi2s) == pytest.approx(dof, abs=3.5 * math.sqrt(2 * dof / 100))
@@ -330,8 +332,9 @@ def test_velocity_only_fit_flags_prior_dominated_quantities(tmp_path, rng):
     assert comp["mass_function_msun"]["median"] == pytest.approx(comp["m_sin3i_msun"]["median"], rel=1e-9)
     fq = fit.summary["fit_quality"]
     assert fq["status"] == "ok"
-    # velocities fix P, e, omega, M0, K (and nothing of the node or the distance): 5 parameters
-    assert fq["n_parameters"] == 5
+    # velocities fix P, e, omega, M0, K (and nothing of the node or the distance): 5 parameters,
+    # and the systemic velocity when it is sampled
+    assert fq["n_parameters"] == 5 + ("systemic" in fit.results.space.index)
 
 
 # ------------------------------------------------------------------ warnings
