@@ -384,3 +384,43 @@ def test_one_row_beyond_5_sigma_is_poor_and_named(tmp_path, rng):
     assert d["likely_causes"] == ["outlier"]
     assert any("beyond 5 sigma" in r for r in fq["reasons"])
     assert table.normalised.abs().max() > 7.0
+
+
+def test_unmodelled_relativistic_redshift_is_named(tmp_path):
+    # A star on an e = 0.88, 16-yr orbit about 4e6 M_sun (invented), velocities carrying the
+    # first-order gravitational redshift and transverse Doppler shift (GM/r + v^2/2)/c (common
+    # practice, no source; ~190 km/s at periastron here) that the Keplerian model lacks.
+    from orbitmass.core.kepler import mean_to_true
+    from orbitmass.units import C_KMS, KMS_PER_AU_PER_YR
+
+    star = TrueOrbit(mass_msun=4e6, distance_pc=8000.0, period_yr=16.0, eccentricity=0.88, inclination_deg=134.0,
+                     arg_periastron_deg=66.0, ascending_node_deg=228.0, periastron_time=2018.4)
+    rng = np.random.default_rng(4)
+    tp = np.sort(np.r_[rng.uniform(2003, 2022, 40), rng.uniform(2017.9, 2018.9, 20)])
+    s = simulate(star, tp)
+    write_positions_csv(tmp_path / "pos.csv", tp, s["east_mas"] + rng.normal(0, 0.5, tp.size),
+                        s["north_mas"] + rng.normal(0, 0.5, tp.size), 0.5)
+    tv = np.sort(np.r_[rng.uniform(2003, 2022, 25), rng.uniform(2017.9, 2018.9, 25)])
+    nu = mean_to_true(2 * math.pi * (tv - star.periastron_time) / star.period_yr, star.eccentricity)
+    a, e = star.semimajor_axis_au, star.eccentricity
+    r = a * (1 - e * e) / (1 + e * np.cos(nu))
+    gm = GM_SUN_AU3_PER_YR2 * star.mass_msun * KMS_PER_AU_PER_YR**2  # au (km/s)^2
+    shift = (gm / r + 0.5 * gm * (2 / r - 1 / a)) / C_KMS
+    assert 150 < shift.max() < 250
+    write_velocities_csv(tmp_path / "rv.csv", tv, simulate(star, tv)["rv_companion_kms"] + shift
+                         + rng.normal(0, 10, tv.size), 10.0)
+    (tmp_path / "target.toml").write_text(
+        '[target]\nname = "invented nucleus"\n[central]\nmass = { dist = "log-uniform", low = "1e5 solMass", '
+        'high = "1e8 solMass" }\n[distance]\nprior = { dist = "uniform", low = "4 kpc", high = "12 kpc" }\n'
+        '[[companion]]\nname = "S"\nastrometry = "pos.csv"\nvelocities = "rv.csv"\n')
+    space = ParameterSpace(read_target(tmp_path / "target.toml"))
+    values = {"mass_msun": star.mass_msun, "distance_pc": star.distance_pc, "S.period_yr": star.period_yr,
+              "S.ecc": e, "S.omega": math.radians(star.arg_periastron_deg),
+              "S.cos_i": math.cos(math.radians(star.inclination_deg)), "S.node": math.radians(star.ascending_node_deg),
+              "S.m0": 2 * math.pi * (space.t_ref - star.periastron_time) / star.period_yr}
+    space.set_centres(space.pack(values))
+    fq, _ = assess_fit(space, space.pack(values), np.zeros(1))  # polished from the truth: the best Keplerian
+    assert fq["point"]["how"] == "polished"
+    rv = fq["datasets"]["S.velocities.default"]
+    assert rv["status"] == "poor"
+    assert rv["likely_causes"][0] == "relativistic"

@@ -498,6 +498,12 @@ def _diagnose(space, vals, phys, d, info, z, resid, sigma, row_chi2) -> list[dic
             f"the scatter between neighbouring epochs is {noise_scale:.3g} times the quoted errors "
             f"(reduced chi-square {info['reduced_chi2']:.3g}): the errors look too small by ~{noise_scale:.3g}"
             f"{hint}; check the unit of the error column")
+    if upper:  # a periastron signal the model lacks: before the generic "structured" reading
+        rel = _relativistic_scale(space, phys, vals, d, ds["companion"])
+        scatter = max(noise_scale, 1.0) if np.isfinite(noise_scale) else 1.0
+        if rel is not None and rel[0] > scatter:
+            add("relativistic", f"first-order relativistic terms reach {rel[1]}, {rel[0]:.3g} times the median "
+                "error, and the model has none: add the relativistic terms")
     if upper and structure > STRUCTURE_Z and not (causes and causes[0]["code"] == "velocity_zero_point"
                                                    and const_share > 0.9):
         add("missing_companion",
@@ -511,20 +517,16 @@ def _diagnose(space, vals, phys, d, info, z, resid, sigma, row_chi2) -> list[dic
         where = f"line {vals.line[k]}" if vals.line[k] > 0 else f"epoch {vals.epoch[k]:.3f}"
         add("outlier", f"one row ({where}, epoch {vals.epoch[k]:.3f}) carries {100 * top:.0f} % of the "
             "chi-square: an outlier, a typing error or a wrong epoch")
-    if upper and not causes and ds["kind"] == "velocities" and space.jitter_idx.get(ds["instrument"]) is None:
+    white_excess = np.isfinite(noise_scale) and noise_scale >= 1.5 and structure <= STRUCTURE_Z
+    if upper and not causes and white_excess and ds["kind"] == "velocities" \
+            and space.jitter_idx.get(ds["instrument"]) is None:
         add("jitter", f"white residuals {noise_scale:.3g} times the errors: extra velocity scatter "
             f"(stellar jitter or an instrument floor of ~{np.median(sigma[sel]) * math.sqrt(max(local - 1, 0)):.3g}"
             f" km/s); give instrument {ds['instrument']} a jitter prior")
-    if upper and not any(c["code"] == "error_units" for c in causes) and not (
+    if upper and white_excess and not any(c["code"] == "error_units" for c in causes) and not (
             causes and causes[0]["code"] in ("velocity_zero_point", "missing_companion", "outlier")):
         add("error_units", f"white residuals {noise_scale:.3g} times the errors: the errors look underestimated "
             "(or an error column is in a smaller unit than stated)")
-    if upper:
-        rel = _relativistic_scale(space, phys, vals, d, ds["companion"])
-        scatter = max(noise_scale, 1.0) if np.isfinite(noise_scale) else 1.0
-        if rel is not None and rel[0] > scatter:
-            add("relativistic", f"first-order relativistic terms reach {rel[1]}, {rel[0]:.3g} times the median "
-                "error, and the model has none: add the relativistic terms")
     if lower:
         factor = 1.0 / math.sqrt(max(info["reduced_chi2"], 1e-300))
         add("error_units", f"reduced chi-square {info['reduced_chi2']:.3g} is far below 1: the errors look "
