@@ -22,7 +22,6 @@ import pandas as pd
 from orbitmass._version import software_versions
 from orbitmass.core.cosmology import redshift_distance_pc
 from orbitmass.exceptions import InputError, NotFittedError
-from orbitmass.inference.quality import assess_fit, issue_warnings
 from orbitmass.model.data import Target
 from orbitmass.model.parameters import priors_used
 from orbitmass.results import COLUMN_DOC, Results, derive_samples, prior_dominated, quantile_block
@@ -108,6 +107,7 @@ class Fit:
             On malformed input (nothing is sampled).
         """
         from orbitmass.inference.initialise import initialise_walkers
+        from orbitmass.inference.quality import issue_warnings
         from orbitmass.inference.sampler import SamplerOptions, run_sampler
         from orbitmass.model.likelihood import LogPosterior
         from orbitmass.model.parameters import ParameterSpace
@@ -367,6 +367,8 @@ def _quality(space, theta, log_post, seed):
     A failure here must not lose a finished sampling run: it is logged and the block says
     "poor" with the reason, so the fit is not presented as a good one.
     """
+    from orbitmass.inference.quality import assess_fit
+
     try:
         fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]))
     except (ValueError, FloatingPointError, np.linalg.LinAlgError, KeyError, IndexError) as exc:
