@@ -196,6 +196,10 @@ def test_tiny_fit_of_a_correct_model_is_ok(tmp_path, rng):
     fq = fit.summary["fit_quality"]
     assert fq["status"] == "ok", fq["reasons"]
     assert not any(issubclass(w.category, PoorFitWarning) for w in caught)
+    # 300 steps do not converge: Fit.fit says so, naming parameters, separately from the fit quality
+    conv = [str(w.message) for w in caught if issubclass(w.category, ConvergenceWarning)]
+    assert not fit.summary["diagnostics"]["converged"]
+    assert len(conv) == 1 and "ln_mass" in conv[0] and "(needs" in conv[0]
     band = fq["datasets"]["B.positions"]["band_reduced_chi2"]
     assert band[0] < fq["datasets"]["B.positions"]["reduced_chi2"] < band[1]
     assert 0.5 < fq["reduced_chi2"] < 1.6
