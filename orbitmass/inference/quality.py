@@ -825,6 +825,8 @@ def issue_warnings(summary: dict) -> None:
       only the priors determine (``prior_dominated``);
     * :class:`~orbitmass.exceptions.PoorFitWarning` when ``fit_quality.status``
       is ``"poor"``, naming the datasets and the likely causes.
+
+    Warnings point at the caller of the caller (``Fit.fit``'s caller).
     """
     diag = summary.get("diagnostics", {})
     if diag and not diag.get("converged", True):
@@ -838,24 +840,24 @@ def issue_warnings(summary: dict) -> None:
         detail = "; ".join(failures[:6]) + (f"; and {len(failures) - 6} more" if len(failures) > 6 else "")
         warnings.warn(f"sampling {why} after {diag.get('n_steps')} steps: "
                       f"{detail or 'effective sample size below 400'}; do not quote these intervals",
-                      ConvergenceWarning, stacklevel=2)
+                      ConvergenceWarning, stacklevel=3)
     for comp, modes in (diag.get("period_modes") or {}).items():
         if modes > 1:
             warnings.warn(f"{comp}.period: the walkers sit in {modes} separated period modes; the data do not "
-                          "single out one orbit", DegeneracyWarning, stacklevel=2)
+                          "single out one orbit", DegeneracyWarning, stacklevel=3)
     for comp in diag.get("omega_node_ambiguous") or []:
         warnings.warn(f"{comp}: without velocities (omega, Omega) and (omega + 180 deg, Omega + 180 deg) fit "
-                      "equally; the node is reported on a half turn", DegeneracyWarning, stacklevel=2)
+                      "equally; the node is reported on a half turn", DegeneracyWarning, stacklevel=3)
     for comp, block in (summary.get("companions") or {}).items():
         dominated = block.get("prior_dominated") if isinstance(block, dict) else None
         if dominated:
             warnings.warn(f"{comp}: velocities only; {', '.join(dominated)} follow the priors, not the data "
                           "(the data give M sin^3 i, a sin i and the mass function)", DegeneracyWarning,
-                          stacklevel=2)
+                          stacklevel=3)
     fq = summary.get("fit_quality")
     if fq and fq.get("status") == "poor":
         poor = [d["label"] for d in fq.get("datasets", {}).values() if d.get("status") == "poor"] or ["all data"]
         causes = "; ".join(c["message"] for c in fq.get("likely_causes", [])[:3])
         warnings.warn(f"poor fit in {', '.join(poor)} (chi-square {_fmt(fq['chi2'], '.4g')} for "
                       f"{_fmt(fq['dof'], '.0f')} dof, p = {_fmt_p(fq['p_value'])}). Likely: {causes}",
-                      PoorFitWarning, stacklevel=2)
+                      PoorFitWarning, stacklevel=3)
