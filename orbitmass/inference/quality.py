@@ -770,10 +770,13 @@ def quality_markdown(fq: dict) -> str:
     str
     """
     lines = []
-    if fq.get("status") == "poor":
+    if fq.get("status") == "poor" and fq.get("chi2") is None:
+        lines.append("> **Goodness of fit unknown: treat this fit as unchecked.**")
+    elif fq.get("status") == "poor":
         lines.append(f"> **Poor fit: the model is implausible for these data** (chi-square {_fmt(fq['chi2'], '.4g')} "
                      f"for {_fmt(fq['dof'], '.0f')} degrees of freedom, p = {_fmt_p(fq['p_value'])}). "
                      "The numbers below are not trustworthy until this is resolved.")
+    if fq.get("status") == "poor":
         lines.append(">")
         for r in fq.get("reasons", []):
             lines.append(f"> - {r}")
@@ -789,7 +792,7 @@ def quality_markdown(fq: dict) -> str:
         lines.append(f"| {d['label']} | {d['n_values']} | {_fmt(d['dof'], '.1f')} | {_fmt(d['chi2'], '.4g')} | "
                      f"{_fmt(d['reduced_chi2'])} | {_fmt_p(d['p_value'])} | {_fmt(d['max_abs_normalised'], '.2f')} | "
                      f"{d['status']} |")
-    lines.append(f"| all | {fq.get('n_values')} | {_fmt(fq['dof'], '.0f')} | {_fmt(fq['chi2'], '.4g')} | "
+    lines.append(f"| all | {_fmt(fq.get('n_values'), 'd')} | {_fmt(fq['dof'], '.0f')} | {_fmt(fq['chi2'], '.4g')} | "
                  f"{_fmt(fq['reduced_chi2'])} | {_fmt_p(fq['p_value'])} | | {fq['status']} |")
     post = fq.get("posterior", {})
     if post.get("ppc_p_value") is not None:
