@@ -15,6 +15,7 @@ __all__ = [
     "OrbitmassWarning",
     "ConvergenceWarning",
     "DegeneracyWarning",
+    "PoorFitWarning",
 ]
 
 
@@ -74,6 +75,15 @@ class ConvergenceWarning(OrbitmassWarning):
 
 class DegeneracyWarning(OrbitmassWarning):
     """The data cannot separate two solutions (e.g. the (omega, Omega) ambiguity)."""
+
+
+class PoorFitWarning(OrbitmassWarning):
+    """The model is implausible for the data (goodness of fit, ``summary.json`` ``fit_quality``).
+
+    Separate from :class:`ConvergenceWarning`: a chain can be converged on a
+    model that does not describe the data (errors in the wrong unit, a missing
+    velocity zero point or companion).
+    """
 
 
 class OrbitmassDeprecationWarning(OrbitmassWarning, DeprecationWarning):

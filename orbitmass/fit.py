@@ -24,7 +24,7 @@ from orbitmass.core.cosmology import redshift_distance_pc
 from orbitmass.exceptions import InputError, NotFittedError
 from orbitmass.model.data import Target
 from orbitmass.model.parameters import priors_used
-from orbitmass.results import COLUMN_DOC, Results, derive_samples, quantile_block
+from orbitmass.results import COLUMN_DOC, Results, derive_samples, prior_dominated, quantile_block
 
 __all__ = ["Fit", "load"]
 
@@ -107,6 +107,7 @@ class Fit:
             On malformed input (nothing is sampled).
         """
         from orbitmass.inference.initialise import initialise_walkers
+        from orbitmass.inference.quality import issue_warnings
         from orbitmass.inference.sampler import SamplerOptions, run_sampler
         from orbitmass.model.likelihood import LogPosterior
         from orbitmass.model.parameters import ParameterSpace
@@ -148,9 +149,11 @@ class Fit:
                     diag["thin"] = lin["diagnostics"]["thin_3d"]
                 info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
                         "n_evaluations": run.n_evaluations, "sampler": "linear"}
+                summary["fit_quality"], info["residuals"] = _quality(space, theta, lp, seed)
                 self.results_ = Results(target=target, space=space, samples=samples, theta=theta,
                                         chain=run.chain, log_prob=run.log_prob, burn=run.burn, thin=run.thin,
                                         summary=summary, info=info)
+                issue_warnings(summary)
                 return self
         ckpt_path = Path(self.checkpoint) if self.checkpoint is not None else None
         backend = None
@@ -196,8 +199,10 @@ class Fit:
         summary = self._summary(target, space, samples, run, init, seed, wall)
         info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
                 "n_evaluations": run.n_evaluations}
+        summary["fit_quality"], info["residuals"] = _quality(space, theta, lp, seed)
         self.results_ = Results(target=target, space=space, samples=samples, theta=theta, chain=run.chain,
                                 log_prob=run.log_prob, burn=run.burn, thin=run.thin, summary=summary, info=info)
+        issue_warnings(summary)
         return self
 
     def _fit_linear(self, space, rng, options, stop_flag):
@@ -233,6 +238,8 @@ class Fit:
             prefix = comp.name + "."
             companions[comp.name] = {col[len(prefix):]: quantile_block(samples[col].to_numpy())
                                      for col in samples.columns if col.startswith(prefix)}
+        for name, flags in prior_dominated(space).items():  # velocity-only companions (issue 11, item 6)
+            companions[name].update(flags)
         instruments = {}
         for name in space.instrument_names:
             instruments[name] = {"offset_kms": quantile_block(samples[f"offset_kms.{name}"].to_numpy()),
@@ -362,6 +369,24 @@ class Fit:
         from orbitmass.io.rundir import save_run
 
         return save_run(self.results, Path(out_dir), overwrite=overwrite)
+
+
+def _quality(space, theta, log_post, seed):
+    """Goodness of fit (``fit_quality``) and the residual table as JSON-ready columns.
+
+    A failure here must not lose a finished sampling run: it is logged and the block says
+    "poor" with the reason, so the fit is not presented as a good one.
+    """
+    from orbitmass.inference.quality import assess_fit
+
+    try:
+        fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]))
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError, KeyError, IndexError) as exc:
+        log.exception("goodness of fit could not be computed")
+        reason = f"goodness of fit could not be computed ({type(exc).__name__}: {exc})"
+        return {"chi2": None, "dof": None, "reduced_chi2": None, "p_value": None, "status": "poor",
+                "datasets": {}, "reasons": [reason], "likely_causes": []}, {}
+    return fq, residuals.to_dict(orient="list")
 
 
 def load(run_dir: str | Path) -> Fit:

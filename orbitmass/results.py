@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
-from numpy.typing import NDArray
+from numpy.typing import ArrayLike, NDArray
 
 from orbitmass.core.physics import (
     periastron_au,
@@ -26,8 +26,10 @@ from orbitmass.core.physics import (
 from orbitmass.model.data import Target
 from orbitmass.model.parameters import ParameterSpace
 from orbitmass.model.quantities import column_doc
+from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
 
-__all__ = ["Results", "QUANTILES", "quantile_block", "derive_samples", "COLUMN_DOC"]
+__all__ = ["Results", "QUANTILES", "quantile_block", "derive_samples", "COLUMN_DOC", "mass_function_msun",
+           "prior_dominated"]
 
 #: summary.json quantile keys -> probability
 QUANTILES = {"median": 0.5, "q16": 0.15865525393145707, "q84": 0.8413447460685429,
@@ -46,6 +48,80 @@ def quantile_block(x: NDArray[np.float64]) -> dict[str, float]:
         return {k: float("nan") for k in QUANTILES}
     q = np.quantile(x, list(QUANTILES.values()))
     return {k: float(v) for k, v in zip(QUANTILES, q)}
+
+
+def mass_function_msun(period_yr: ArrayLike, k_kms: ArrayLike, e: ArrayLike) -> NDArray[np.float64]:
+    """Mass function ``f = P K^3 (1 - e^2)^(3/2) / (2 pi G)`` in solar masses.
+
+    For the velocities of one body about the barycentre with semi-amplitude
+    ``K``, ``f = m_other^3 sin^3 i / M^2``; for a test particle (its
+    velocities are the relative orbit's) ``f = M sin^3 i``.
+
+    Parameters
+    ----------
+    period_yr : array_like
+        Period, Julian years.
+    k_kms : array_like
+        Semi-amplitude, km/s.
+    e : array_like
+        Eccentricity.
+
+    Examples
+    --------
+    A circular 1-yr orbit of a test particle seen edge-on about 1 M_sun
+    (K = 2 pi au/yr): f = M sin^3 i = 1.
+
+    >>> from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
+    >>> k = (2 * math.pi * GM_SUN_AU3_PER_YR2) ** (1 / 3) * KMS_PER_AU_PER_YR
+    >>> print(f"{float(mass_function_msun(1.0, k, 0.0)):.12f}")
+    1.000000000000
+    """
+    e = np.asarray(e, dtype=float)
+    k_au_per_yr = np.asarray(k_kms, dtype=float) / KMS_PER_AU_PER_YR
+    return np.asarray(period_yr, float) * k_au_per_yr**3 * (1.0 - e * e) ** 1.5 / (2.0 * math.pi * GM_SUN_AU3_PER_YR2)
+
+
+def prior_dominated(space: ParameterSpace) -> dict[str, dict]:
+    """Quantities of velocity-only companions that the data cannot measure.
+
+    Velocities alone give K, a sin i, the mass function and M sin^3 i; the
+    node never enters them and the inclination only through sin i. So for a
+    companion without astrometry: its plane's inclination and node (unless a
+    companion with positions shares the plane), and, when no companion has
+    positions and the inclination is sampled, the total mass and what scales
+    with it, follow the priors.
+
+    Returns
+    -------
+    dict
+        Companion name -> ``{"prior_dominated": [summary keys], "prior_dominated_note": sentence}``,
+        for velocity-only companions with such quantities.
+    """
+    astro = {c.name for c in space.target.companions if c.astrometry is not None and len(c.astrometry)}
+    out: dict[str, dict] = {}
+    for lay in space.companions:
+        comp = space.companion(lay.name)
+        if lay.name in astro or not comp.has_velocities:
+            continue
+        plane = space.planes[lay.plane]
+        plane_seen = any(m in astro for m in plane["members"])
+        keys = []
+        if not astro and plane["i_var"] is not None and "ln_mass" in space.index:
+            keys.append("mass_msun")
+        if not plane_seen and plane["i_var"] is not None:
+            keys.append("inclination_deg")
+        if not plane_seen and plane["node_var"] is not None:
+            keys.append("ascending_node_deg")
+        if "mass_msun" in keys:
+            keys += ["semimajor_axis_au", "semimajor_axis_mas", "periastron_au"]
+        if keys:
+            out[lay.name] = {
+                "prior_dominated": keys,
+                "prior_dominated_note": (
+                    f"{lay.name} has velocities only: they measure the semi-amplitude K, a sin i, the mass "
+                    f"function and M sin^3 i; {', '.join(keys)} follow the priors and are not measurements."),
+            }
+    return out
 
 
 def _circular_centre_deg(x_deg: NDArray[np.float64], period: float = 360.0) -> float:
@@ -121,8 +197,16 @@ def derive_samples(space: ParameterSpace, theta: NDArray[np.float64],
         cols[f"{c}.periastron_speed_kms"] = periastron_speed_kms(mass, a_au, e)
         sin_i = np.sqrt(1 - cos_i**2)
         cols[f"{c}.semi_amplitude_kms"] = semi_amplitude_kms(a_au, p, np.arccos(cos_i), e)
+        comp = space.companion(c)
+        if comp.has_velocities and (comp.astrometry is None or len(comp.astrometry) == 0):
+            # velocities only: what they measure (the companion's velocities about the barycentre)
+            k_rel = cols[f"{c}.semi_amplitude_kms"]
+            cols[f"{c}.a_sin_i_au"] = a_au * sin_i
+            cols[f"{c}.m_sin3i_msun"] = mass * sin_i**3
+            cols[f"{c}.mass_function_msun"] = mass_function_msun(p, k_rel / (1.0 + phys[f"{c}.q"]), e)
         if lay.has_q:
             q = phys[f"{c}.q"]
+            cols[f"{c}.semi_amplitude_central_kms"] = cols[f"{c}.semi_amplitude_kms"] * q / (1.0 + q)
             cols[f"{c}.mass_ratio"] = q
             cols[f"{c}.central_mass_msun"] = mass / (1 + q)
             cols[f"{c}.companion_mass_msun"] = mass * q / (1 + q)

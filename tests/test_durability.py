@@ -431,7 +431,7 @@ def test_prepared_folder_holds_checkpoint_and_publish_keeps_it(small_target, tmp
         fit.fit(small_target, stop_flag=stop_after(40))
         save_run(fit.results, out, keep=("checkpoint.h5",), products=False, lock=lock)
     assert sorted(p.name for p in out.iterdir()) == [".orbitmass-run", "checkpoint.h5", "input", "posterior.h5",
-                                                     "summary.json"]
+                                                     "residuals.csv", "summary.json"]
     # resume into the same folder: allowed without overwrite, the checkpoint continues
     with prepare_run_folder(out, resume=True) as lock:
         again = Fit(seed=2, linear=False, max_steps=200, min_steps=200, progress=False,

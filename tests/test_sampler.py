@@ -55,3 +55,29 @@ def test_default_moves_recover_a_correlated_gaussian():
 def test_no_starting_walkers_and_no_chain_is_an_error(bad):
     with pytest.raises(ValueError, match="no starting walkers"):
         run_sampler(Gaussian(np.eye(2)), None, seed=1, options=SamplerOptions())
+
+
+def test_rhat_between_1_01_and_1_02_is_not_converged():
+    # Vehtari et al. 2021 (Bayesian Analysis 16, 667) and the output contract: R-hat below 1.01.
+    # An AR(1) ensemble of 70 tau: the cheap criteria (ESS >= 400, > 50 tau) pass, but the
+    # expected split R-hat is ~1 + tau / n = 1.014 (see tests/test_diagnostics.py).
+    from orbitmass.core import diagnostics
+    from orbitmass.inference.sampler import assess
+
+    rng = np.random.default_rng(31)
+    phi, n_walkers = 0.9, 32
+    tau = (1 + phi) / (1 - phi)
+    n = int(70 * tau / 0.8)  # 20 % burn-in leaves 70 tau
+    x = np.empty((n, n_walkers, 1))
+    x[0, :, 0] = rng.normal(0, 1 / np.sqrt(1 - phi**2), n_walkers)
+    eps = rng.normal(size=(n, n_walkers))
+    for t in range(1, n):
+        x[t, :, 0] = phi * x[t - 1, :, 0] + eps[t]
+    options = SamplerOptions()
+    assert options.max_rhat == diagnostics.MAX_RHAT == 1.01
+    verdict = assess(x, options)
+    assert verdict["ess"][0] >= 400
+    assert 1.01 <= verdict["rhat"][0] < 1.02
+    assert not verdict["converged"]
+    # the same chain passed the old, looser 1.02 threshold
+    assert assess(x, SamplerOptions(max_rhat=1.02))["converged"]

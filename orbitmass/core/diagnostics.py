@@ -17,6 +17,17 @@ Estimators
 * The ESS reported for a parameter is the smaller of the bulk ESS and
   ``n_steps * n_walkers / tau``: walkers of an ensemble sampler are not
   independent chains, so neither estimate alone is trusted.
+
+Convergence criteria (output contract)
+--------------------------------------
+:data:`MIN_ESS` (400) effective draws of every sampled parameter, a retained
+chain longer than :data:`MIN_TAU_MULTIPLE` (50) autocorrelation times, and a
+rank-normalised split R-hat below :data:`MAX_RHAT` (1.01, the threshold Vehtari
+et al. 2021 recommend). For a stationary chain of ``n`` steps per walker the
+expected split R-hat is about ``1 + (tau - 1) / n`` (measured on AR(1) chains in
+``tests/test_diagnostics.py``), so the R-hat criterion asks for a chain of about
+100 autocorrelation times; the 50-tau criterion alone would allow R-hat near
+1.02. :func:`convergence_failures` names every parameter that misses one.
 """
 
 from __future__ import annotations
@@ -32,7 +43,18 @@ __all__ = [
     "split_rhat",
     "effective_sample_size",
     "walker_modes",
+    "convergence_failures",
+    "MIN_ESS",
+    "MIN_TAU_MULTIPLE",
+    "MAX_RHAT",
 ]
+
+#: Least effective sample size of every sampled parameter (output contract).
+MIN_ESS = 400.0
+#: The retained chain must be longer than this many autocorrelation times (output contract).
+MIN_TAU_MULTIPLE = 50.0
+#: Every rank-normalised split R-hat must be below this (Vehtari et al. 2021; output contract).
+MAX_RHAT = 1.01
 
 
 def _as3d(chain: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -152,13 +174,27 @@ def _ess_geyer(x: NDArray[np.float64]) -> float:
     acov_mean = acov.mean(axis=1)
     rho = 1.0 - (w - acov_mean) / var_plus
     rho[0] = 1.0
-    # Geyer: sums of adjacent pairs, truncated at the first negative, made monotone
-    n_pairs = (n - 1) // 2
-    pairs = rho[0: 2 * n_pairs: 2] + rho[1: 2 * n_pairs: 2]
-    neg = np.nonzero(pairs < 0)[0]
-    k = int(neg[0]) if neg.size else pairs.size
-    pairs = np.minimum.accumulate(pairs[:k]) if k > 0 else pairs[:1]
-    tau = -1.0 + 2.0 * pairs.sum()
+    # Geyer's initial positive sequence: pairs (rho_{2k}, rho_{2k+1}) until a pair sums to
+    # a negative value, then made monotone (Vehtari et al. 2021, Appendix A, as Stan does,
+    # including the last positive even lag: it lowers the variance for antithetic chains)
+    kept = np.zeros(n)
+    kept[0], kept[1] = 1.0, rho[1]
+    even, odd = 1.0, rho[1]
+    t = 1
+    while t < n - 3 and even + odd > 0.0:
+        even, odd = rho[t + 1], rho[t + 2]
+        if even + odd >= 0.0:
+            kept[t + 1], kept[t + 2] = even, odd
+        t += 2
+    max_t = t - 2
+    if even > 0.0:
+        kept[max_t + 1] = even
+    t = 1
+    while t <= max_t - 2:
+        if kept[t + 1] + kept[t + 2] > kept[t - 1] + kept[t]:
+            kept[t + 1] = kept[t + 2] = 0.5 * (kept[t - 1] + kept[t])
+        t += 2
+    tau = -1.0 + 2.0 * kept[: max_t + 1].sum() + kept[max_t + 1: max_t + 2].sum()
     tau = max(tau, 1.0 / np.log10(n * m))
     return float(n * m / tau)
 
@@ -208,3 +244,48 @@ def walker_modes(x: NDArray[np.float64], min_walkers: int = 2, separation: float
             modes += 1
             last = c
     return modes
+
+
+def convergence_failures(names, tau, ess, rhat, n_kept: int, *, min_ess: float = MIN_ESS,
+                         min_tau_multiple: float = MIN_TAU_MULTIPLE, max_rhat: float = MAX_RHAT) -> list[str]:
+    """Every convergence criterion a chain misses, one phrase per parameter and criterion.
+
+    Parameters
+    ----------
+    names : sequence of str
+        Sampled parameter names, shape (n_dim,).
+    tau, ess, rhat : array_like, shape (n_dim,)
+        Autocorrelation time (steps), effective sample size and split R-hat
+        of each parameter; NaN where not computed (then that criterion is
+        reported as not assessed).
+    n_kept : int
+        Retained steps per walker (after burn-in).
+    min_ess, min_tau_multiple, max_rhat : float
+        Thresholds (default: the output contract's).
+
+    Returns
+    -------
+    list of str
+        Empty when every criterion holds, e.g.
+        ``["C1.ln_period: split R-hat 1.034 (needs < 1.01)"]``.
+
+    Examples
+    --------
+    >>> convergence_failures(["a", "b"], [10.0, 30.0], [900.0, 350.0], [1.002, 1.02], 2000)
+    ['b: ESS 350 (needs >= 400)', 'b: split R-hat 1.020 (needs < 1.01)']
+    """
+    out: list[str] = []
+    tau = np.asarray(tau, dtype=float)
+    ess = np.asarray(ess, dtype=float)
+    rhat = np.asarray(rhat, dtype=float)
+    for k, name in enumerate(names):
+        if not np.isfinite(tau[k]):
+            pass
+        elif n_kept <= min_tau_multiple * tau[k]:
+            out.append(f"{name}: chain of {int(n_kept)} steps is {n_kept / tau[k]:.0f} autocorrelation times "
+                       f"(tau {tau[k]:.1f}; needs > {min_tau_multiple:g})")
+        if np.isfinite(ess[k]) and ess[k] < min_ess:
+            out.append(f"{name}: ESS {ess[k]:.0f} (needs >= {min_ess:g})")
+        if np.isfinite(rhat[k]) and not rhat[k] < max_rhat:
+            out.append(f"{name}: split R-hat {rhat[k]:.3f} (needs < {max_rhat:g})")
+    return out

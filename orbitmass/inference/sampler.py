@@ -4,9 +4,10 @@ Convergence (output contract): every sampled parameter has an effective
 sample size of at least ``min_ess`` (400) and the retained chain is longer
 than ``min_tau_multiple`` (50) autocorrelation times; in addition the
 rank-normalised split R-hat of every parameter must be below ``max_rhat``
-(1.02 by default: Vehtari et al. 2021 advise 1.01 for independent chains; the
-walkers of an ensemble are many short, weakly coupled chains whose R-hat
-estimate is noisier, and the ESS and 50-tau criteria still apply). The first ``burn`` steps are
+(1.01, Vehtari et al. 2021; every walker is one chain, split in halves). The
+defaults are :data:`orbitmass.core.diagnostics.MIN_ESS`, ``MIN_TAU_MULTIPLE``
+and ``MAX_RHAT``; a stationary chain needs about 100 autocorrelation times for
+R-hat < 1.01 (see :mod:`orbitmass.core.diagnostics`). The first ``burn`` steps are
 discarded, ``burn = max(2 * tau_max, burn_fraction * n_steps)``.
 
 Moves: differential evolution (ter Braak 2006, Stat. Comput. 16, 239): 90 % of
@@ -67,9 +68,9 @@ class SamplerOptions:
     n_walkers: int | None = None
     max_steps: int = 20000
     min_steps: int = 600
-    min_ess: float = 400.0
-    min_tau_multiple: float = 50.0
-    max_rhat: float = 1.02
+    min_ess: float = diagnostics.MIN_ESS
+    min_tau_multiple: float = diagnostics.MIN_TAU_MULTIPLE
+    max_rhat: float = diagnostics.MAX_RHAT
     burn_fraction: float = 0.2
     max_retained: int = 40000
     progress: bool | None = None

@@ -533,6 +533,8 @@ def save_run(results, out_dir: Path, *, overwrite: bool = False, products: bool 
 
         with staged_folder(out_dir, before_publish=before_publish) as staging:
             write_posterior(results, staging / "posterior.h5")
+            if results.info.get("residuals"):  # (O - C) / sigma per measured value, from inference.quality
+                pd.DataFrame(results.info["residuals"]).to_csv(staging / "residuals.csv", index=False)
             _copy_inputs(results.target, staging / "input")
             if products:
                 try:
