@@ -26,16 +26,16 @@ import pytest
 from orbitmass.batch import (
     STATUS_FAILED,
     STATUS_NOT_CONVERGED,
-    add_batch_parser,
-    cmd_batch,
     expand_targets,
     fit_batch,
     fit_target,
     open_client,
     plan_batch,
     target_seed,
-    write_example_sample,
 )
+from orbitmass.cli.batch import add_parser as add_batch_parser
+from orbitmass.cli.batch import run as cmd_batch
+from orbitmass.demo.scenarios import write_example_sample
 from orbitmass.exceptions import InputError, OrbitmassError
 from orbitmass.io.rundir import is_complete_run
 

@@ -33,12 +33,12 @@ import numpy as np
 import pytest
 from scipy import integrate, optimize, stats
 
+from orbitmass.cli.compare import add_parser as add_compare_parser
+from orbitmass.cli.compare import run as cmd_compare
 from orbitmass.compare import (
     DEFAULT_THRESHOLD_SIGMA,
     Comparison,
     MassPosterior,
-    add_compare_parser,
-    cmd_compare,
     combined_refit,
     combined_target,
     compare,
@@ -46,9 +46,9 @@ from orbitmass.compare import (
     parse_reference,
     tension_sigma,
 )
+from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.exceptions import InputError, RunFolderError
 from orbitmass.io.target import read_target
-from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.units import RS_AU_PER_MSUN
 
 from .conftest import make_target
@@ -296,7 +296,8 @@ def test_write_produces_every_file_and_refuses_non_empty_folder(rng, tmp_path):
     assert (out / "comparison.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert (out / "enclosed_mass.pdf").read_bytes()[:5] == b"%PDF-"
     md = (out / "comparison.md").read_text(encoding="utf-8")
-    assert "σ (bound; Gaussian approx." in md and "## Joint refit" in md and "![comparison](comparison.png)" in md
+    assert "σ (lower bound from the samples; normal approx." in md
+    assert "## Joint refit" in md and "![comparison](comparison.png)" in md
     before = (out / "comparison.json").read_bytes()
     with pytest.raises(RunFolderError, match="not empty"):
         cmp.write(out)
