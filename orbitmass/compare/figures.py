@@ -7,6 +7,7 @@ Both functions take a :class:`~orbitmass.compare.comparison.Comparison` and retu
 
 from __future__ import annotations
 
+import textwrap
 from typing import Any
 
 import matplotlib
@@ -23,6 +24,8 @@ from orbitmass.units import RS_AU_PER_MSUN
 
 __all__ = ["comparison_figure", "enclosed_mass_figure", "RUN_COLOURS", "tension_text"]
 
+#: characters per line of the tension list under the figure (6 pt text, single column)
+_TEXT_WIDTH = 68
 #: colours of the runs (Okabe & Ito, via orbitmass.outputs.style); black is kept for the joint fit
 RUN_COLOURS = tuple(PALETTE[k] for k in ("blue", "vermillion", "bluish_green", "orange", "reddish_purple", "sky_blue"))
 
@@ -78,19 +81,24 @@ def comparison_figure(cmp):
     else:
         grid = np.linspace(lo - 0.25 * (hi - lo), hi + 0.25 * (hi - lo), 600)
     n = len(rows)
-    lines = [tension_text(p) for p in cmp.pairs]
-    text_h = 0.35 + 0.13 * len(lines) if lines else 0.0
+    lines = [wrapped for p in cmp.pairs
+             for wrapped in textwrap.wrap(tension_text(p), width=_TEXT_WIDTH, subsequent_indent="    ")]
+    text_h = 0.2 + 0.115 * len(lines) if lines else 0.0
+    plots_h = 1.7 + 0.22 * n
     with style_context():
-        fig = Figure(figsize=(SINGLE_COLUMN_IN, 1.7 + 0.22 * n + text_h))
-        ratios = [1.5, 0.3 + 0.22 * n] + ([text_h] if lines else [])
-        gs = fig.add_gridspec(len(ratios), 1, height_ratios=ratios, hspace=0.06)
+        gap = 0.55 if lines else 0.0  # inches between the mass axis (tick labels and label) and the list
+        fig = Figure(figsize=(SINGLE_COLUMN_IN, plots_h + text_h + gap))
+        # hspace is in units of the mean height of the two rows
+        outer = fig.add_gridspec(2 if lines else 1, 1, height_ratios=[plots_h, text_h] if lines else [1],
+                                 hspace=gap / ((plots_h + text_h) / 2) if lines else 0.0)
+        gs = outer[0].subgridspec(2, 1, height_ratios=[1.5, 0.3 + 0.22 * n], hspace=0.06)
         ax_d = fig.add_subplot(gs[0])
         ax_i = fig.add_subplot(gs[1], sharex=ax_d)
         if lines:
-            ax_t = fig.add_subplot(gs[2])
+            ax_t = fig.add_subplot(outer[1])
             ax_t.set_axis_off()
-            ax_t.text(0.0, 0.0, "tension (Gaussian-equivalent):\n" + "\n".join(lines), transform=ax_t.transAxes,
-                      ha="left", va="bottom", fontsize=6.0, color="#222222", linespacing=1.35)
+            ax_t.text(0.0, 1.0, "tension (Gaussian-equivalent):\n" + "\n".join(lines), transform=ax_t.transAxes,
+                      ha="left", va="top", fontsize=6.0, color="#222222", linespacing=1.35)
         for j, (label, d, colour) in enumerate(rows):
             is_ref = isinstance(d, Reference)
             y = d.pdf(grid)
