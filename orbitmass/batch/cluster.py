@@ -24,7 +24,7 @@ from orbitmass.batch.plan import BatchJob
 from orbitmass.batch.task import run_task
 from orbitmass.exceptions import InputError, OrbitmassError
 
-__all__ = ["INSTALL_HINT", "open_client", "collect", "quiet_shutdown"]
+__all__ = ["INSTALL_HINT", "open_client", "collect", "quiet_shutdown", "silence_dask_logging"]
 
 log = logging.getLogger(__name__)
 
@@ -114,6 +114,11 @@ def open_client(
             # that only this process stops the batch and closes them (no half-dead cluster, no traceback)
             client.register_plugin(_ignore_sigint_plugin(distributed), name="orbitmass-ignore-sigint")
             yield client
+        except KeyboardInterrupt:
+            # the workers are about to be closed with tasks running: what they would log about it is noise
+            with contextlib.suppress(Exception):
+                client.run(silence_dask_logging)
+            raise
         finally:
             with quiet_shutdown():
                 client.close()
@@ -130,6 +135,12 @@ def _ignore_sigint_plugin(distributed):
             signal.signal(signal.SIGINT, signal.SIG_IGN)
 
     return IgnoreSigint()
+
+
+def silence_dask_logging() -> None:
+    """Only errors from dask's loggers in this process (run on the workers of an interrupted batch)."""
+    for name in ("distributed", "tornado", "asyncio"):
+        logging.getLogger(name).setLevel(logging.ERROR)
 
 
 @contextlib.contextmanager
@@ -180,6 +191,7 @@ def collect(
         futures[fut] = (index, job)
     slots = max(1, sum(client.nthreads().values()))
     n_failed = 0
+    interrupted = False
     bar = tqdm(total=len(futures), desc="targets", unit="fit", disable=not _show_progress(progress))
     try:
         for fut in distributed.as_completed(list(futures)):
@@ -203,7 +215,13 @@ def collect(
             bar.update(1)
             left = len(futures) - bar.n
             bar.set_postfix(failed=n_failed, running=min(left, slots), waiting=max(left - slots, 0))
+    except KeyboardInterrupt:
+        # no cancelling then: closing the client releases the futures and closing a local cluster
+        # stops its workers; cancelling running tasks first only makes the workers log about it
+        interrupted = True
+        raise
     finally:
         bar.close()
-        with contextlib.suppress(Exception):  # the scheduler may be gone already (Ctrl-C)
-            client.cancel([fut for fut in futures if not fut.done()])
+        if not interrupted:
+            with contextlib.suppress(Exception):  # the scheduler may be gone already
+                client.cancel([fut for fut in futures if not fut.done()])

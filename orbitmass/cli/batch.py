@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import importlib.util
+import os
 import sys
 from pathlib import Path
 from typing import Any
@@ -124,6 +125,9 @@ def run(args: argparse.Namespace) -> int:
     Errors of the whole batch raise :class:`~orbitmass.exceptions.OrbitmassError`
     (exit code 2 in the CLI).
     """
+    # dask logs every connection at INFO level, in this process and in local workers (which take
+    # the environment along): only its warnings unless --verbose
+    os.environ.setdefault("DASK_LOGGING__DISTRIBUTED", "info" if getattr(args, "verbose", False) else "warning")
     options: dict[str, Any] = {"max_steps": args.max_steps}
     if args.no_fast_path:
         options["linear"] = False
