@@ -445,19 +445,20 @@ def test_ctrl_c_on_a_batch_exits_130_with_one_line(sample, tmp_path):
     cmd = [sys.executable, "-m", "orbitmass", "batch", sample["glob"], "--out", str(out), "--workers", "1",
            "--max-steps", "1000000", "--no-fast-path", "--no-figures", "--no-progress"]
     # a terminal's Ctrl-C reaches the whole process group: the command, its scheduler and its workers
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, start_new_session=True)
-    lines: list[str] = []
-    reader = threading.Thread(target=lambda: lines.extend(proc.stderr), daemon=True)
-    reader.start()
-    t0 = time.monotonic()
-    while not any("dask dashboard" in line for line in lines) and time.monotonic() - t0 < 120:
-        time.sleep(0.2)
-    time.sleep(3.0)  # the first fit is running
-    os.killpg(proc.pid, signal.SIGINT)
-    assert proc.wait(timeout=120) == 130
-    reader.join(10)
+    with subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+                          start_new_session=True) as proc:
+        lines: list[str] = []
+        reader = threading.Thread(target=lambda: lines.extend(proc.stderr), daemon=True)
+        reader.start()
+        t0 = time.monotonic()
+        while not any("dask dashboard" in line for line in lines) and time.monotonic() - t0 < 120:
+            time.sleep(0.2)
+        time.sleep(3.0)  # the first fit is running
+        os.killpg(proc.pid, signal.SIGINT)
+        assert proc.wait(timeout=120) == 130
+        reader.join(10)
     err = "".join(lines)
-    assert "Traceback" not in err and "CommClosedError" not in err
+    assert "Traceback" not in err and "CommClosedError" not in err, err
     ours = [line for line in lines if line.startswith("orbitmass:")]
     assert len(ours) == 1 and "interrupted" in ours[0]
     assert [line for line in lines if "dask dashboard" not in line] == ours  # nothing else on stderr
