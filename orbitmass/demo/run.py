@@ -14,7 +14,7 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
-from orbitmass.compare import combined_refit, compare
+from orbitmass.compare import MassPosterior, combined_refit, compare
 from orbitmass.compare.report import check_out_dir
 from orbitmass.demo.scenarios import DEMO_REFERENCE, SCENARIOS, write_comparison_datasets, write_scenarios
 from orbitmass.demo.simulate import TrueOrbit
@@ -77,9 +77,11 @@ def demo_comparison(
     QD-S4 with the spectrograph "north-spec", the "south team" follows QD-S9
     with "south-echelle". Data are simulated with a fixed seed
     (:func:`orbitmass.demo.scenarios.write_comparison_datasets`); the fits use ``seed``. Written:
-    ``out_dir/data/<team>/`` (target files and tables) and
-    ``out_dir/comparison/`` (see :meth:`orbitmass.compare.Comparison.write`; the joint run
-    folder is not saved, to keep the demo short).
+    ``out_dir/data/<team>/`` (target files and tables), ``out_dir/runs/<team>/``
+    (each team's run folder, recorded as the ``source`` of its run in
+    ``comparison.json``) and ``out_dir/comparison/`` (see
+    :meth:`orbitmass.compare.Comparison.write`, with the joint run folder
+    ``combined/``).
 
     Parameters
     ----------
@@ -105,8 +107,12 @@ def demo_comparison(
     datasets = write_comparison_datasets(out_dir / "data")
     labels, paths = list(datasets), list(datasets.values())
     fits = [Fit(seed=seed, progress=progress, max_steps=max_steps).fit(p) for p in paths]
+    run_dirs = [fit.save(out_dir / "runs" / Path(p).parent.name, overwrite=True) for fit, p in zip(fits, paths,
+                                                                                                    strict=True)]
     joint = combined_refit(fits, seed=seed, labels=labels, progress=progress, max_steps=max_steps)
-    cmp = compare(fits, references=[DEMO_REFERENCE], labels=labels, combined=joint, seed=seed)
-    dest = cmp.write(out_dir / "comparison", overwrite=True, save_combined=False)
+    posts = [MassPosterior.from_results(fit.results, label, source=str(run_dir))
+             for fit, label, run_dir in zip(fits, labels, run_dirs, strict=True)]
+    cmp = compare(posts, references=[DEMO_REFERENCE], combined=joint, seed=seed)
+    dest = cmp.write(out_dir / "comparison", overwrite=True, save_combined=True)
     log.info("comparison demo written to %s in %.1f s", dest, time.perf_counter() - t0)
     return dest
