@@ -1,7 +1,7 @@
 """Benchmark of batch fitting: plain loop vs dask with 1 and 2 workers; emcee pool vs vectorised.
 
 Side by side in one run, on 8 small invented targets
-(:func:`orbitmass.batch.write_example_sample`: visual binaries, 16 epochs,
+(:func:`orbitmass.demo.scenarios.write_example_sample`: visual binaries, 16 epochs,
 astrometry and a parallax):
 
 * a plain loop in this process: ``Fit(seed=...).fit(target)`` and the run
@@ -46,7 +46,8 @@ from pathlib import Path
 
 import numpy as np
 
-from orbitmass.batch import fit_batch, open_client, plan_batch, write_example_sample
+from orbitmass.batch import fit_batch, open_client, plan_batch
+from orbitmass.demo.scenarios import write_example_sample
 from orbitmass.io.target import read_target
 
 __all__ = ["run"]

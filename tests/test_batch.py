@@ -17,6 +17,7 @@ import hashlib
 import json
 import os
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -26,16 +27,16 @@ import pytest
 from orbitmass.batch import (
     STATUS_FAILED,
     STATUS_NOT_CONVERGED,
-    add_batch_parser,
-    cmd_batch,
     expand_targets,
     fit_batch,
     fit_target,
     open_client,
     plan_batch,
     target_seed,
-    write_example_sample,
 )
+from orbitmass.cli.batch import add_parser as add_batch_parser
+from orbitmass.cli.batch import run as cmd_batch
+from orbitmass.demo.scenarios import write_example_sample
 from orbitmass.exceptions import InputError, OrbitmassError
 from orbitmass.io.rundir import is_complete_run
 
@@ -304,3 +305,162 @@ def test_interrupted_batch_writes_catalogue_then_reraises(sample, client, tmp_pa
     cat = pd.read_csv(tmp_path / "catalogue.csv")
     assert (cat["status"] == STATUS_FAILED).all()
     assert cat["error"].str.contains("rerun the same command to resume").all()
+
+
+# ------------------------------------------------------------------ identity, limits, interruption
+def _checksums(folder: Path) -> dict[str, str]:
+    """SHA-256 (hashlib, FIPS 180-4) of every file under ``folder``, by relative path."""
+    return {str(p.relative_to(folder)): hashlib.sha256(p.read_bytes()).hexdigest()
+            for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def _same_name_targets(folder: Path, n: int) -> list[Path]:
+    """``n`` invented targets that all carry the name "Orrin 1xx AB" (so their folder names collide)."""
+    paths = write_example_sample(folder, n, seed=21)
+    for p in paths:
+        text = p.read_text(encoding="utf-8")
+        name = text.split('\nname = "', 1)[1].split('"', 1)[0]
+        p.write_text(text.replace(f'name = "{name}"', 'name = "Orrin 1xx AB"'), encoding="utf-8")
+    return paths
+
+
+def _fake_run(run_dir: Path, target: Path, digest: str) -> None:
+    """A complete-looking run folder recording ``target`` and ``digest`` in its provenance."""
+    run_dir.mkdir(parents=True)
+    (run_dir / "posterior.h5").write_bytes(b"not read by the planner")
+    (run_dir / "summary.json").write_text(json.dumps(
+        {"provenance": {"target_file": str(target), "data_sha256": digest, "seed": 1}}), encoding="utf-8")
+
+
+def test_plan_keeps_each_targets_own_folder_whatever_the_order(tmp_path):
+    from orbitmass.batch.plan import RUN_MATCHES, RUN_OTHER_TARGET, RUN_STALE, RUN_UNFINISHED, run_state
+    from orbitmass.io.target import read_target
+
+    a, b, c = _same_name_targets(tmp_path / "data", 3)
+    out = tmp_path / "out"
+    first = plan_batch([a, b], out)
+    assert [Path(j.run_dir).name for j in first] == ["Orrin-1xx-AB", "Orrin-1xx-AB-2"]
+    # the checksum of the job is the reader's data_sha256 (target file and tables)
+    assert first[0].data_sha256 == read_target(a).data_sha256
+    for job in first:
+        _fake_run(Path(job.run_dir), Path(job.target_file), job.data_sha256)
+    # another order, and a new target put first: everyone keeps their own folder, the new one a free one
+    again = {Path(j.target_file): j for j in plan_batch([c, b, a], out)}
+    assert Path(again[a.resolve()].run_dir).name == "Orrin-1xx-AB"
+    assert Path(again[b.resolve()].run_dir).name == "Orrin-1xx-AB-2"
+    assert Path(again[c.resolve()].run_dir).name == "Orrin-1xx-AB-3"
+    assert run_state(again[a.resolve()]) == run_state(again[b.resolve()]) == RUN_MATCHES
+    assert run_state(again[c.resolve()]) == RUN_UNFINISHED
+    # the same folder seen by another target's job: never its run
+    assert run_state(replace(again[c.resolve()], run_dir=again[a.resolve()].run_dir)) == RUN_OTHER_TARGET
+    # the target's table changed: same file, other contents -> stale (refit)
+    table = a.parent / "positions.csv"
+    table.write_text(table.read_text(encoding="utf-8") + "\n", encoding="utf-8")
+    assert run_state(plan_batch([a], out)[0]) == RUN_STALE
+    # an unreadable summary.json (or a JSON list) counts as unfinished: it is fitted again
+    (Path(first[1].run_dir) / "summary.json").write_text("[1, 2]", encoding="utf-8")
+    assert run_state(plan_batch([b], out)[0]) == RUN_UNFINISHED
+
+
+def test_batch_out_is_a_file_gives_one_line_and_exit_code_2(sample, tmp_path, capsys):
+    from orbitmass.cli import main
+
+    out = tmp_path / "not-a-folder"
+    out.write_text("the user's notes", encoding="utf-8")
+    before = hashlib.sha256(out.read_bytes()).hexdigest()
+    capsys.readouterr()
+    assert main(["batch", str(sample["good"][0]), "--out", str(out), "--workers", "1"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("orbitmass: error:") and "not a folder" in err[0]
+    assert hashlib.sha256(out.read_bytes()).hexdigest() == before  # untouched
+
+
+@pytest.mark.slow
+def test_rerun_in_another_order_or_with_a_target_added_never_mixes_runs(client, tmp_path):
+    a, b, c = _same_name_targets(tmp_path / "data", 3)
+    out = tmp_path / "out"
+    kw = {"client": client, "seed": 2, "fit_options": FIT, "products": False, "progress": False}
+    first = fit_batch([a, b], out, **kw).set_index("target_file")
+    assert not first["skipped"].any()
+    runs = _checksums(out / "runs")
+    # another order and one more target (same name): the new one is fitted into a new folder, the
+    # others are kept untouched and each row is its own target's run
+    second = fit_batch([c, b, a], out, **kw).set_index("target_file")
+    for path in (a, b):
+        row = second.loc[str(path.resolve())]
+        assert row["skipped"] and row["run_dir"] == first.loc[str(path.resolve())]["run_dir"]
+        assert _summary(row["run_dir"])["provenance"]["target_file"] == str(path.resolve())
+        assert row["mass_msun_median"] == first.loc[str(path.resolve())]["mass_msun_median"]
+    new = second.loc[str(c.resolve())]
+    assert not new["skipped"] and new["status"] == STATUS_NOT_CONVERGED
+    assert _summary(new["run_dir"])["provenance"]["target_file"] == str(c.resolve())
+    after = _checksums(out / "runs")
+    assert {k: v for k, v in after.items() if k in runs} == runs  # nothing of the first runs rewritten
+    # a run whose summary.json is unreadable is fitted again (and only that one)
+    broken = Path(first.loc[str(a.resolve())]["run_dir"])
+    (broken / "summary.json").write_text("{half a file", encoding="utf-8")
+    untouched = {k: v for k, v in after.items() if not k.startswith(broken.name + "/")}
+    third = fit_batch([a, b, c], out, **kw).set_index("target_file")
+    assert not third.loc[str(a.resolve())]["skipped"] and third.loc[str(a.resolve())]["status"] != STATUS_FAILED
+    assert _summary(str(broken))["provenance"]["target_file"] == str(a.resolve())
+    assert third.loc[str(b.resolve())]["skipped"] and third.loc[str(c.resolve())]["skipped"]
+    now = _checksums(out / "runs")
+    assert {k: v for k, v in now.items() if k in untouched} == untouched
+
+
+@pytest.mark.slow
+def test_target_timeout_records_failure_and_frees_the_worker(sample, client, tmp_path):
+    import time
+
+    endless = {"max_steps": 10**6, "min_steps": 10**6, "linear": False}  # would run for many minutes
+    t0 = time.monotonic()
+    cat = fit_batch(sample["good"], tmp_path / "slow", client=client, fit_options=endless, products=False,
+                    progress=False, timeout=6.0)
+    elapsed = time.monotonic() - t0
+    # 3 targets on 2 workers, each stopped at 6 s: two rounds, not minutes
+    assert elapsed < 60
+    assert (cat["status"] == STATUS_FAILED).all() and (cat["reason"] == "timeout").all()
+    assert cat["error"].str.startswith("timeout:").all()
+    runs = tmp_path / "slow" / "runs"
+    assert not any(is_complete_run(Path(d)) for d in cat["run_dir"])
+    assert not [p for p in runs.iterdir() if ".staging-" in p.name]  # no half-written folder left
+    # the workers are free: a normal batch on the same client runs at once
+    quick = fit_batch(sample["good"][:2], tmp_path / "quick", client=client, fit_options=FIT, products=False,
+                      progress=False, timeout=120.0)
+    assert (quick["status"] == STATUS_NOT_CONVERGED).all()
+    assert quick["reason"].isna().all()
+    with pytest.raises(InputError) as err:
+        plan_batch(sample["good"], tmp_path / "x", timeout=0)
+    assert err.value.key == "timeout"
+
+
+@pytest.mark.slow
+def test_ctrl_c_on_a_batch_exits_130_with_one_line(sample, tmp_path):
+    import signal
+    import subprocess
+    import threading
+    import time
+
+    out = tmp_path / "out"
+    cmd = [sys.executable, "-m", "orbitmass", "batch", sample["glob"], "--out", str(out), "--workers", "1",
+           "--max-steps", "1000000", "--no-fast-path", "--no-figures", "--no-progress"]
+    # a terminal's Ctrl-C reaches the whole process group: the command, its scheduler and its workers
+    with subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+                          start_new_session=True) as proc:
+        lines: list[str] = []
+        reader = threading.Thread(target=lambda: lines.extend(proc.stderr), daemon=True)
+        reader.start()
+        t0 = time.monotonic()
+        while not any("dask dashboard" in line for line in lines) and time.monotonic() - t0 < 120:
+            time.sleep(0.2)
+        time.sleep(3.0)  # the first fit is running
+        os.killpg(proc.pid, signal.SIGINT)
+        assert proc.wait(timeout=120) == 130
+        reader.join(10)
+    err = "".join(lines)
+    assert "Traceback" not in err and "CommClosedError" not in err, err
+    ours = [line for line in lines if line.startswith("orbitmass:")]
+    assert len(ours) == 1 and "interrupted" in ours[0]
+    assert [line for line in lines if "dask dashboard" not in line] == ours  # nothing else on stderr
+    cat = pd.read_csv(out / "catalogue.csv")
+    assert (cat["reason"] == "interrupted").any()

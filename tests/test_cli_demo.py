@@ -64,3 +64,22 @@ def test_bad_target_gives_one_line(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and err[0].startswith("orbitmass: error:") and "distance.prior.mean" in err[0]
     assert not (tmp_path / "o").exists()
+
+
+def test_every_command_module_has_the_two_functions_and_python_m_works():
+    import subprocess
+    import sys
+
+    from orbitmass.cli.main import COMMANDS
+
+    # one module per command group, each with add_parser(subparsers) and run(args) -> int
+    assert list(COMMANDS) == ["fit", "demo", "report", "compare", "batch", "predict", "plan"]
+    for name, module in COMMANDS.items():
+        assert callable(module.add_parser) and callable(module.run), name
+    # `python -m orbitmass` and `python -m orbitmass.cli` are the same command; usage errors exit 2
+    for entry in ("orbitmass", "orbitmass.cli"):
+        done = subprocess.run([sys.executable, "-m", entry, "--version"], capture_output=True, text=True, timeout=120)
+        assert done.returncode == 0 and done.stdout.startswith("orbitmass ")
+    bad = subprocess.run([sys.executable, "-m", "orbitmass", "batch", "x.toml", "--out", "o", "--target-timeout",
+                          "-1"], capture_output=True, text=True, timeout=120)
+    assert bad.returncode == 2 and "--target-timeout" in bad.stderr and "Traceback" not in bad.stderr

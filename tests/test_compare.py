@@ -26,6 +26,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+from dataclasses import replace
 from pathlib import Path
 
 import astropy.units as u
@@ -33,12 +34,12 @@ import numpy as np
 import pytest
 from scipy import integrate, optimize, stats
 
+from orbitmass.cli.compare import add_parser as add_compare_parser
+from orbitmass.cli.compare import run as cmd_compare
 from orbitmass.compare import (
     DEFAULT_THRESHOLD_SIGMA,
     Comparison,
     MassPosterior,
-    add_compare_parser,
-    cmd_compare,
     combined_refit,
     combined_target,
     compare,
@@ -46,9 +47,9 @@ from orbitmass.compare import (
     parse_reference,
     tension_sigma,
 )
+from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.exceptions import InputError, RunFolderError
 from orbitmass.io.target import read_target
-from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.units import RS_AU_PER_MSUN
 
 from .conftest import make_target
@@ -296,7 +297,8 @@ def test_write_produces_every_file_and_refuses_non_empty_folder(rng, tmp_path):
     assert (out / "comparison.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert (out / "enclosed_mass.pdf").read_bytes()[:5] == b"%PDF-"
     md = (out / "comparison.md").read_text(encoding="utf-8")
-    assert "σ (bound; Gaussian approx." in md and "## Joint refit" in md and "![comparison](comparison.png)" in md
+    assert "σ (lower bound from the samples; normal approx." in md
+    assert "## Joint refit" in md and "![comparison](comparison.png)" in md
     before = (out / "comparison.json").read_bytes()
     with pytest.raises(RunFolderError, match="not empty"):
         cmp.write(out)
@@ -519,3 +521,122 @@ def test_cli_refit_writes_the_joint_run(fitted_parts, tmp_path):
     assert d["combined"]["run_folder"] == "combined"
     assert (out / "combined" / "summary.json").is_file() and (out / "combined" / "posterior.h5").is_file()
     assert d["combined"]["companions"] == ["SA", "SB"]
+
+
+# ------------------------------------------------ far references: the normal approximation
+def test_far_reference_gives_sample_bound_and_normal_approximation(rng, tmp_path):
+    # a 1.5 Msun reference (+- 0.01) against a 1.0 +- 0.01 Msun posterior
+    post = MassPosterior.from_samples("binary", gaussian(rng, 1.0, 0.01))
+    ref = parse_reference("far=1.5 +- 0.01 solMass")
+    res = compare_samples(post, ref, rng=np.random.default_rng(8), kind="run-reference")
+    # analytic Gaussian value with scipy.stats.norm: P(a > b) for a - b ~ N(-0.5, hypot(0.01, 0.01))
+    # (difference of independent normals, from memory), turned into sigma by the inverse survival function
+    p_a_greater = stats.norm.sf(0.0, loc=1.0 - 1.5, scale=math.hypot(0.01, 0.01))
+    analytic = float(stats.norm.isf(p_a_greater))
+    assert analytic == pytest.approx(0.5 / math.hypot(0.01, 0.01), rel=1e-9)  # 35.36 sigma
+    # the samples alone: only the documented lower bound norm.isf(-ln(0.05) / n_eff)
+    assert res.tension_is_lower_bound
+    assert res.tension_sigma == pytest.approx(stats.norm.isf(-math.log(0.05) / N_SAMPLES), rel=1e-12)
+    assert res.tension_sigma < 4.5 < analytic
+    # the normal approximation from the moments: the sample sd of 40000 draws is good to ~0.4 %
+    assert res.sigma_normal_approx == pytest.approx(analytic, rel=0.02)
+    assert res.verdict == "tension"
+    # the statement says both, each labelled
+    assert f"> {res.tension_sigma:.1f} sigma from the samples (lower bound" in res.statement
+    assert f"normal approximation {res.sigma_normal_approx:.1f} sigma" in res.statement
+    # ... and so do comparison.json, comparison.md and the figure
+    cmp = compare([post], references=[ref], seed=3)
+    out = cmp.write(tmp_path / "far")
+    d = json.loads((out / "comparison.json").read_text(encoding="utf-8"))
+    (pair,) = d["comparisons"]
+    assert pair["tension_is_lower_bound"] is True
+    assert pair["sigma_normal_approx"] == pytest.approx(analytic, rel=0.02)
+    assert "normal approximation" in d["method"]["lower_bound"]
+    md = (out / "comparison.md").read_text(encoding="utf-8")
+    assert f"normal approx. {pair['sigma_normal_approx']:.1f} σ" in md
+    fig = cmp.figure()
+    texts = [" ".join(t.get_text().split()) for ax in fig.axes for t in ax.texts]  # lines are wrapped
+    assert any("from the samples (lower bound)" in t and f"normal approx. {pair['sigma_normal_approx']:.1f} σ" in t
+               for t in texts)
+
+
+def test_normal_approximation_of_a_two_piece_reference_uses_its_exact_moments(rng):
+    ref = parse_reference("4.1e6 +0.3e6 -0.1e6 solMass")
+    # moments against scipy quadrature of the density (two-piece normal, John 1982)
+    mean = integrate.quad(lambda m: m * float(ref.pdf(m)), 3.0e6, 6.5e6, points=[4.1e6], limit=200)[0]
+    var = integrate.quad(lambda m: (m - mean) ** 2 * float(ref.pdf(m)), 3.0e6, 6.5e6, points=[4.1e6],
+                         limit=200)[0]
+    assert ref.mean() == pytest.approx(mean, rel=1e-9)
+    assert ref.variance() == pytest.approx(var, rel=1e-7)
+    post = MassPosterior.from_samples("run", gaussian(rng, 3.0e6, 0.05e6))
+    res = compare_samples(post, ref, rng=np.random.default_rng(2))
+    expected = abs(3.0e6 - mean) / math.sqrt(0.05e6**2 + var)
+    assert res.sigma_normal_approx == pytest.approx(expected, rel=0.01)
+
+
+# ------------------------------------------------ joint refit: instrument offsets and jitters
+def _team_target(folder: Path, rng, truth: TrueOrbit, *, spec: str, name: str, offset_kms: float = 0.0,
+                 extra_instruments: str = "") -> Path:
+    """One team's invented dataset: positions and velocities from its own spectrograph ``spec``."""
+    from orbitmass.demo.simulate import simulate, write_positions_csv, write_velocities_csv
+
+    folder.mkdir(parents=True, exist_ok=True)
+    t = np.sort(rng.uniform(2006, 2022, 16))
+    sim = simulate(truth, t)
+    write_positions_csv(folder / "pos.csv", t, sim["east_mas"] + rng.normal(0, 0.3, t.size),
+                        sim["north_mas"] + rng.normal(0, 0.3, t.size), 0.3)
+    tv = np.sort(rng.uniform(2008, 2022, 10))
+    rv = simulate(truth, tv)["rv_companion_kms"] + offset_kms + rng.normal(0, 15.0, tv.size)
+    write_velocities_csv(folder / "rv.csv", tv, rv, 15.0, instrument=np.full(tv.size, spec))
+    (folder / "target.toml").write_text(
+        f'[target]\nname = "{name}"\nreference_epoch = 2014.0\n[distance]\n{WIDE_DISTANCE}\n'
+        f'[instruments.{spec}]\njitter = {{ dist = "uniform", low = "0 km / s", high = "20 km / s" }}\n'
+        f'{extra_instruments}'
+        f'[[companion]]\nname = "{name}"\nastrometry = "pos.csv"\nvelocities = "rv.csv"\n', encoding="utf-8")
+    return folder / "target.toml"
+
+
+def test_joint_target_keeps_each_runs_offset_and_jitter_priors(tmp_path, rng):
+    from orbitmass.io.target import DEFAULT_PRIORS
+    from orbitmass.model.parameters import ParameterSpace
+
+    ta = read_target(_team_target(tmp_path / "a", rng, TRUTH_A, spec="north-spec", name="SA"))
+    tb = read_target(_team_target(tmp_path / "b", rng, TRUTH_B, spec="south-echelle", name="SB"))
+    # alone, each team's spectrograph is its zero point (offset fixed at 0)
+    assert ta.instruments["north-spec"].offset.fixed and tb.instruments["south-echelle"].offset.fixed
+    joint = combined_target([ta, tb], labels=["north", "south"])
+    north, south = joint.instruments["north-spec"], joint.instruments["south-echelle"]
+    assert north == ta.instruments["north-spec"]  # the first run's zero point stays the zero point
+    # the second team's zero point relative to the first is unknown: sampled with the reader's default prior
+    assert not south.offset.fixed and south.offset == DEFAULT_PRIORS["offset"]
+    assert south.jitter == tb.instruments["south-echelle"].jitter  # jitter prior kept
+    assert north.jitter == ta.instruments["north-spec"].jitter
+    names = ParameterSpace(joint).names
+    assert "offset.south-echelle" in names and "offset.north-spec" not in names
+    # one spectrograph shared by both runs: one instrument, one zero point, nothing freed
+    tc = read_target(_team_target(tmp_path / "c", rng, TRUTH_B, spec="north-spec", name="SC"))
+    shared = combined_target([ta, tc], labels=["north", "again"])
+    assert list(shared.instruments) == ["north-spec"] and shared.instruments["north-spec"].offset.fixed
+    # a later run fixing two offsets and sharing none: one unknown shift cannot serve both
+    two = 'offset = { dist = "fixed", value = "5 km / s" }\n'
+    td = read_target(_team_target(tmp_path / "d", rng, TRUTH_B, spec="d-spec", name="SD",
+                                  extra_instruments=f"[instruments.d-other]\n{two}"))
+    td = replace(td, companions=(replace(td.companions[0], velocities=replace(
+        td.companions[0].velocities, instrument=np.array(["d-spec", "d-other"] * 5))),))
+    with pytest.raises(InputError) as err:
+        combined_target([ta, td], labels=["north", "d"])
+    assert err.value.key == "instruments.d-other" and "several instruments" in str(err.value)
+
+
+@pytest.mark.slow
+def test_joint_refit_measures_the_second_teams_offset(tmp_path):
+    # invented: team B's spectrograph reads 30 km/s high; the joint fit must find that, not force 0
+    rng = np.random.default_rng(20261202)
+    pa = _team_target(tmp_path / "a", rng, TRUTH_A, spec="north-spec", name="SA")
+    pb = _team_target(tmp_path / "b", rng, TRUTH_B, spec="south-echelle", name="SB", offset_kms=30.0)
+    joint = combined_refit([pa, pb], seed=4, labels=["north", "south"])
+    off = joint.summary["instruments"]["south-echelle"]["offset_kms"]
+    # pass criterion as tests/test_fit_recovery.py: the truth inside the 95 % interval (common practice)
+    assert off["q2.5"] <= 30.0 <= off["q97.5"]
+    m = joint.summary["derived"]["mass_msun"]
+    assert m["q2.5"] <= TRUTH_A.mass_msun <= m["q97.5"]
