@@ -30,6 +30,9 @@ from orbitmass.model.parameters import ParameterSpace
 
 __all__ = ["Results", "QUANTILES", "quantile_block", "derive_samples", "COLUMN_DOC"]
 
+#: Largest number of (sample, epoch) pairs :meth:`Results.predict` evaluates in one block.
+PREDICT_BLOCK_ELEMENTS = 65536
+
 #: summary.json quantile keys -> probability
 QUANTILES = {"median": 0.5, "q16": 0.15865525393145707, "q84": 0.8413447460685429,
              "q2.5": 0.025, "q97.5": 0.975}
@@ -247,12 +250,26 @@ class Results:
             object is built).
         """
         theta = self.theta if rows is None else self.theta[np.asarray(rows)]
-        phys = self.space.unpack(theta)
+        ta = None if t_astro is None else np.asarray(t_astro, float)
         tv = None if t_vel is None else np.asarray(t_vel, float)
         central_rows = None if tv is None else np.full(tv.shape[-1], bool(central))
-        return predict_system(self.space, phys, companion,
-                              t_astro=None if t_astro is None else np.asarray(t_astro, float),
-                              t_vel=tv, central_rows=central_rows)
+        n_epochs = (0 if ta is None else ta.shape[-1]) + (0 if tv is None else tv.shape[-1])
+        # rows in blocks that keep the work arrays small (cache-sized): faster than one huge block
+        step = max(1, PREDICT_BLOCK_ELEMENTS // max(n_epochs, 1))
+        out: dict[str, NDArray[np.float64]] = {}
+        for k in range(0, max(theta.shape[0], 1), step):
+            sl = slice(k, k + step)
+            part = predict_system(
+                self.space, self.space.unpack(theta[sl]), companion,
+                t_astro=None if ta is None else (ta[sl] if ta.ndim == 2 else ta),
+                t_vel=None if tv is None else (tv[sl] if tv.ndim == 2 else tv), central_rows=central_rows)
+            if step >= theta.shape[0]:
+                return part
+            for key, val in part.items():
+                if key not in out:
+                    out[key] = np.empty((theta.shape[0], val.shape[1]))
+                out[key][sl] = val
+        return out
 
     def velocity_offsets(self) -> dict[str, float]:
         """Posterior-median zero-point offset (km/s) of every instrument."""
