@@ -57,8 +57,8 @@ __all__ = ["initialise_walkers", "InitialSolution", "period_grid", "polish", "he
            "Interrupted"]
 
 log = logging.getLogger(__name__)
-#: Period grid points per chunk of the linear search (bounds memory; a stop request is checked per chunk).
-PERIOD_CHUNK = 200
+#: Most grid points x epochs per chunk of the linear search (bounds memory; a stop request is checked per chunk).
+CHUNK_ELEMENTS = 2_000_000
 
 
 @dataclass
@@ -163,10 +163,12 @@ def _companion_search(post: LogPosterior, comp, max_periods: int, stop_flag=None
     E_ = eccs[None, :, None, None]
     M0 = m0s[None, None, :, None]
     # grid axes: (period, ecc, m0); the period axis in chunks
-    for lo_k in range(0, periods.size, PERIOD_CHUNK):
+    n_t = (0 if ab is None else ab.t.size) + (0 if rows is None else int(rows.sum()))
+    per_chunk = max(1, CHUNK_ELEMENTS // max(eccs.size * m0s.size * n_t, 1))
+    for lo_k in range(0, periods.size, per_chunk):
         if _stopped(stop_flag):
             return None, int(chi2.size)
-        sl = slice(lo_k, min(lo_k + PERIOD_CHUNK, periods.size))
+        sl = slice(lo_k, min(lo_k + per_chunk, periods.size))
         P = periods[sl, None, None, None]
         if ab is not None:
             t = ab.t
@@ -478,8 +480,8 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
                 theta = _best_prior_draw(post_c, rng, theta)
             best, val = polish(post_c, theta, max_evals, stop_flag)
             results.append((val, best, combo))
-    if not results:  # stopped during the search: the best of some prior draws
-        theta = _best_prior_draw(post, rng, space.pack(_fallback_values(space))[0])
+    if not results:  # stopped during the search: the prior centres, or the best of a few prior draws
+        theta = _best_prior_draw(post, rng, space.pack(_fallback_values(space))[0], n=4 * n_walkers)
         results.append((float(post(theta[None, :])[0]), theta, None))
     results.sort(key=lambda r: -r[0])
     best_val, best, _ = results[0]
@@ -503,8 +505,12 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
             if all(abs(math.log(periods[n] / float(there[f"{n}.period_yr"][0]))) < 0.02 for n in names):
                 continue
             others.append({"delta_log_posterior": float(best_val - val), "period_yr": periods})
-    cov = hessian_covariance(final, best)
-    walkers = _scatter(final, best, cov, n_walkers, rng)
+    if interrupted:  # keep the stop prompt: no Hessian, one round of draws about the best point
+        cov = np.diag((0.01 * np.maximum(1.0, np.abs(best))) ** 2)
+        walkers = _scatter(final, best, cov, n_walkers, rng, max_tries=1)
+    else:
+        cov = hessian_covariance(final, best)
+        walkers = _scatter(final, best, cov, n_walkers, rng)
     log.info("initialised at log posterior %.3f (%d grid points, %d competing modes%s)",
              best_val, n_grid, len(others), ", interrupted" if interrupted else "")
     return InitialSolution(walkers=walkers, best=best, best_log_post=float(best_val),
@@ -543,21 +549,23 @@ def _fallback_values(space) -> dict:
     return _assemble(space, [values], {"distance_pc": [], "mass_direct": [], "a_mas": []}, {})
 
 
-def _best_prior_draw(post, rng, theta):
-    """The best of 2000 prior draws when ``theta`` has no finite posterior (nudge into the prior support)."""
-    prior_draws = post.space.sample_prior(rng, 2000)
+def _best_prior_draw(post, rng, theta, n: int = 2000):
+    """``theta`` if its posterior is finite, else the best of ``n`` prior draws (nudge into the prior support)."""
+    if np.isfinite(post(theta[None, :])[0]):
+        return theta
+    prior_draws = post.space.sample_prior(rng, n)
     lp = post(prior_draws)
     if np.isfinite(lp).any():
         return prior_draws[int(np.argmax(lp))]
     return theta
 
 
-def _scatter(post, best, cov, n_walkers, rng):
+def _scatter(post, best, cov, n_walkers, rng, max_tries: int = 50):
     d = best.size
     out = []
     scale = 1.0
     tries = 0
-    while len(out) < n_walkers and tries < 50:
+    while len(out) < n_walkers and tries < max_tries:
         tries += 1
         draws = rng.multivariate_normal(best, cov * scale, size=4 * n_walkers, method="eigh")
         draws = post.space.wrap_angles(draws)
