@@ -24,6 +24,7 @@ import pandas as pd
 from orbitmass.exceptions import InputError, NotFittedError
 from orbitmass.inference import pipeline
 from orbitmass.inference.sampler import SamplerOptions
+from orbitmass.io.rundir import load_run, save_run, write_products
 from orbitmass.io.target import read_target
 from orbitmass.model.data import Target
 from orbitmass.results import COLUMN_DOC, Results, quantile_block
@@ -155,7 +156,7 @@ class Fit:
 
     def corner(self, **kwargs):
         """Corner plot of the key parameters (see :func:`orbitmass.outputs.plots.corner_figure`)."""
-        from orbitmass.outputs.plots import corner_figure
+        from orbitmass.outputs.plots import corner_figure  # matplotlib only when a figure is asked for
 
         return corner_figure(self.results, **kwargs)
 
@@ -173,8 +174,6 @@ class Fit:
 
     def report(self, out_dir: str | Path) -> Path:
         """Write figures, tables, report.md and report.html into ``out_dir``; returns the report path."""
-        from orbitmass.io.rundir import write_products
-
         return write_products(self.results, Path(out_dir))
 
     def save(self, out_dir: str | Path, *, overwrite: bool = False) -> Path:
@@ -185,15 +184,11 @@ class Fit:
         RunFolderError
             When ``out_dir`` exists, is not empty and ``overwrite`` is False.
         """
-        from orbitmass.io.rundir import save_run
-
         return save_run(self.results, Path(out_dir), overwrite=overwrite)
 
 
 def load(run_dir: str | Path) -> Fit:
     """A :class:`Fit` from a saved run folder, without refitting."""
-    from orbitmass.io.rundir import load_run
-
     fit = Fit(seed=None)
     fit.results_ = load_run(Path(run_dir))
     fit.seed = fit.results_.summary.get("provenance", {}).get("seed")

@@ -577,7 +577,8 @@ def expand(post: LinearAstrometryPosterior, theta_lin: NDArray[np.float64],
     -------
     theta_full : ndarray, shape (n, space.ndim)
         The draws in the full :class:`ParameterSpace` layout (angles not yet
-        put in their windows: call ``space.set_centres`` / ``space.wrap_angles``).
+        put in their windows: ``space.with_windows(space.windows_from(theta))``
+        makes a space whose ``wrap_angles`` does it).
     log_weights : ndarray, shape (n,)
         ``ln g - ln h``; ``-inf`` outside the mass prior or where the normal
         matrix is singular.
