@@ -117,6 +117,18 @@ class VelocityBlock:
         self.inst = np.array([lookup[str(n)] for n in vel.instrument], dtype=int)
         self.used = sorted(set(self.inst.tolist()))
 
+    def log_likelihood(self, model_rv, phys, instrument_names) -> NDArray[np.float64]:
+        """Gaussian log-likelihood (variance sigma^2 + jitter^2) of model velocities (n_sets, n_rows).
+
+        ``model_rv`` excludes the instrument offsets, which (like the jitter)
+        are read from ``phys`` (``offset.<name>``, ``jitter.<name>``).
+        """
+        offsets = np.stack([phys[f"offset.{n}"] for n in instrument_names], axis=1)
+        jitter = np.stack([phys[f"jitter.{n}"] for n in instrument_names], axis=1)
+        resid = self.rv[None, :] - model_rv - offsets[:, self.inst]
+        var = self.var[None, :] + jitter[:, self.inst] ** 2
+        return -0.5 * np.sum(resid * resid / var + np.log(var) + LOG_2PI, axis=1)
+
 
 def data_blocks(space: ParameterSpace) -> tuple[dict[str, AstrometryBlock], dict[str, VelocityBlock]]:
     """The astrometry and velocity blocks of every companion of ``space.target`` that has such rows."""
@@ -261,6 +273,16 @@ class LogPosterior:
         self.companion_names = [c.name for c in space.target.companions]
         self.n_sets = 0
 
+    @property
+    def astro(self) -> dict[str, AstrometryBlock]:
+        """Alias of :attr:`astrometry` (the former attribute name)."""
+        return self.astrometry
+
+    @property
+    def vel(self) -> dict[str, VelocityBlock]:
+        """Alias of :attr:`velocities` (the former attribute name)."""
+        return self.velocities
+
     def with_space(self, space: ParameterSpace) -> LogPosterior:
         """A posterior of the same data for another space of the same target (e.g. other angle windows)."""
         return LogPosterior(space, blocks=(self.astrometry, self.velocities))
@@ -302,13 +324,6 @@ class LogPosterior:
             if ab is not None:
                 ll += ab.log_likelihood(pred["east_mas"], pred["north_mas"])
             if vb is not None:
-                ll += self._vel_ll(vb, pred["rv_kms"], phys)
+                ll += vb.log_likelihood(pred["rv_kms"], phys, self.space.instrument_names)
         return ll
 
-    def _vel_ll(self, vb: VelocityBlock, model_rv, phys):
-        names = self.space.instrument_names
-        offsets = np.stack([phys[f"offset.{names[i]}"] for i in range(len(names))], axis=1)
-        jitter = np.stack([phys[f"jitter.{names[i]}"] for i in range(len(names))], axis=1)
-        resid = vb.rv[None, :] - model_rv - offsets[:, vb.inst]
-        var = vb.var[None, :] + jitter[:, vb.inst] ** 2
-        return -0.5 * np.sum(resid * resid / var + np.log(var) + LOG_2PI, axis=1)
