@@ -43,6 +43,10 @@ computes windows centred on some draws and :meth:`ParameterSpace.with_windows`
 returns a new space that uses them (the initial search does this, and a
 :class:`~orbitmass.results.Results` holds the final space).
 
+The module is longer than the 600-line guide: layout, priors, unpacking,
+packing and windows of the one sampled vector belong together (each is the
+inverse or the density of another).
+
 Model terms (:mod:`orbitmass.core.orbit`) are carried as ``space.terms``; each
 parameter a term declares is a sampled variable of that name (kind
 ``"linear"``, with the prior given in ``term_priors``) or fixed when its prior
