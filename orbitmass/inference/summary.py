@@ -19,6 +19,13 @@ from orbitmass.results import COLUMN_DOC, quantile_block
 __all__ = ["build_summary"]
 
 
+def _nanmax(x) -> float:
+    """``np.nanmax`` without its warning: NaN when every value is NaN (a run stopped after a few steps)."""
+    x = np.asarray(x, dtype=float)
+    keep = ~np.isnan(x)
+    return float(np.max(x[keep])) if keep.any() else float("nan")
+
+
 def build_summary(target, space, samples, run, init, seed: int, wall: float) -> dict:
     """The content of ``summary.json``.
 
@@ -68,8 +75,8 @@ def build_summary(target, space, samples, run, init, seed: int, wall: float) -> 
         "n_samples": int(len(samples)),
         "ess_min": float(np.min(run.ess)) if len(run.ess) else float("nan"),
         "ess_mass": float(run.ess[mass_idx]) if mass_idx is not None else None,
-        "tau_max": float(np.nanmax(run.tau)) if len(run.tau) else float("nan"),
-        "rhat_max": float(np.nanmax(run.rhat)) if len(run.rhat) else float("nan"),
+        "tau_max": _nanmax(run.tau),
+        "rhat_max": _nanmax(run.rhat),
         "acceptance_fraction": float(run.acceptance_fraction),
         "wall_seconds": float(wall),
         "sampling_seconds": float(run.sampling_seconds),
