@@ -1,4 +1,9 @@
-"""The Fit object: options in, ``fit(target)`` -> self; plots and reports delegated.
+"""The Fit object: options in, ``fit(target)`` -> self; sampling, plots and reports delegated.
+
+``Fit.fit`` validates the target and the options and hands the work to
+:func:`orbitmass.inference.pipeline.run_fit` (both sampling paths, resume,
+checkpoints); ``summary.json`` is built by
+:func:`orbitmass.inference.summary.build_summary`.
 
 Examples
 --------
@@ -11,33 +16,24 @@ Examples
 from __future__ import annotations
 
 import logging
-import math
 import time
-from datetime import datetime, timezone
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
-from orbitmass._version import software_versions
-from orbitmass.core.cosmology import redshift_distance_pc
 from orbitmass.exceptions import InputError, NotFittedError
+from orbitmass.forecast.predict import predict as forecast_predict
+from orbitmass.inference import pipeline
+from orbitmass.inference.quality import issue_warnings
+from orbitmass.inference.sampler import SamplerOptions
+from orbitmass.io.rundir import load_run, save_run, write_products
+from orbitmass.io.target import read_target
 from orbitmass.model.data import Target
-from orbitmass.model.parameters import priors_used
-from orbitmass.results import COLUMN_DOC, Results, derive_samples, prior_dominated, quantile_block
+from orbitmass.results import COLUMN_DOC, Results, quantile_block
 
 __all__ = ["Fit", "load"]
 
 log = logging.getLogger(__name__)
-
-
-class _ResumedInit:
-    """What the initialisation found, as recorded in a checkpoint."""
-
-    def __init__(self, meta: dict):
-        self.best_log_post = float(meta.get("init_best_log_posterior", float("nan")))
-        self.other_modes = list(meta.get("other_modes", []))
-        self.n_grid = int(meta.get("n_grid", 0))
 
 
 class Fit:
@@ -96,6 +92,16 @@ class Fit:
     def fit(self, target: str | Path | Target, *, stop_flag=None) -> Fit:
         """Read ``target`` (a target file or a :class:`Target`) and sample its posterior.
 
+        The work is done by :func:`orbitmass.inference.pipeline.run_fit`.
+
+        Parameters
+        ----------
+        target : path or Target
+        stop_flag : callable, optional
+            Returns True when the fit should stop (e.g. after SIGINT); the
+            initial search, the polish, the fast path and the sampler check
+            it, and the result is then marked ``interrupted``.
+
         Returns
         -------
         Fit
@@ -106,23 +112,10 @@ class Fit:
         InputError
             On malformed input (nothing is sampled).
         """
-        from orbitmass.inference.initialise import initialise_walkers
-        from orbitmass.inference.quality import issue_warnings
-        from orbitmass.inference.sampler import SamplerOptions, run_sampler
-        from orbitmass.model.likelihood import LogPosterior
-        from orbitmass.model.parameters import ParameterSpace
-
         t0 = time.perf_counter()
         if not isinstance(target, Target):
-            from orbitmass.io.target import read_target
-
             target = read_target(target)
-        z = target.distance.redshift
-        d_fixed = redshift_distance_pc(z, target.distance.cosmology) if z is not None else None
-        space = ParameterSpace(target, redshift_distance_pc=d_fixed)
-        post = LogPosterior(space)
-        seed = self.seed if self.seed is not None else int(np.random.SeedSequence().entropy % (2**31))
-        rng = np.random.default_rng(seed)
+        space = pipeline.build_space(target)
         n_walkers = self.n_walkers or max(64, 4 * space.ndim)
         n_walkers += n_walkers % 2
         if n_walkers < 2 * space.ndim:
@@ -130,172 +123,12 @@ class Fit:
                              f"use at least {2 * space.ndim}", key="walkers")
         options = SamplerOptions(max_steps=self.max_steps, min_steps=min(self.min_steps, self.max_steps),
                                  progress=self.progress)
-        if self.linear and not self.resume:  # fast enough that it needs no checkpoint
-            lin = self._fit_linear(space, rng, options, stop_flag)
-            if lin is not None:
-                theta, lp = lin["theta"], lin["log_post"]
-                run, init = lin["run"], lin["init"]
-                samples = derive_samples(space, theta, lp)
-                summary = self._summary(target, space, samples, run, init, seed, time.perf_counter() - t0)
-                diag = summary["diagnostics"]
-                diag["linear_path"] = lin["diagnostics"]
-                if not math.isfinite(diag["acceptance_fraction"]):
-                    diag["acceptance_fraction"] = None  # importance sampling: no chain, no acceptance
-                if "n_steps_3d" in lin["diagnostics"]:
-                    # MCMC on the three variables: its step counts (the stored chain is thinned
-                    # to the retained stride); after importance sampling there are no steps
-                    diag["n_steps"] = lin["diagnostics"]["n_steps_3d"]
-                    diag["burn"] = lin["diagnostics"]["burn_3d"]
-                    diag["thin"] = lin["diagnostics"]["thin_3d"]
-                info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
-                        "n_evaluations": run.n_evaluations, "sampler": "linear"}
-                summary["fit_quality"], info["residuals"] = _quality(space, theta, lp, seed)
-                self.results_ = Results(target=target, space=space, samples=samples, theta=theta,
-                                        chain=run.chain, log_prob=run.log_prob, burn=run.burn, thin=run.thin,
-                                        summary=summary, info=info)
-                issue_warnings(summary)
-                return self
-        ckpt_path = Path(self.checkpoint) if self.checkpoint is not None else None
-        backend = None
-        if self.resume:
-            from orbitmass.io.checkpoint import backend_from_checkpoint, load_checkpoint
-
-            if ckpt_path is None:
-                raise InputError("resume=True needs a checkpoint path", key="checkpoint")
-            ckpt = load_checkpoint(ckpt_path)
-            meta = ckpt["meta"]
-            if meta.get("data_sha256") != target.data_sha256 or meta.get("names") != space.names:
-                raise InputError(f"{ckpt_path}: the checkpoint belongs to other data or priors "
-                                 "(checksum or parameters differ); start a new fit instead of --resume",
-                                 file=str(ckpt_path))
-            for var in space.variables:
-                if var.name in meta["windows"]:
-                    var.centre, var.width = meta["windows"][var.name]
-            seed = int(meta["seed"])
-            backend = backend_from_checkpoint(ckpt)
-            p0 = None
-            init = _ResumedInit(meta)
-        else:
-            init = initialise_walkers(post, n_walkers, rng, max_periods=self.max_periods)
-            p0 = init.walkers
-            meta = {"seed": int(seed), "data_sha256": target.data_sha256, "names": space.names,
-                    "windows": {v.name: [v.centre, v.width] for v in space.variables if v.kind == "angle"},
-                    "init_best_log_posterior": init.best_log_post, "other_modes": init.other_modes,
-                    "n_grid": init.n_grid, "elapsed_seconds": 0.0}
-        elapsed_before = float(meta.get("elapsed_seconds", 0.0))
-        checkpoint_fn = None
-        if ckpt_path is not None:
-            from orbitmass.io.checkpoint import save_checkpoint
-
-            def checkpoint_fn(b):
-                meta["elapsed_seconds"] = elapsed_before + time.perf_counter() - t0
-                save_checkpoint(ckpt_path, b, meta)
-
-        run = run_sampler(post, p0, seed=int(rng.integers(2**31 - 1)), options=options,
-                          backend=backend, stop_flag=stop_flag, checkpoint=checkpoint_fn)
-        theta, lp = run.retained()
-        samples = derive_samples(space, theta, lp)
-        wall = time.perf_counter() - t0 + elapsed_before
-        summary = self._summary(target, space, samples, run, init, seed, wall)
-        info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
-                "n_evaluations": run.n_evaluations}
-        summary["fit_quality"], info["residuals"] = _quality(space, theta, lp, seed)
-        self.results_ = Results(target=target, space=space, samples=samples, theta=theta, chain=run.chain,
-                                log_prob=run.log_prob, burn=run.burn, thin=run.thin, summary=summary, info=info)
-        issue_warnings(summary)
+        self.results_ = pipeline.run_fit(
+            target, space, seed=pipeline.resolve_seed(self.seed), n_walkers=n_walkers, options=options,
+            max_periods=self.max_periods, checkpoint=self.checkpoint, resume=self.resume, linear=self.linear,
+            fast_walkers=self.n_walkers, stop_flag=stop_flag, t_start=t0)
+        issue_warnings(self.results_.summary)
         return self
-
-    def _fit_linear(self, space, rng, options, stop_flag):
-        """The astrometry-only fast path, or None when it does not apply or its weights are poor."""
-        from orbitmass.inference.linear import LinearPathError, applies, fit_linear
-
-        if not applies(space):
-            return None
-        try:
-            theta, lp, lin = fit_linear(space, rng, options, n_walkers=self.n_walkers,
-                                        max_periods=self.max_periods, stop_flag=stop_flag)
-        except LinearPathError as exc:
-            log.warning("astrometry-only fast path failed (%s); sampling every element instead", exc)
-            return None
-        diag = lin["diagnostics"]
-        if diag["fallback_recommended"] and not lin["run"].interrupted:
-            log.warning("astrometry-only fast path: importance weights too uneven (Kish ESS %.0f of %d); "
-                        "sampling every element instead", diag["kish_ess"], diag["n_weighted"])
-            return None
-        return {"theta": theta, "log_post": lp, **lin}
-
-    @staticmethod
-    def _summary(target, space, samples, run, init, seed, wall) -> dict:
-        from orbitmass import __version__
-        from orbitmass.core.diagnostics import walker_modes
-
-        derived = {}
-        for col in samples.columns:
-            if "." not in col and col != "log_posterior":
-                derived[col] = quantile_block(samples[col].to_numpy())
-        companions = {}
-        for comp in target.companions:
-            prefix = comp.name + "."
-            companions[comp.name] = {col[len(prefix):]: quantile_block(samples[col].to_numpy())
-                                     for col in samples.columns if col.startswith(prefix)}
-        for name, flags in prior_dominated(space).items():  # velocity-only companions (issue 11, item 6)
-            companions[name].update(flags)
-        instruments = {}
-        for name in space.instrument_names:
-            instruments[name] = {"offset_kms": quantile_block(samples[f"offset_kms.{name}"].to_numpy()),
-                                 "jitter_kms": quantile_block(samples[f"jitter_kms.{name}"].to_numpy())}
-        kept = run.chain[run.burn:]
-        modes = {}
-        for lay in space.companions:
-            idx = lay.idx.get("ln_period", -1)
-            if idx >= 0 and kept.shape[0] > 4:
-                modes[lay.name] = walker_modes(kept[:, :, idx])
-        per_param = {name: {"tau": float(run.tau[i]), "ess": float(run.ess[i]), "rhat": float(run.rhat[i])}
-                     for i, name in enumerate(space.names)}
-        mass_idx = space.index.get("ln_mass")
-        ambiguous = [c.name for c in target.companions if not space.planes[space.companions[
-            [lay.name for lay in space.companions].index(c.name)].plane]["los"]]
-        diagnostics = {
-            "converged": bool(run.converged),
-            "n_samples": int(len(samples)),
-            "ess_min": float(np.min(run.ess)) if len(run.ess) else float("nan"),
-            "ess_mass": float(run.ess[mass_idx]) if mass_idx is not None else None,
-            "tau_max": float(np.nanmax(run.tau)) if len(run.tau) else float("nan"),
-            "rhat_max": float(np.nanmax(run.rhat)) if len(run.rhat) else float("nan"),
-            "acceptance_fraction": float(run.acceptance_fraction),
-            "wall_seconds": float(wall),
-            "sampling_seconds": float(run.sampling_seconds),
-            "n_steps": int(run.n_steps),
-            "n_walkers": int(run.chain.shape[1]),
-            "burn": int(run.burn),
-            "thin": int(run.thin),
-            "n_evaluations": int(run.n_evaluations),
-            "interrupted": bool(run.interrupted),
-            "multimodal": bool(any(m > 1 for m in modes.values())),
-            "period_modes": modes,
-            "other_modes": init.other_modes,
-            "per_parameter": per_param,
-            "omega_node_ambiguous": ambiguous,
-        }
-        return {
-            "orbitmass_version": __version__,
-            "target": target.name,
-            "reference_epoch": float(target.reference_epoch),
-            "frame": target.frame,
-            "derived": derived,
-            "companions": companions,
-            "instruments": instruments,
-            "diagnostics": diagnostics,
-            "priors": priors_used(space),
-            "units": {k: v[1] for k, v in COLUMN_DOC.items()},
-            "provenance": {
-                "seed": int(seed),
-                "data_sha256": target.data_sha256,
-                "versions": software_versions(),
-                "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
-                "target_file": str(target.source),
-            },
-        }
 
     # ------------------------------------------------------------------ access
     @property
@@ -326,7 +159,7 @@ class Fit:
 
     def corner(self, **kwargs):
         """Corner plot of the key parameters (see :func:`orbitmass.outputs.plots.corner_figure`)."""
-        from orbitmass.outputs.plots import corner_figure
+        from orbitmass.outputs.plots import corner_figure  # matplotlib only when a figure is asked for
 
         return corner_figure(self.results, **kwargs)
 
@@ -348,14 +181,10 @@ class Fit:
         The ``predictions.csv`` table; see :func:`orbitmass.forecast.predict.predict`
         for the columns and ``kwargs``.
         """
-        from orbitmass.forecast.predict import predict
-
-        return predict(self.results, epochs, **kwargs)
+        return forecast_predict(self.results, epochs, **kwargs)
 
     def report(self, out_dir: str | Path) -> Path:
         """Write figures, tables, report.md and report.html into ``out_dir``; returns the report path."""
-        from orbitmass.io.rundir import write_products
-
         return write_products(self.results, Path(out_dir))
 
     def save(self, out_dir: str | Path, *, overwrite: bool = False) -> Path:
@@ -366,33 +195,11 @@ class Fit:
         RunFolderError
             When ``out_dir`` exists, is not empty and ``overwrite`` is False.
         """
-        from orbitmass.io.rundir import save_run
-
         return save_run(self.results, Path(out_dir), overwrite=overwrite)
-
-
-def _quality(space, theta, log_post, seed):
-    """Goodness of fit (``fit_quality``) and the residual table as JSON-ready columns.
-
-    A failure here must not lose a finished sampling run: it is logged and the block says
-    "poor" with the reason, so the fit is not presented as a good one.
-    """
-    from orbitmass.inference.quality import assess_fit
-
-    try:
-        fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]))
-    except (ValueError, FloatingPointError, np.linalg.LinAlgError, KeyError, IndexError) as exc:
-        log.exception("goodness of fit could not be computed")
-        reason = f"goodness of fit could not be computed ({type(exc).__name__}: {exc})"
-        return {"chi2": None, "dof": None, "reduced_chi2": None, "p_value": None, "status": "poor",
-                "datasets": {}, "reasons": [reason], "likely_causes": []}, {}
-    return fq, residuals.to_dict(orient="list")
 
 
 def load(run_dir: str | Path) -> Fit:
     """A :class:`Fit` from a saved run folder, without refitting."""
-    from orbitmass.io.rundir import load_run
-
     fit = Fit(seed=None)
     fit.results_ = load_run(Path(run_dir))
     fit.seed = fit.results_.summary.get("provenance", {}).get("seed")

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
+from orbitmass.core.orbit import thiele_innes
 from orbitmass.core.physics import (
     periastron_au,
     periastron_speed_kms,
@@ -24,12 +25,16 @@ from orbitmass.core.physics import (
     semimajor_axis_au,
 )
 from orbitmass.model.data import Target
+from orbitmass.model.likelihood import predict_system
 from orbitmass.model.parameters import ParameterSpace
 from orbitmass.model.quantities import column_doc
 from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
 
 __all__ = ["Results", "QUANTILES", "quantile_block", "derive_samples", "COLUMN_DOC", "mass_function_msun",
            "prior_dominated"]
+
+#: Largest number of (sample, epoch) pairs :meth:`Results.predict` evaluates in one block.
+PREDICT_BLOCK_ELEMENTS = 65536
 
 #: summary.json quantile keys -> probability
 QUANTILES = {"median": 0.5, "q16": 0.15865525393145707, "q84": 0.8413447460685429,
@@ -142,8 +147,6 @@ def derive_samples(space: ParameterSpace, theta: NDArray[np.float64],
     straddle the 0/360 deg cut); with the (omega, Omega) ambiguity Omega is
     reported on a half turn. Columns are listed in :data:`COLUMN_DOC`.
     """
-    from orbitmass.core.orbit import thiele_innes
-
     phys = space.unpack(theta)
     cols: dict[str, NDArray[np.float64]] = {}
     mass = phys["mass_msun"]
@@ -227,7 +230,9 @@ class Results:
     target : Target
         Data and priors that were fitted.
     space : ParameterSpace
-        Layout of the sampled vector (needed to predict from samples).
+        Layout of the sampled vector (needed to predict from samples); its
+        angle windows are final (a space without final windows is replaced by
+        an equal one whose windows are).
     samples : DataFrame
         Retained samples, one row each; columns as :data:`COLUMN_DOC`.
     theta : ndarray, shape (n_samples, n_dim)
@@ -254,6 +259,11 @@ class Results:
     summary: dict
     info: dict = field(default_factory=dict)
 
+    def __post_init__(self) -> None:
+        # the angle windows of the space a Results holds are final (immutable)
+        if not self.space.windows_final:
+            object.__setattr__(self, "space", self.space.with_windows(self.space.windows))
+
     @property
     def companion_names(self) -> list[str]:
         """Names of the companions, in target order."""
@@ -273,7 +283,9 @@ class Results:
         companion : str
             Companion name.
         t_astro, t_vel : ndarray, optional
-            Julian-year epochs for positions and velocities.
+            Julian-year epochs for positions and velocities: shape
+            (n_epochs,) for the same epochs for every sample, or
+            (n_rows, n_epochs) for epochs of each sample's own.
         central : bool
             Velocities of the central body instead of the companion.
         rows : ndarray of int, optional
@@ -284,18 +296,31 @@ class Results:
         dict
             ``east_mas``, ``north_mas`` (frame of the data) and ``rv_kms``
             (barycentric, systemic included, no instrument offset), each of
-            shape (n_rows, n_epochs).
+            shape (n_rows, n_epochs). One vectorised evaluation of
+            :func:`orbitmass.core.orbit.evaluate` for all rows (no posterior
+            object is built).
         """
-        from orbitmass.model.likelihood import LogPosterior
-
-        theta = self.theta if rows is None else self.theta[rows]
-        post = LogPosterior(self.space)
-        phys = self.space.unpack(theta)
-        phys["_companions"] = self.companion_names
+        theta = self.theta if rows is None else self.theta[np.asarray(rows)]
+        ta = None if t_astro is None else np.asarray(t_astro, float)
         tv = None if t_vel is None else np.asarray(t_vel, float)
-        central_rows = None if tv is None else np.full(tv.size, bool(central))
-        return post.predict(phys, companion, t_astro=None if t_astro is None else np.asarray(t_astro, float),
-                            t_vel=tv, central_rows=central_rows)
+        central_rows = None if tv is None else np.full(tv.shape[-1], bool(central))
+        n_epochs = (0 if ta is None else ta.shape[-1]) + (0 if tv is None else tv.shape[-1])
+        # rows in blocks that keep the work arrays small (cache-sized): faster than one huge block
+        step = max(1, PREDICT_BLOCK_ELEMENTS // max(n_epochs, 1))
+        out: dict[str, NDArray[np.float64]] = {}
+        for k in range(0, max(theta.shape[0], 1), step):
+            sl = slice(k, k + step)
+            part = predict_system(
+                self.space, self.space.unpack(theta[sl]), companion,
+                t_astro=None if ta is None else (ta[sl] if ta.ndim == 2 else ta),
+                t_vel=None if tv is None else (tv[sl] if tv.ndim == 2 else tv), central_rows=central_rows)
+            if step >= theta.shape[0]:
+                return part
+            for key, val in part.items():
+                if key not in out:
+                    out[key] = np.empty((theta.shape[0], val.shape[1]))
+                out[key][sl] = val
+        return out
 
     def velocity_offsets(self) -> dict[str, float]:
         """Posterior-median zero-point offset (km/s) of every instrument."""

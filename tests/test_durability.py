@@ -48,8 +48,12 @@ def stop_after(n):
     count = {"n": 0}
 
     def flag():
+        # the initial search polls the flag too; only the sampler's polls (one after each
+        # stored step) are counted, so this stops the chain after n steps
+        if sys._getframe(1).f_code.co_name != "run_sampler":
+            return False
         count["n"] += 1
-        return count["n"] >= n  # checked after each stored step: stops after n steps
+        return count["n"] >= n
 
     return flag
 

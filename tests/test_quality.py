@@ -80,8 +80,9 @@ def truth_theta(space):
               "B.ecc": TRUTH.eccentricity, "B.omega": math.radians(TRUTH.arg_periastron_deg),
               "B.cos_i": math.cos(math.radians(TRUTH.inclination_deg)),
               "B.node": math.radians(TRUTH.ascending_node_deg), "B.m0": m0}
-    space.set_centres(space.pack(values))
-    return space.pack(values)
+    if not space.windows_final:  # a fresh space: centre its angle windows on the truth
+        space.set_centres(space.pack(values))
+    return space.pack(values)  # a fitted space keeps its windows; pack wraps the angles into them
 
 
 def quiet_fit(path, **kw):

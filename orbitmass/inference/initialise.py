@@ -9,17 +9,31 @@ Method (stated in the README and the report):
    Thiele-Innes constants (A, B, F, G) and the velocities are linear in
    (C, H) and the instrument zero points. Weighted linear least squares
    gives chi^2 at every grid point (Lucy 2014, A&A 563, A126, uses the same
-   separation).
+   separation). The design matrices are the Keplerian basis of
+   :func:`orbitmass.core.orbit.kepler_basis`; model terms are left out of the
+   search (it only finds a start; the polish and the sampler use the full
+   model). The period axis is processed in chunks, and a stop request is
+   honoured between chunks.
 2. **Candidates.** The best grid points at distinct periods are turned into
    Campbell elements (the classical Thiele-Innes inversion; the velocity
    solution fixes the (omega, Omega) ambiguity and, with the astrometric
    size, the distance), then mass by Kepler III.
-3. **Optimisation.** Each candidate is polished by maximising the full log
-   posterior (Powell's method); the best wins, and other solutions within
-   ``10`` in log posterior are reported as competing period modes.
+3. **Optimisation.** Each candidate, with angle windows centred on it, is
+   polished by maximising the full log posterior (BFGS with a vectorised
+   central-difference gradient, :func:`polish`); the best wins, and other
+   solutions within ``10`` in log posterior are reported as competing
+   period modes. The best is polished once more with windows centred on it:
+   these are the final windows (:attr:`InitialSolution.windows`), from which
+   the caller makes the space it samples
+   (:meth:`~orbitmass.model.parameters.ParameterSpace.with_windows`). The
+   space passed in is never changed.
 4. **Walkers.** Drawn from a Gaussian around the optimum with the inverse of
-   a finite-difference Hessian as covariance (the Laplace approximation),
-   keeping only draws of finite posterior.
+   a finite-difference Hessian as covariance (the Laplace approximation,
+   :func:`hessian_covariance`), keeping only draws of finite posterior.
+
+A stop request (``stop_flag``, e.g. after SIGINT) ends the search and the
+polish early; walkers are then scattered about the best point so far and the
+solution is marked ``interrupted``.
 """
 
 from __future__ import annotations
@@ -33,29 +47,48 @@ from numpy.typing import NDArray
 from scipy import optimize
 
 from orbitmass.core.elements import thiele_innes_to_campbell
-from orbitmass.core.kepler import kepler_cos_sin
+from orbitmass.core.orbit import TWO_PI, kepler_basis
 from orbitmass.core.physics import mass_msun as kepler_mass
 from orbitmass.model.likelihood import LogPosterior
+from orbitmass.model.parameters import AngleWindows
 from orbitmass.units import KMS_PER_AU_PER_YR
 
-__all__ = ["initialise_walkers", "InitialSolution"]
+__all__ = ["initialise_walkers", "InitialSolution", "period_grid", "polish", "hessian_covariance",
+           "Interrupted"]
 
 log = logging.getLogger(__name__)
-TWO_PI = 2.0 * math.pi
+#: Most grid points x epochs per chunk of the linear search (bounds memory; a stop request is checked per chunk).
+CHUNK_ELEMENTS = 2_000_000
 
 
 @dataclass
 class InitialSolution:
-    """Result of the initialisation: the walkers and what the search found."""
+    """Result of the initialisation: the walkers and what the search found.
+
+    ``windows`` are the angle windows the walkers and ``best`` are wrapped in
+    (None for searches without angle variables, e.g. the fast path's 3-D
+    posterior); ``interrupted`` is True when a stop request cut the search or
+    the polish short.
+    """
 
     walkers: NDArray[np.float64]
     best: NDArray[np.float64]
     best_log_post: float
     other_modes: list[dict]
     n_grid: int
+    windows: AngleWindows | None = None
+    interrupted: bool = False
 
 
-def _period_grid(t: NDArray[np.float64], prior, one_plus_z: float, max_periods: int) -> NDArray[np.float64]:
+class Interrupted(Exception):
+    """Raised inside an optimisation when the stop flag is set (carries nothing; caught here)."""
+
+
+def _stopped(stop_flag) -> bool:
+    return stop_flag is not None and bool(stop_flag())
+
+
+def period_grid(t: NDArray[np.float64], prior, one_plus_z: float, max_periods: int) -> NDArray[np.float64]:
     baseline = float(np.ptp(t)) if t.size > 1 else 1.0
     baseline = max(baseline, 1e-3)
     low, high = prior.support
@@ -75,7 +108,7 @@ def _period_grid(t: NDArray[np.float64], prior, one_plus_z: float, max_periods: 
     return 1.0 / np.linspace(f_hi, f_lo, n_f)
 
 
-def _weighted_lsq(design, y, w):
+def weighted_lsq(design, y, w):
     """Batched weighted least squares. design (..., n, k), y (n,), w (n,) -> coef (..., k), chi2 (...)."""
     dw = design * w[:, None]
     normal = np.einsum("...nk,...nl->...kl", dw, design)
@@ -88,11 +121,11 @@ def _weighted_lsq(design, y, w):
     return coef, chi2
 
 
-def _companion_search(post: LogPosterior, comp, max_periods: int, rng: np.random.Generator):
-    """Grid search for one companion; returns candidate element dicts sorted by chi^2."""
+def _companion_search(post: LogPosterior, comp, max_periods: int, stop_flag=None):
+    """Grid search for one companion; returns candidate element dicts sorted by chi^2, and the grid size."""
     space = post.space
-    ab = post.astro.get(comp.name)
-    vb = post.vel.get(comp.name)
+    ab = post.astrometry.get(comp.name)
+    vb = post.velocities.get(comp.name)
     ts = []
     if ab is not None:
         ts.append(ab.t)
@@ -100,7 +133,7 @@ def _companion_search(post: LogPosterior, comp, max_periods: int, rng: np.random
         ts.append(vb.t)
     t_all = np.concatenate(ts)
     pr = comp.priors
-    periods = _period_grid(t_all, pr["period"], space.one_plus_z, max_periods)
+    periods = period_grid(t_all, pr["period"], space.one_plus_z, max_periods)
     ecc_prior = pr["eccentricity"]
     if ecc_prior.fixed:
         eccs = np.array([float(ecc_prior.value)])
@@ -111,46 +144,59 @@ def _companion_search(post: LogPosterior, comp, max_periods: int, rng: np.random
             eccs = np.array([0.5 * (lo + hi)])
     n_m0 = 12 if eccs.size > 1 else 16
     m0s = np.linspace(0.0, TWO_PI, n_m0, endpoint=False)
-    # grid axes: (period, ecc, m0)
-    P = periods[:, None, None]
-    E_ = eccs[None, :, None]
-    M0 = m0s[None, None, :]
-    chi2 = np.zeros((periods.size, eccs.size, m0s.size))
-    coef_ast = coef_rv = None
+    shape = (periods.size, eccs.size, m0s.size)
+    chi2 = np.zeros(shape)
     absolute = post.absolute
+    n_ast = 4 if absolute else 2
+    coef_n = coef_e = coef_v = None
+    rv_insts: list[int] = []
     if ab is not None:
-        east, north = _approx_east_north(ab)
-        we, wn = _approx_weights(ab)
-        t = ab.t
-        mean = M0[..., None] + (TWO_PI / P[..., None]) * (t - space.t_ref)
-        cE, sE = kepler_cos_sin(mean, E_[..., None])
-        X = cE - E_[..., None]
-        Y = np.sqrt(1 - E_[..., None] ** 2) * sE
-        cols = [X, Y]
-        if absolute:
-            ones = np.broadcast_to(np.ones_like(t), X.shape)
-            cols += [ones, np.broadcast_to(t - space.t_ref, X.shape)]
-        design = np.stack(cols, axis=-1)
-        cn, chin = _weighted_lsq(design, north, wn)
-        ce, chie = _weighted_lsq(design, east, we)
-        chi2 += chin + chie
-        coef_ast = (cn, ce)
-    if vb is not None:
+        east, north = ab.east_north()
+        we, wn = ab.diagonal_weights()
+        coef_n, coef_e = np.zeros(shape + (n_ast,)), np.zeros(shape + (n_ast,))
+    rows = None
+    if vb is not None and vb.companion_rows.any():
         rows = vb.companion_rows
-        if rows.any():
-            t = vb.t[rows]
-            mean = M0[..., None] + (TWO_PI / P[..., None]) * (t - space.t_ref)
-            cE, sE = kepler_cos_sin(mean, E_[..., None])
-            root = np.sqrt(1 - E_[..., None] ** 2)
-            rate = (TWO_PI * KMS_PER_AU_PER_YR * space.one_plus_z / P[..., None]) / (1 - E_[..., None] * cE)
-            cols = [-rate * sE, rate * root * cE]
-            insts = vb.inst[rows]
-            for i in sorted(set(insts.tolist())):
-                cols.append(np.broadcast_to((insts == i).astype(float), cE.shape))
+        insts = vb.inst[rows]
+        rv_insts = sorted(set(insts.tolist()))
+        coef_v = np.zeros(shape + (2 + len(rv_insts),))
+    E_ = eccs[None, :, None, None]
+    M0 = m0s[None, None, :, None]
+    # grid axes: (period, ecc, m0); the period axis in chunks
+    n_t = (0 if ab is None else ab.t.size) + (0 if rows is None else int(rows.sum()))
+    per_chunk = max(1, CHUNK_ELEMENTS // max(eccs.size * m0s.size * n_t, 1))
+    for lo_k in range(0, periods.size, per_chunk):
+        if _stopped(stop_flag):
+            return None, int(chi2.size)
+        sl = slice(lo_k, min(lo_k + per_chunk, periods.size))
+        P = periods[sl, None, None, None]
+        if ab is not None:
+            t = ab.t
+            basis = kepler_basis(t, t_ref_yr=space.t_ref, period_obs_yr=P, ecc=E_, mean_anomaly_ref=M0,
+                                 velocities=False)
+            cols = [basis.X, basis.Y]
+            if absolute:
+                ones = np.broadcast_to(np.ones_like(t), basis.X.shape)
+                cols += [ones, np.broadcast_to(t - space.t_ref, basis.X.shape)]
             design = np.stack(cols, axis=-1)
-            crv, chirv = _weighted_lsq(design, vb.rv[rows], 1.0 / vb.var[rows])
-            chi2 += chirv
-            coef_rv = (crv, sorted(set(insts.tolist())))
+            cn, chin = weighted_lsq(design, north, wn)
+            ce, chie = weighted_lsq(design, east, we)
+            chi2[sl] += chin + chie
+            coef_n[sl], coef_e[sl] = cn, ce
+        if rows is not None:
+            t = vb.t[rows]
+            basis = kepler_basis(t, t_ref_yr=space.t_ref, period_obs_yr=P, ecc=E_, mean_anomaly_ref=M0)
+            # v_z = n_rest (C dX/dM + H dY/dM), n_rest = 2 pi (1 + z) / P_obs (core.orbit docstring)
+            rate = TWO_PI * KMS_PER_AU_PER_YR * space.one_plus_z / P
+            cols = [rate * basis.dX, rate * basis.dY]
+            for i in rv_insts:
+                cols.append(np.broadcast_to((insts == i).astype(float), basis.dX.shape))
+            design = np.stack(cols, axis=-1)
+            crv, chirv = weighted_lsq(design, vb.rv[rows], 1.0 / vb.var[rows])
+            chi2[sl] += chirv
+            coef_v[sl] = crv
+    coef_ast = None if coef_n is None else (coef_n, coef_e)
+    coef_rv = None if coef_v is None else (coef_v, rv_insts)
     flat = np.argsort(chi2, axis=None)
     cands = []
     used_lnp: list[float] = []
@@ -177,22 +223,6 @@ def _companion_search(post: LogPosterior, comp, max_periods: int, rng: np.random
         if len(cands) >= 6:
             break
     return cands, int(chi2.size)
-
-
-def _approx_east_north(ab):
-    east = np.where(ab.polar, ab.v1 * np.sin(np.deg2rad(ab.v2)), ab.v1)
-    north = np.where(ab.polar, ab.v1 * np.cos(np.deg2rad(ab.v2)), ab.v2)
-    return east, north
-
-
-def _approx_weights(ab):
-    # diagonal weights: correlation ignored in the search (only the start depends on it)
-    s1 = 1.0 / np.sqrt(ab.w11 * (1.0 - 0.0))
-    s2 = 1.0 / np.sqrt(ab.w22)
-    sig_pol = np.sqrt(s1 * s1 + (np.deg2rad(s2) * ab.v1) ** 2)
-    se = np.where(ab.polar, sig_pol, s1)
-    sn = np.where(ab.polar, sig_pol, s2)
-    return 1.0 / se**2, 1.0 / sn**2
 
 
 def _prior_centre(prior) -> float:
@@ -302,16 +332,20 @@ def _assemble(space, per_comp_values, mass_dist, extra):
     return values
 
 
-def _polish(post: LogPosterior, theta0: NDArray[np.float64], max_evals: int) -> tuple[NDArray, float]:
+def polish(post, theta0: NDArray[np.float64], max_evals: int, stop_flag=None) -> tuple[NDArray, float]:
     """Maximise the log posterior from ``theta0``: BFGS with a vectorised central-difference gradient.
 
     One batched posterior call gives the value and the whole gradient, so an
     iteration costs about one vectorised evaluation of 2 n_dim + 1 points.
+    ``post`` is any vectorised log density. When ``stop_flag()`` becomes
+    true the best point so far is returned (checked at every evaluation).
     """
     d = theta0.size
     big = 1e30
 
     def value_and_grad(x):
+        if _stopped(stop_flag):
+            raise Interrupted
         h = 1e-6 * np.maximum(1.0, np.abs(x))
         pts = np.repeat(x[None, :], 2 * d + 1, axis=0)
         idx = np.arange(d)
@@ -328,10 +362,24 @@ def _polish(post: LogPosterior, theta0: NDArray[np.float64], max_evals: int) -> 
         return -f0, -grad
 
     best = np.array(theta0, dtype=float)
-    best_val = value_and_grad(best)[0]
+    try:
+        best_val = value_and_grad(best)[0]
+    except Interrupted:
+        return best, float(post(best[None, :])[0])
+    seen = {"x": best, "f": best_val}
+
+    def tracked(x):
+        f, g = value_and_grad(x)
+        if f < seen["f"]:
+            seen["x"], seen["f"] = np.array(x, dtype=float), f
+        return f, g
+
     for _ in range(3):
-        res = optimize.minimize(value_and_grad, best, jac=True, method="BFGS",
-                                options={"maxiter": max_evals, "gtol": 1e-6})
+        try:
+            res = optimize.minimize(tracked, best, jac=True, method="BFGS",
+                                    options={"maxiter": max_evals, "gtol": 1e-6})
+        except Interrupted:
+            return seen["x"], -seen["f"]
         if np.isfinite(res.fun) and res.fun < best_val - 1e-7:
             gain = best_val - res.fun
             best, best_val = res.x, res.fun
@@ -342,8 +390,8 @@ def _polish(post: LogPosterior, theta0: NDArray[np.float64], max_evals: int) -> 
     return best, -best_val
 
 
-def _hessian_cov(post: LogPosterior, x0: NDArray[np.float64]) -> NDArray[np.float64]:
-    """Covariance from a vectorised central-difference Hessian of the log posterior."""
+def hessian_covariance(post, x0: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Covariance from a vectorised central-difference Hessian of the log density ``post`` at ``x0``."""
     d = x0.size
     h = 1e-4 * np.maximum(1.0, np.abs(x0))
     h = np.minimum(h, 1e-3)
@@ -377,67 +425,76 @@ def _hessian_cov(post: LogPosterior, x0: NDArray[np.float64]) -> NDArray[np.floa
 
 
 def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Generator, *,
-                       max_periods: int = 3000, max_evals: int = 2000) -> InitialSolution:
+                       max_periods: int = 3000, max_evals: int = 2000, stop_flag=None) -> InitialSolution:
     """Find the posterior mode from scratch and scatter ``n_walkers`` around it.
 
     Parameters
     ----------
     post : LogPosterior
+        The posterior; its space is not changed (the final windows are returned).
     n_walkers : int
     rng : numpy.random.Generator
     max_periods : int
         Most period grid points per companion in the linear search.
     max_evals : int
-        Posterior evaluations per Powell run.
+        Iterations per BFGS run of the polish.
+    stop_flag : callable, optional
+        Returns True when the search should stop (e.g. after SIGINT): the
+        search and polish end within about a second, walkers are scattered
+        about the best point so far and the solution says ``interrupted``.
 
     Returns
     -------
     InitialSolution
+        Walkers and best point wrapped in ``windows``; sample with
+        ``post.with_space(post.space.with_windows(solution.windows))``.
     """
     space = post.space
     searches = []
     n_grid = 0
+    interrupted = False
     for comp in space.target.companions:
-        cands, ng = _companion_search(post, comp, max_periods, rng)
+        cands, ng = _companion_search(post, comp, max_periods, stop_flag)
         n_grid += ng
+        if cands is None:
+            interrupted = True
+            break
         searches.append((comp, cands))
-    # combinations: best candidate for every companion, alternatives for one at a time
-    combos = [[0] * len(searches)]
-    for ci, (_, cands) in enumerate(searches):
-        for k in range(1, min(len(cands), 4)):
-            combo = [0] * len(searches)
-            combo[ci] = k
-            combos.append(combo)
     results = []
-    for combo in combos:
-        mass_dist = {"distance_pc": [], "mass_direct": [], "a_mas": []}
-        per_comp, extra = [], {}
-        for (comp, cands), k in zip(searches, combo):
-            cand = cands[k]
-            per_comp.append(_candidate_values(space, comp, cand, mass_dist))
-            for key in ("x0", "y0", "vx0", "vy0"):
-                if key in cand and key not in extra:
-                    extra[key] = cand[key]
-            if "levels" in cand and "levels" not in extra:
-                extra["levels"] = cand["levels"]
-        values = _assemble(space, per_comp, mass_dist, extra)
-        theta = space.pack(values)
-        space.set_centres(theta)
-        theta = space.wrap_angles(theta)[0]
-        if not np.isfinite(post(theta[None, :])[0]):
-            # nudge into the prior support where the linear search left it
-            prior_draws = space.sample_prior(rng, 2000)
-            lp = post(prior_draws)
-            if np.isfinite(lp).any():
-                theta = prior_draws[int(np.argmax(lp))]
-        best, val = _polish(post, theta, max_evals)
-        results.append((val, best, combo))
+    if not interrupted:
+        # combinations: best candidate for every companion, alternatives for one at a time
+        combos = [[0] * len(searches)]
+        for ci, (_, cands) in enumerate(searches):
+            for k in range(1, min(len(cands), 4)):
+                combo = [0] * len(searches)
+                combo[ci] = k
+                combos.append(combo)
+        for combo in combos:
+            if _stopped(stop_flag):
+                interrupted = True
+                break
+            theta = space.pack(_combo_values(space, searches, combo))
+            post_c = post.with_space(space.with_windows(space.windows_from(theta)))
+            theta = post_c.space.wrap_angles(theta)[0]
+            if not np.isfinite(post_c(theta[None, :])[0]):
+                theta = _best_prior_draw(post_c, rng, theta)
+            best, val = polish(post_c, theta, max_evals, stop_flag)
+            results.append((val, best, combo))
+    if not results:  # stopped during the search: the prior centres, or the best of a few prior draws
+        theta = _best_prior_draw(post, rng, space.pack(_fallback_values(space))[0], n=4 * n_walkers)
+        results.append((float(post(theta[None, :])[0]), theta, None))
     results.sort(key=lambda r: -r[0])
     best_val, best, _ = results[0]
-    # second polish with re-centred windows
-    space.set_centres(best[None, :])
-    best = space.wrap_angles(best[None, :])[0]
-    best, best_val = _polish(post, best, max_evals)
+    # second polish with windows centred on the best point: the final windows
+    windows = space.windows_from(best[None, :])
+    final = post.with_space(space.with_windows(windows))
+    best = final.space.wrap_angles(best[None, :])[0]
+    if _stopped(stop_flag):
+        interrupted = True
+        best_val = float(final(best[None, :])[0])
+    else:
+        best, best_val = polish(final, best, max_evals, stop_flag)
+        interrupted = interrupted or _stopped(stop_flag)
     others = []
     for val, theta, combo in results[1:]:
         if best_val - val < 10.0:
@@ -448,20 +505,67 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
             if all(abs(math.log(periods[n] / float(there[f"{n}.period_yr"][0]))) < 0.02 for n in names):
                 continue
             others.append({"delta_log_posterior": float(best_val - val), "period_yr": periods})
-    cov = _hessian_cov(post, best)
-    walkers = _scatter(post, best, cov, n_walkers, rng)
-    log.info("initialised at log posterior %.3f (%d grid points, %d competing modes)",
-             best_val, n_grid, len(others))
+    if interrupted:  # keep the stop prompt: no Hessian, one round of draws about the best point
+        cov = np.diag((0.01 * np.maximum(1.0, np.abs(best))) ** 2)
+        walkers = _scatter(final, best, cov, n_walkers, rng, max_tries=1)
+    else:
+        cov = hessian_covariance(final, best)
+        walkers = _scatter(final, best, cov, n_walkers, rng)
+    log.info("initialised at log posterior %.3f (%d grid points, %d competing modes%s)",
+             best_val, n_grid, len(others), ", interrupted" if interrupted else "")
     return InitialSolution(walkers=walkers, best=best, best_log_post=float(best_val),
-                           other_modes=others, n_grid=n_grid)
+                           other_modes=others, n_grid=n_grid, windows=windows, interrupted=interrupted)
 
 
-def _scatter(post, best, cov, n_walkers, rng):
+def _combo_values(space, searches, combo) -> dict:
+    """Physical values of one combination of per-companion search candidates."""
+    mass_dist = {"distance_pc": [], "mass_direct": [], "a_mas": []}
+    per_comp, extra = [], {}
+    for (comp, cands), k in zip(searches, combo):
+        cand = cands[k]
+        per_comp.append(_candidate_values(space, comp, cand, mass_dist))
+        for key in ("x0", "y0", "vx0", "vy0"):
+            if key in cand and key not in extra:
+                extra[key] = cand[key]
+        if "levels" in cand and "levels" not in extra:
+            extra["levels"] = cand["levels"]
+    return _assemble(space, per_comp, mass_dist, extra)
+
+
+def _fallback_values(space) -> dict:
+    """Prior centres of every quantity (a start when the search was stopped before any candidate)."""
+    values: dict[str, float] = {}
+    for lay in space.companions:
+        pr = space.companion(lay.name).priors
+        c = lay.name
+        values[f"{c}.period_yr"] = _prior_centre(pr["period"])
+        values[f"{c}.ecc"] = min(max(_prior_centre(pr["eccentricity"]), 0.0), 0.9)
+        values[f"{c}.omega"] = 0.0
+        values[f"{c}.node"] = 0.0
+        values[f"{c}.cos_i"] = 0.5
+        values[f"{c}.m0"] = 0.0
+        if lay.has_q:
+            values[f"{c}.q"] = _prior_centre(pr["mass_ratio"])
+    return _assemble(space, [values], {"distance_pc": [], "mass_direct": [], "a_mas": []}, {})
+
+
+def _best_prior_draw(post, rng, theta, n: int = 2000):
+    """``theta`` if its posterior is finite, else the best of ``n`` prior draws (nudge into the prior support)."""
+    if np.isfinite(post(theta[None, :])[0]):
+        return theta
+    prior_draws = post.space.sample_prior(rng, n)
+    lp = post(prior_draws)
+    if np.isfinite(lp).any():
+        return prior_draws[int(np.argmax(lp))]
+    return theta
+
+
+def _scatter(post, best, cov, n_walkers, rng, max_tries: int = 50):
     d = best.size
     out = []
     scale = 1.0
     tries = 0
-    while len(out) < n_walkers and tries < 50:
+    while len(out) < n_walkers and tries < max_tries:
         tries += 1
         draws = rng.multivariate_normal(best, cov * scale, size=4 * n_walkers, method="eigh")
         draws = post.space.wrap_angles(draws)

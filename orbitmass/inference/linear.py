@@ -10,7 +10,9 @@ eccentricity and the phase are fixed::
 So for fixed ``(P, e, M0)`` the Gaussian likelihood is a Gaussian in ``beta``
 that can be integrated exactly, and the sampler needs only three dimensions.
 This is the separation of Lucy (2014, A&A 563, A126): linear least squares in
-the Thiele-Innes constants for fixed ``P, e, T``. What follows keeps the
+the Thiele-Innes constants for fixed ``P, e, T``. The basis ``X, Y`` comes
+from :func:`orbitmass.core.orbit.kepler_basis`, the evaluator every other part
+of orbitmass uses. What follows keeps the
 posterior the one stated in the target file (the same as
 :class:`~orbitmass.model.likelihood.LogPosterior` samples), by importance weights.
 
@@ -22,7 +24,9 @@ in ``beta``); the mass prior, period prior, eccentricity prior and the phase
 prior (``mean_anomaly`` or ``periastron_time``) not fixed; the inclination prior
 ``isotropic``; the ``arg_periastron`` and ``ascending_node`` priors uniform over
 a whole turn (or more); no other sampled variable (instrument terms, systemic
-velocity). Anything else goes to the normal path.
+velocity); no model term that is not ``linear_safe`` or that changes emission
+times or the orbital plane (:mod:`orbitmass.core.orbit`). Anything else goes
+to the normal path.
 
 Sampled variables
 -----------------
@@ -138,12 +142,17 @@ Measured caveats
   posterior, against 67-86 yr from the ensemble sampler on the three
   variables and 56 yr from the sampler on all eight: ensemble moves enter
   such funnels slowly, whichever path is used.
-* emcee 3.1.6's ``DESnookerMove`` (20 % of :func:`orbitmass.inference.sampler.default_moves`)
-  applies half the Hastings factor of the snooker update (ter Braak & Vrugt
-  2008, Stat. Comput. 18, 435); alone on an 8-D Gaussian it returns
-  standard deviations 0.81 of the true ones. At 20 % of the mix, posteriors
-  come out a few per cent too narrow on either path (the MCMC branch here
-  included); the importance-sampling branch does not use it.
+* emcee 3.1.6's ``DESnookerMove`` applies half the Hastings factor of the
+  snooker update (ter Braak & Vrugt 2008, Stat. Comput. 18, 435); alone on an
+  8-D Gaussian it returns standard deviations 0.81 of the true ones. It is
+  therefore not part of :func:`orbitmass.inference.sampler.default_moves`
+  (differential-evolution moves only), which the MCMC branch here uses; the
+  importance-sampling branch uses no moves at all.
+
+Length: this module is longer than the project's 600-line guide because the
+derivation above and the code that implements it (posterior, expansion,
+weights, 3-D search, both samplers) are one argument; split, the weights
+would be separated from the densities they correct.
 
 Public functions: :func:`applies`, :class:`LinearAstrometryPosterior`,
 :func:`expand`, :func:`systematic_resample`, :func:`kish_ess`,
@@ -155,14 +164,19 @@ from __future__ import annotations
 import logging
 import math
 import time
+import warnings
 
 import numpy as np
 from numpy.typing import NDArray
+from scipy import stats
 
 from orbitmass.core import diagnostics
 from orbitmass.core.elements import thiele_innes_jacobian_log, thiele_innes_to_campbell
-from orbitmass.core.kepler import kepler_cos_sin
+from orbitmass.core.orbit import TWO_PI, kepler_basis
 from orbitmass.core.physics import mass_msun as kepler_mass
+from orbitmass.inference.initialise import InitialSolution, hessian_covariance, period_grid, polish
+from orbitmass.inference.sampler import SamplerRun, run_sampler
+from orbitmass.model.likelihood import LogPosterior
 from orbitmass.model.parameters import ParameterSpace
 from orbitmass.model.priors import Isotropic, Uniform
 
@@ -181,7 +195,6 @@ __all__ = [
 
 log = logging.getLogger(__name__)
 
-TWO_PI = 2.0 * math.pi
 LN2 = math.log(2.0)
 LOG_2PI = math.log(TWO_PI)
 #: ln of M / (a_au^3 / P^2), i.e. ln(4 pi^2 / GM_sun) in Msun, au, yr (Kepler III).
@@ -217,8 +230,15 @@ def ineligible_reasons(space: ParameterSpace) -> list[str]:
     """
     target = space.target
     reasons: list[str] = []
+    for term in space.terms:
+        if not term.linear_safe:
+            reasons.append(f"model term {term.name!r} makes positions non-linear in A, B, F, G "
+                           "(linear_safe is False)")
+        elif any(getattr(term, hook, None) is not None for hook in ("emission_times", "plane_rotation")):
+            reasons.append(f"model term {term.name!r} changes emission times or the orbital plane "
+                           "(the fast path's solver is Keplerian)")
     if len(target.companions) != 1:
-        return ["needs exactly one companion"]
+        return reasons + ["needs exactly one companion"]
     if target.frame != "relative":
         reasons.append("needs the relative frame")
     comp = target.companions[0]
@@ -419,9 +439,9 @@ class LinearAstrometryPosterior:
             lp = self.period_prior.log_pdf(period) + theta[:, 0]
             lp = lp + np.where(ecc < 1.0, self.ecc_prior.log_pdf(ecc) + LN2, -np.inf)
             if self.tp_prior is not None:
-                lp = lp + self.space._periastron_time_log_pdf(self.tp_prior, m0, period * self.one_plus_z)
+                lp = lp + self.space.periastron_time_log_pdf(self.tp_prior, m0, period * self.one_plus_z)
             else:
-                lp = lp + self.space._wrapped_log_pdf(self.m0_prior, m0)
+                lp = lp + self.space.wrapped_log_pdf(self.m0_prior, m0)
         lp[~np.isfinite(lp)] = -np.inf
         return lp
 
@@ -456,11 +476,9 @@ class LinearAstrometryPosterior:
         """
         period, ecc, m0 = self.physical(theta)
         ecc_c = np.clip(ecc, 0.0, 0.999999)
-        n_mean = TWO_PI / (period * self.one_plus_z)
-        mean = m0[:, None] + n_mean[:, None] * self.dt[None, :]
-        cos_e, sin_e = kepler_cos_sin(mean, ecc_c[:, None])
-        X = cos_e - ecc_c[:, None]
-        Y = np.sqrt(1.0 - ecc_c * ecc_c)[:, None] * sin_e
+        basis = kepler_basis(self.t, t_ref_yr=self.space.t_ref, period_obs_yr=(period * self.one_plus_z)[:, None],
+                             ecc=ecc_c[:, None], mean_anomaly_ref=m0[:, None], velocities=False)
+        X, Y = basis.X, basis.Y
         sxx = (X * X) @ self.wmat  # columns: w22, w12h, w11
         sxy = (X * Y) @ self.wmat
         syy = (Y * Y) @ self.wmat
@@ -511,7 +529,7 @@ class LinearAstrometryPosterior:
         - ln(a^3 sin^3 i)``; angles in rad, ``a_mas`` in mas, mass in Msun.
         """
         pr = self.space.companion(self.name).priors
-        wrapped = self.space._wrapped_log_pdf
+        wrapped = self.space.wrapped_log_pdf
         with np.errstate(divide="ignore", invalid="ignore"):
             orient = np.logaddexp(wrapped(pr["arg_periastron"], omega) + wrapped(pr["ascending_node"], node),
                                   wrapped(pr["arg_periastron"], omega + math.pi)
@@ -564,7 +582,8 @@ def expand(post: LinearAstrometryPosterior, theta_lin: NDArray[np.float64],
     -------
     theta_full : ndarray, shape (n, space.ndim)
         The draws in the full :class:`ParameterSpace` layout (angles not yet
-        put in their windows: call ``space.set_centres`` / ``space.wrap_angles``).
+        put in their windows: ``space.with_windows(space.windows_from(theta))``
+        makes a space whose ``wrap_angles`` does it).
     log_weights : ndarray, shape (n,)
         ``ln g - ln h``; ``-inf`` outside the mass prior or where the normal
         matrix is singular.
@@ -635,25 +654,27 @@ def systematic_resample(log_weights: NDArray[np.float64], rng: np.random.Generat
 
 # ----------------------------------------------------------- initialisation
 def initialise_linear(post: LinearAstrometryPosterior, n_walkers: int, rng: np.random.Generator, *,
-                      max_periods: int = 3000, max_evals: int = 2000):
+                      max_periods: int = 3000, max_evals: int = 2000, stop_flag=None):
     """Grid search in (P, e, M0), polish, and scatter walkers, on the 3-D posterior.
 
     Same method as :func:`orbitmass.inference.initialise.initialise_walkers` (its period
     grid, optimiser and Laplace covariance), with the linear constants solved
-    exactly at every grid point.
+    exactly at every grid point. ``stop_flag`` (callable) is checked between
+    chunks of the grid and in the polish; when it is set, walkers are
+    scattered about the best point so far and the solution says
+    ``interrupted``.
 
     Returns
     -------
     orbitmass.inference.initialise.InitialSolution
         Walkers, best point and value in the 3-D variables, competing modes.
     """
-    from orbitmass.inference.initialise import InitialSolution, _hessian_cov, _period_grid, _polish
-
+    stopped = (lambda: False) if stop_flag is None else stop_flag
     lo, hi = post.ecc_prior.support
     eccs = [e for e in (0.0, 0.2, 0.4, 0.6, 0.75, 0.85, 0.92, 0.96) if lo <= e <= min(hi, 0.97)]
     if not eccs:
         eccs = [0.5 * (lo + min(hi, 0.97))]
-    periods = _period_grid(post.t, post.period_prior, post.one_plus_z, max_periods) / post.one_plus_z
+    periods = period_grid(post.t, post.period_prior, post.one_plus_z, max_periods) / post.one_plus_z
     m0s = np.linspace(0.0, TWO_PI, 12, endpoint=False)
     rows = []
     for e in eccs:
@@ -662,7 +683,13 @@ def initialise_linear(post: LinearAstrometryPosterior, n_walkers: int, rng: np.r
         rows.append(post.to_theta(pp.ravel(), e, mm.ravel()))
     grid = np.concatenate(rows)
     chunk = max(1, 400_000 // max(post.t.size, 1))
-    vals = np.concatenate([post(grid[k: k + chunk]) for k in range(0, grid.shape[0], chunk)])
+    vals = np.full(grid.shape[0], -np.inf)
+    interrupted = False
+    for k in range(0, grid.shape[0], chunk):
+        if stopped():
+            interrupted = True
+            break
+        vals[k: k + chunk] = post(grid[k: k + chunk])
     order = np.argsort(-np.where(np.isfinite(vals), vals, -np.inf))
     cands: list[NDArray] = []
     for idx in order:
@@ -675,11 +702,15 @@ def initialise_linear(post: LinearAstrometryPosterior, n_walkers: int, rng: np.r
             break
     if not cands:
         raise LinearPathError("no point of the (P, e, M0) grid has a finite posterior")
-    polished = sorted((_polish(post, c, max_evals) for c in cands), key=lambda r: -r[1])
+    if interrupted:
+        polished = [(cands[0], float(post(cands[0][None, :])[0]))]
+    else:
+        polished = sorted((polish(post, c, max_evals, stop_flag) for c in cands), key=lambda r: -r[1])
+        interrupted = bool(stopped())
     best, best_val = polished[0]
     others = [{"delta_log_posterior": float(best_val - v), "period_yr": {post.name: float(np.exp(x[0]))}}
               for x, v in polished[1:] if best_val - v < 10.0 and abs(x[0] - best[0]) > 0.02]
-    cov = _hessian_cov(post, best)
+    cov = hessian_covariance(post, best)
     walkers: list[NDArray] = []
     scale = 1.0
     for _ in range(50):
@@ -696,7 +727,7 @@ def initialise_linear(post: LinearAstrometryPosterior, n_walkers: int, rng: np.r
     log.info("linear path initialised at log density %.3f (%d grid points, %d competing modes)",
              best_val, grid.shape[0], len(others))
     return InitialSolution(walkers=np.array(walkers[:n_walkers]), best=best, best_log_post=float(best_val),
-                           other_modes=others, n_grid=int(grid.shape[0]))
+                           other_modes=others, n_grid=int(grid.shape[0]), interrupted=interrupted)
 
 
 # ----------------------------------------------------------------- the fit
@@ -716,10 +747,6 @@ def pareto_khat(log_weights: NDArray[np.float64]) -> float:
     heavy that the estimate is not to be trusted. Returns ``inf`` when fewer than 5 weights
     are positive.
     """
-    import warnings
-
-    from scipy import stats
-
     lw = np.asarray(log_weights, dtype=float)
     lw = np.sort(lw[np.isfinite(lw)])
     if lw.size < 5:
@@ -739,8 +766,6 @@ def pareto_khat(log_weights: NDArray[np.float64]) -> float:
 def _importance_3d(post: LinearAstrometryPosterior, best, cov, n: int, rng: np.random.Generator,
                    *, df: float = 4.0, scale: float = 1.3):
     """Draws from a Student t about the 3-D mode (Laplace covariance x ``scale``) and their log weights."""
-    from scipy import stats
-
     proposal = stats.multivariate_t(loc=best, shape=cov * scale, df=df, seed=rng)
     x = np.atleast_2d(proposal.rvs(size=n))
     log_target = post(x)
@@ -758,11 +783,13 @@ def _chain_diagnostics(kept: NDArray[np.float64]) -> tuple[NDArray, NDArray, NDA
 
 def _weighted_result(space: ParameterSpace, theta: NDArray[np.float64], log_w: NDArray[np.float64],
                      rng: np.random.Generator) -> dict:
-    """Angle windows, Kish ESS, systematic resample and the full log posterior of weighted draws."""
-    from orbitmass.model.likelihood import LogPosterior
+    """Angle windows, Kish ESS, systematic resample and the full log posterior of weighted draws.
 
+    ``space`` in the result is a new space whose windows are centred on the
+    draws of positive weight (``space`` passed in is not changed).
+    """
     ok = np.isfinite(log_w)
-    space.set_centres(theta[ok] if ok.any() else theta)
+    space = space.with_windows(space.windows_from(theta[ok] if ok.any() else theta))
     theta = space.wrap_angles(theta)
     kish = kish_ess(log_w)
     pick = systematic_resample(log_w, rng)
@@ -770,7 +797,8 @@ def _weighted_result(space: ParameterSpace, theta: NDArray[np.float64], log_w: N
     lp_unique = LogPosterior(space)(theta[uniq])
     wmax = float(np.max(np.exp(log_w[ok] - np.max(log_w[ok]))) / np.sum(np.exp(log_w[ok] - np.max(log_w[ok]))))
     return {"theta_all": theta, "theta": theta[pick], "log_post": lp_unique[inverse], "kish": kish,
-            "frac": kish / max(log_w.size, 1), "n_unique": int(uniq.size), "max_weight_fraction": wmax}
+            "frac": kish / max(log_w.size, 1), "n_unique": int(uniq.size), "max_weight_fraction": wmax,
+            "space": space}
 
 
 def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_walkers: int | None = None,
@@ -794,7 +822,8 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     Parameters
     ----------
     space : ParameterSpace
-        A space for which :func:`applies` is true; its angle windows are set here.
+        A space for which :func:`applies` is true; it is not changed (the
+        space with the final angle windows is returned in ``run_info``).
     rng : numpy.random.Generator
         Every random choice (common draws, initialisation, proposal draws,
         emcee seed, expansion draws, resampling) comes from it.
@@ -837,7 +866,13 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
         sampling). ``posterior``: the :class:`LinearAstrometryPosterior`.
         ``diagnostics``: a JSON-ready dict for ``summary.json`` (method, Kish
         ESS and fraction, Pareto shape, 3-D tau/ESS/R-hat, step counts,
-        timings, ``fallback_recommended``).
+        timings, ``fallback_recommended``). ``space``: the space of the
+        returned samples, with angle windows centred on them.
+
+    A stop request (``stop_flag``) is honoured in the initial search, the
+    polish and the sampler; after one during the search the 3-D posterior is
+    sampled by the (then immediately stopped) ensemble sampler, so the
+    result holds the walkers' first step, marked ``interrupted``.
 
     Raises
     ------
@@ -846,16 +881,14 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     ValueError
         When :func:`applies` is false for ``space`` or ``method`` is unknown.
     """
-    from orbitmass.inference.initialise import _hessian_cov
-    from orbitmass.inference.sampler import SamplerRun, run_sampler
-
     if method not in ("auto", "mcmc", "importance"):
         raise ValueError(f"method must be 'auto', 'mcmc' or 'importance', got {method!r}")
     t_start = time.perf_counter()
     post = LinearAstrometryPosterior(space, n_draws=n_draws, rng=rng)
     walkers = int(n_walkers or options.n_walkers or 64)
     walkers += walkers % 2
-    init = initialise_linear(post, walkers, rng, max_periods=max_periods)
+    init = initialise_linear(post, walkers, rng, max_periods=max_periods, stop_flag=stop_flag)
+    stopped = init.interrupted or (stop_flag is not None and bool(stop_flag()))
     t_init = time.perf_counter() - t_start
     mass_idx = space.index["ln_mass"]
     diag: dict = {
@@ -866,10 +899,10 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     }
 
     # ---- direct importance sampling of the 3-D posterior
-    if method != "mcmc" and (method == "importance" or not init.other_modes):
+    if not stopped and method != "mcmc" and (method == "importance" or not init.other_modes):
         t_is = time.perf_counter()
         n_is = int(options.max_retained)
-        x3, lw3, _ = _importance_3d(post, init.best, _hessian_cov(post, init.best), n_is, rng)
+        x3, lw3, _ = _importance_3d(post, init.best, hessian_covariance(post, init.best), n_is, rng)
         khat, kish3 = pareto_khat(lw3), kish_ess(lw3)
         diag.update({"khat_3d": float(khat), "kish_3d": float(kish3), "n_proposal_3d": n_is})
         if method == "importance" or (khat < IS_MAX_KHAT and kish3 >= max(options.min_ess,
@@ -899,7 +932,7 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
             log.info("linear path (importance sampling): Kish ESS %.0f of %d, Pareto k %.2f", res["kish"], n_is,
                      khat)
             return res["theta"], res["log_post"], {"run": run, "init": init, "run_3d": None, "posterior": post,
-                                                   "diagnostics": diag}
+                                                   "diagnostics": diag, "space": res["space"]}
 
     # ---- MCMC on the 3-D posterior
     run3 = run_sampler(post, init.walkers, seed=int(rng.integers(2**31 - 1)), options=options,
@@ -915,7 +948,8 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     theta_all, log_w_all, _ = expand(post, sub3.reshape(-1, 3), rng)
     kept = slice(burn_rows * n_w, None)
     res = _weighted_result(space, theta_all[kept], log_w_all[kept], rng)
-    theta_all = space.wrap_angles(theta_all)  # the windows were just centred on the kept draws
+    space = res["space"]  # windows centred on the kept draws
+    theta_all = space.wrap_angles(theta_all)
     chain_full = theta_all.reshape(n_rows, n_w, space.ndim)
     kept_chain = chain_full[burn_rows:]
     if kept_chain.shape[0] >= 8:
@@ -930,7 +964,8 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     run = SamplerRun(chain=chain_full, log_prob=run3.log_prob[offset::thin],
                      acceptance_fraction=run3.acceptance_fraction, burn=burn_rows, thin=1, tau=tau, ess=ess,
                      rhat=rhat, converged=converged, n_evaluations=run3.n_evaluations,
-                     sampling_seconds=run3.sampling_seconds + t_expand, interrupted=run3.interrupted)
+                     sampling_seconds=run3.sampling_seconds + t_expand,
+                     interrupted=bool(run3.interrupted or init.interrupted))
     diag.update({
         "sampler_3d": "mcmc (orbitmass.inference.sampler.run_sampler)",
         "n_walkers_3d": int(n_w),
@@ -957,4 +992,4 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     log.info("linear path (MCMC): %d steps x %d walkers, Kish ESS %.0f of %d (%.2f), mass ESS %.0f",
              n_steps, n_w, res["kish"], diag["n_weighted"], frac, diag["ess_mass"])
     return res["theta"], res["log_post"], {"run": run, "init": init, "run_3d": run3, "posterior": post,
-                                           "diagnostics": diag}
+                                           "diagnostics": diag, "space": space}

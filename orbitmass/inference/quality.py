@@ -723,6 +723,23 @@ def fit_quality(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDA
     return assess_fit(space, theta, log_post, rng=rng, n_draws=n_draws, polish=polish)[0]
 
 
+def quality_or_failure(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDArray[np.float64], *,
+                       seed: int) -> tuple[dict, dict]:
+    """The ``fit_quality`` block and the residual table (JSON-ready columns) of a finished run.
+
+    A failure here must not lose a finished sampling run: it is logged and the
+    block says "poor" with the reason, so the fit is not presented as a good one.
+    """
+    try:
+        fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]))
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError, KeyError, IndexError) as exc:
+        log.exception("goodness of fit could not be computed")
+        reason = f"goodness of fit could not be computed ({type(exc).__name__}: {exc})"
+        return {"chi2": None, "dof": None, "reduced_chi2": None, "p_value": None, "status": "poor",
+                "datasets": {}, "reasons": [reason], "likely_causes": []}, {}
+    return fq, residuals.to_dict(orient="list")
+
+
 def residuals_table(space: ParameterSpace, theta_point: NDArray[np.float64]) -> pd.DataFrame:
     """Normalised residuals of every measured value at one point ``theta_point`` (n_dim,).
 

@@ -318,10 +318,7 @@ def load_run(run_dir: Path):
                              "after the fit or belongs to another run); refusing to load it")
     z = target.distance.redshift
     d_fixed = redshift_distance_pc(z, target.distance.cosmology) if z is not None else None
-    space = ParameterSpace(target, redshift_distance_pc=d_fixed)
-    for var in space.variables:
-        if var.name in windows:
-            var.centre, var.width = windows[var.name]
+    space = ParameterSpace(target, redshift_distance_pc=d_fixed, windows=windows)
     return Results(target=target, space=space, samples=samples, theta=theta, chain=chain, log_prob=log_prob,
                    burn=burn, thin=thin, summary=summary, info=info)
 

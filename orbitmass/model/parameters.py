@@ -36,7 +36,21 @@ variable                   meaning (prior is always stated on the physical
 
 Angles on the circle (``node``, ``mean_longitude``, ``omega``) are sampled on a
 window of one full turn centred where the initialisation put them, so the
-posterior is proper and has no wall at the mode. Without any line-of-sight
+posterior is proper and has no wall at the mode. The windows are an explicit,
+immutable :class:`AngleWindows` value: a space is built with them (default:
+centred on 0) and never changes them; :meth:`ParameterSpace.windows_from`
+computes windows centred on some draws and :meth:`ParameterSpace.with_windows`
+returns a new space that uses them (the initial search does this, and a
+:class:`~orbitmass.results.Results` holds the final space).
+
+The module is longer than the 600-line guide: layout, priors, unpacking,
+packing and windows of the one sampled vector belong together (each is the
+inverse or the density of another).
+
+Model terms (:mod:`orbitmass.core.orbit`) are carried as ``space.terms``; each
+parameter a term declares is a sampled variable of that name (kind
+``"linear"``, with the prior given in ``term_priors``) or fixed when its prior
+is fixed, and :meth:`ParameterSpace.unpack` returns it under its own name. Without any line-of-sight
 information on a plane, (omega, Omega) and (omega + 180 deg, Omega + 180 deg)
 predict the same positions: the node window is then half a turn and the prior
 density sums the two equivalent points.
@@ -44,25 +58,28 @@ density sums the two equivalent points.
 
 from __future__ import annotations
 
+import copy
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from typing import Mapping, Sequence
 
 import numpy as np
 from numpy.typing import NDArray
 
+from orbitmass.core.physics import semimajor_axis_au
 from orbitmass.exceptions import InputError
 from orbitmass.model.data import Companion, Target
 from orbitmass.model.priors import Isotropic, LogUniform, Prior, Uniform
 
-__all__ = ["Variable", "ParameterSpace", "priors_used"]
+__all__ = ["Variable", "AngleWindows", "ParameterSpace", "priors_used"]
 
 TWO_PI = 2.0 * math.pi
 LN2 = math.log(2.0)
 
 
-@dataclass
+@dataclass(frozen=True)
 class Variable:
-    """One sampled variable.
+    """One sampled variable (immutable).
 
     ``kind`` is ``"linear"`` (the physical quantity itself), ``"log"`` (its
     natural log), ``"angle"`` (an angle on a window ``[centre - width/2,
@@ -76,6 +93,34 @@ class Variable:
     centre: float = 0.0
     width: float = TWO_PI
     label: str = ""
+
+
+@dataclass(frozen=True)
+class AngleWindows:
+    """The sampling windows of the angle variables: name -> (centre, width) in rad.
+
+    Immutable. Build one with :meth:`ParameterSpace.windows_from` (centred on
+    draws), :meth:`from_mapping` (from a checkpoint or run folder) or take
+    ``space.windows``.
+    """
+
+    items: tuple[tuple[str, float, float], ...] = ()
+
+    @classmethod
+    def from_mapping(cls, mapping: Mapping[str, Sequence[float]]) -> AngleWindows:
+        """Windows from ``{name: [centre, width]}`` (the JSON form written to checkpoints and run folders)."""
+        return cls(tuple((str(k), float(v[0]), float(v[1])) for k, v in mapping.items()))
+
+    def as_dict(self) -> dict[str, list[float]]:
+        """``{name: [centre, width]}`` (JSON-ready)."""
+        return {name: [centre, width] for name, centre, width in self.items}
+
+    def get(self, name: str) -> tuple[float, float] | None:
+        """(centre, width) of variable ``name``, or None."""
+        for n, centre, width in self.items:
+            if n == name:
+                return centre, width
+        return None
 
 
 @dataclass
@@ -100,10 +145,20 @@ class ParameterSpace:
     redshift_distance_pc : float or None
         Angular-diameter distance (pc) when the distance is fixed by a
         redshift alone.
+    windows : AngleWindows or mapping, optional
+        Centres (and widths) of the angle windows; default centred on 0. A
+        space built with windows has final windows (:attr:`windows_final`).
+    terms : sequence of model terms
+        Model terms of :mod:`orbitmass.core.orbit` (empty: Keplerian orbits).
+    term_priors : mapping, optional
+        Prior of every parameter the terms declare (a fixed prior fixes it).
     """
 
-    def __init__(self, target: Target, redshift_distance_pc: float | None = None):
+    def __init__(self, target: Target, redshift_distance_pc: float | None = None, *,
+                 windows: AngleWindows | Mapping | None = None, terms: Sequence = (),
+                 term_priors: Mapping[str, Prior] | None = None):
         self.target = target
+        self.terms = tuple(terms)
         self.t_ref = float(target.reference_epoch)
         z = target.distance.redshift
         self.one_plus_z = 1.0 + (float(z) if z is not None else 0.0)
@@ -168,8 +223,26 @@ class ParameterSpace:
         for key in keys:
             pr = cp[key]
             self.frame_idx[key] = None if pr.fixed else self._add(Variable(key, "linear", pr, label=key))
+        # parameters of the model terms
+        term_priors = dict(term_priors or {})
+        self.term_parameters: dict[str, Prior] = {}
+        self.term_idx: dict[str, int | None] = {}
+        for term in self.terms:
+            for pname in term.parameters:
+                if pname in self.term_parameters:
+                    continue
+                if pname not in term_priors:
+                    raise InputError(f"model term {term.name!r} needs a prior for its parameter {pname!r}",
+                                     file=target.source, key=pname)
+                pr = term_priors[pname]
+                self.term_parameters[pname] = pr
+                self.term_idx[pname] = None if pr.fixed else self._add(Variable(pname, "linear", pr, label=pname))
         self.ndim = len(self.variables)
         self.names = [v.name for v in self.variables]
+        self.windows_final = False
+        if windows is not None:
+            self._apply_windows(windows if isinstance(windows, AngleWindows) else AngleWindows.from_mapping(windows))
+            self.windows_final = True
 
     # ------------------------------------------------------------------ layout
     def _add(self, var: Variable) -> int:
@@ -317,7 +390,13 @@ class ParameterSpace:
             out[f"jitter.{name}"] = get(jidx, inst.jitter, kind)
         for key, idx in self.frame_idx.items():
             out[key] = get(idx, cp[key])
+        for pname, idx in self.term_idx.items():
+            out[pname] = get(idx, self.term_parameters[pname])
         return out
+
+    def term_values(self, phys: Mapping[str, NDArray[np.float64]]) -> dict[str, NDArray[np.float64]]:
+        """The ``extra`` mapping of :func:`orbitmass.core.orbit.evaluate`: term parameters as (n_sets, 1)."""
+        return {pname: np.asarray(phys[pname])[:, None] for pname in self.term_parameters}
 
     # ------------------------------------------------------------------ priors
     def log_prior(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -360,7 +439,7 @@ class ParameterSpace:
         return lp
 
     @staticmethod
-    def _wrapped_log_pdf(prior: Prior, angle: NDArray[np.float64]) -> NDArray[np.float64]:
+    def wrapped_log_pdf(prior: Prior, angle: NDArray[np.float64]) -> NDArray[np.float64]:
         """Log density of an angle prior given on [0, 2 pi) (or any range) at ``angle`` mod 2 pi."""
         if isinstance(prior, Uniform) and prior.high - prior.low >= TWO_PI - 1e-12:
             return np.full(angle.shape, -math.log(TWO_PI))
@@ -370,10 +449,10 @@ class ParameterSpace:
         return prior.log_pdf(wrapped)
 
     def _circular_log_pdf(self, prior: Prior, node, los: bool, pname: str):
-        lp = self._wrapped_log_pdf(prior, node)
+        lp = self.wrapped_log_pdf(prior, node)
         if not los:
             # (omega, Omega) ~ (omega + pi, Omega + pi): sum the equivalent points
-            lp = np.logaddexp(lp, self._wrapped_log_pdf(prior, node + math.pi))
+            lp = np.logaddexp(lp, self.wrapped_log_pdf(prior, node + math.pi))
         return lp
 
     def _companion_log_prior(self, lay: _CompanionLayout, theta):
@@ -388,18 +467,18 @@ class ParameterSpace:
             omega = np.arctan2(k, h)
             inside = e < 1.0
             lp += np.where(inside, pr["eccentricity"].log_pdf(e) + LN2, -np.inf)
-            lp += self._wrapped_log_pdf(pr["arg_periastron"], omega)
+            lp += self.wrapped_log_pdf(pr["arg_periastron"], omega)
         elif lay.ecc_mode == "fixed" and "omega" in lay.idx:
-            lp += self._wrapped_log_pdf(pr["arg_periastron"], theta[:, lay.idx["omega"]])
+            lp += self.wrapped_log_pdf(pr["arg_periastron"], theta[:, lay.idx["omega"]])
         if lay.idx.get("lambda", -1) >= 0:
             lam = theta[:, lay.idx["lambda"]]
             m0 = lam - self._omega(lay, theta)
             if lay.phase_from_tp:
                 period = np.exp(theta[:, lay.idx["ln_period"]]) if lay.idx["ln_period"] >= 0 \
                     else np.full(n, float(pr["period"].value))
-                lp += self._periastron_time_log_pdf(pr["periastron_time"], m0, period * self.one_plus_z)
+                lp += self.periastron_time_log_pdf(pr["periastron_time"], m0, period * self.one_plus_z)
             else:
-                lp += self._wrapped_log_pdf(pr["mean_anomaly"], m0)
+                lp += self.wrapped_log_pdf(pr["mean_anomaly"], m0)
         return lp
 
     def _omega(self, lay: _CompanionLayout, theta):
@@ -412,7 +491,7 @@ class ParameterSpace:
             return np.zeros(n)
         return np.full(n, float(self.companion(lay.name).priors["arg_periastron"].value))
 
-    def _periastron_time_log_pdf(self, prior: Prior, m0, period_obs):
+    def periastron_time_log_pdf(self, prior: Prior, m0, period_obs):
         """Density of M0 implied by a prior on the periastron time (periodic in P)."""
         t0 = self.t_ref - np.mod(m0, TWO_PI) / TWO_PI * period_obs
         low, high = prior.support
@@ -478,6 +557,9 @@ class ParameterSpace:
         for key, idx in self.frame_idx.items():
             if idx is not None:
                 theta[:, idx] = arrays.get(key, 0.0)
+        for pname, idx in self.term_idx.items():
+            if idx is not None:
+                theta[:, idx] = arrays.get(pname, 0.0)
         return self.wrap_angles(theta)
 
     def wrap_angles(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -512,14 +594,56 @@ class ParameterSpace:
         if lay.idx.get("lambda", -1) >= 0:
             theta[mask, lay.idx["lambda"]] += math.pi
 
-    def set_centres(self, theta0: NDArray[np.float64]) -> None:
-        """Centre every angle window on the circular mean of ``theta0`` rows."""
+    # ----------------------------------------------------------------- windows
+    @property
+    def windows(self) -> AngleWindows:
+        """The angle windows in force (immutable)."""
+        return AngleWindows(tuple((v.name, float(v.centre), float(v.width)) for v in self.variables
+                                  if v.kind == "angle"))
+
+    def windows_from(self, theta0: NDArray[np.float64]) -> AngleWindows:
+        """Windows of this space's widths centred on the circular mean of the rows of ``theta0``."""
         theta0 = np.atleast_2d(theta0)
+        items = []
         for var in self.variables:
             if var.kind == "angle":
                 col = theta0[:, self.index[var.name]]
                 factor = TWO_PI / var.width
-                var.centre = float(np.angle(np.mean(np.exp(1j * factor * col)))) / factor
+                items.append((var.name, float(np.angle(np.mean(np.exp(1j * factor * col)))) / factor,
+                              float(var.width)))
+        return AngleWindows(tuple(items))
+
+    def with_windows(self, windows: AngleWindows | Mapping) -> ParameterSpace:
+        """A new space, equal to this one but with ``windows`` (final); this one is unchanged."""
+        if not isinstance(windows, AngleWindows):
+            windows = AngleWindows.from_mapping(windows)
+        new = copy.copy(self)
+        new.variables = list(self.variables)
+        new._apply_windows(windows)
+        new.windows_final = True
+        return new
+
+    def _apply_windows(self, windows: AngleWindows) -> None:
+        for k, var in enumerate(self.variables):
+            w = windows.get(var.name) if var.kind == "angle" else None
+            if w is not None:
+                self.variables[k] = replace(var, centre=w[0], width=w[1])
+
+    def set_centres(self, theta0: NDArray[np.float64]) -> None:
+        """Centre the windows of this space on ``theta0`` in place (test fixtures only).
+
+        Library code never calls this: it uses :meth:`windows_from` and
+        :meth:`with_windows`. Refused on a space whose windows are final.
+
+        Raises
+        ------
+        RuntimeError
+            When :attr:`windows_final` is set.
+        """
+        if self.windows_final:
+            raise RuntimeError("the angle windows of this space are final; "
+                               "use space.with_windows(space.windows_from(theta)) for a new space")
+        self._apply_windows(self.windows_from(theta0))
 
     def sample_prior(self, rng: np.random.Generator, n: int) -> NDArray[np.float64]:
         """Draw ``n`` sampled vectors from the prior (for initialisation and calibration)."""
@@ -556,12 +680,12 @@ class ParameterSpace:
             values[f"jitter.{name}"] = inst.jitter.sample(rng, n)
         for key in self.frame_idx:
             values[key] = cp[key].sample(rng, n)
+        for pname, prior in self.term_parameters.items():
+            values[pname] = prior.sample(rng, n)
         return self.pack(values)
 
     def semimajor_axes(self, phys: dict[str, NDArray[np.float64]], name: str):
         """(a_au, a_mas) of companion ``name`` by Kepler III (rest-frame period)."""
-        from orbitmass.core.physics import semimajor_axis_au
-
         a_au = semimajor_axis_au(phys["mass_msun"], phys[f"{name}.period_yr"])
         a_mas = a_au / phys["distance_pc"] * 1000.0
         return a_au, a_mas

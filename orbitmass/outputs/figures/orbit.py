@@ -117,8 +117,8 @@ class _CompanionPanels:
         periods = _period_obs(res, self.name, self.rows)
         span = float(np.ptp(self.t_pos))
         pad = 0.05 * span
-        tracks = []
-        for r, p in zip(self.rows, periods, strict=True):
+        times = []
+        for p in periods:
             if res.target.frame == "absolute":
                 t0 = float(self.t_pos.min()) - pad
                 t1 = float(self.t_pos.max()) + pad
@@ -127,9 +127,12 @@ class _CompanionPanels:
                 t = np.linspace(t0, t1, self.n_grid)
             else:
                 t = res.space.t_ref + np.linspace(0.0, p, self.n_grid)
-            pred = res.predict(self.name, t_astro=t, rows=np.array([r]))
-            tracks.append((pred["east_mas"][0], pred["north_mas"][0]))
-        return tracks
+            times.append(t)
+        if not times:
+            return []
+        # one vectorised call for all draws, each on its own epochs
+        pred = res.predict(self.name, t_astro=np.array(times), rows=np.asarray(self.rows))
+        return list(zip(pred["east_mas"], pred["north_mas"], strict=True))
 
     def _median(self, *, t_astro=None, t_vel=None, central=None) -> dict[str, NDArray[np.float64]]:
         """Pointwise posterior median of the model at data epochs (for residuals)."""
