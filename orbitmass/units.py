@@ -11,6 +11,7 @@ sky angle          milliarcseconds (mas)
 time, epoch        Julian years (yr = 365.25 d); epochs as Julian-year dates
                    (J2000.0 = JD 2451545.0 TDB)
 velocity           km/s
+proper motion      milliarcseconds per Julian year (mas/yr)
 orbit orientation  radians inside the model, degrees in every report
 =================  ===========================================================
 
@@ -100,7 +101,8 @@ def parse_quantity(text: object, physical_type: str, *, key: str, where: str = "
     Parameters
     ----------
     text : str
-        For example ``"8.1 kpc"`` or ``"12 km / s"``.
+        For example ``"8.1 kpc"`` or ``"12 km / s"``. Anything else (a bare
+        number, None, a list) is refused with an :class:`InputError`.
     physical_type : str
         Expected physical type, a key of :data:`INTERNAL_UNITS`.
     key : str
@@ -116,8 +118,10 @@ def parse_quantity(text: object, physical_type: str, *, key: str, where: str = "
     Raises
     ------
     InputError
-        On a bare number, an unparsable string, a unit of the wrong physical
-        type, or a non-finite value.
+        On a value that is not a string (e.g. a bare number), a string without
+        a unit, an unparsable string, more than one number (``"[1, 2] kpc"``),
+        a unit of the wrong physical type, or a value that is not finite in
+        the internal unit (including overflow on conversion).
 
     Examples
     --------

@@ -5,9 +5,12 @@ All functions take a chain of shape ``(n_steps, n_walkers, n_dim)`` (or
 
 Estimators
 ----------
-* Integrated autocorrelation time ``tau``: the walker-averaged normalised
-  autocorrelation function summed with Sokal's (1997) automatic window
-  (``c = 5``), as emcee's ``autocorr.integrated_time`` computes it.
+* Integrated autocorrelation time ``tau``: the walkers' autocovariances
+  averaged, normalised, and summed with Sokal's (1997) automatic window
+  (``c = 5``). emcee's ``autocorr.integrated_time`` averages the walkers'
+  normalised autocorrelation functions instead; the two are the same
+  estimator when the walkers have equal sample variance and differ by the
+  weighting otherwise.
 * Bulk effective sample size and rank-normalised split R-hat: Vehtari,
   Gelman, Simpson, Carpenter & Buerkner (2021, Bayesian Analysis 16, 667).
   Every walker is treated as a chain and split in halves; draws are
@@ -143,7 +146,19 @@ def _rhat_basic(x: NDArray[np.float64]) -> float:
 
 
 def split_rhat(chain: NDArray[np.float64]) -> NDArray[np.float64]:
-    """Rank-normalised split R-hat per parameter (max of bulk and tail)."""
+    """Rank-normalised split R-hat per parameter (max of bulk and tail).
+
+    Parameters
+    ----------
+    chain : ndarray, shape (n_steps, n_walkers[, n_dim])
+        Every walker is one chain, split in halves.
+
+    Returns
+    -------
+    ndarray, shape (n_dim,)
+        R-hat (Vehtari et al. 2021): about 1 for mixed chains; ``nan`` or a huge
+        value when walkers do not move but disagree.
+    """
     chain = _as3d(chain)
     out = np.empty(chain.shape[2])
     for d in range(chain.shape[2]):
@@ -200,13 +215,35 @@ def _ess_geyer(x: NDArray[np.float64]) -> float:
 
 
 def bulk_ess(chain: NDArray[np.float64]) -> NDArray[np.float64]:
-    """Rank-normalised bulk effective sample size per parameter (split chains)."""
+    """Rank-normalised bulk effective sample size per parameter (split chains).
+
+    Parameters
+    ----------
+    chain : ndarray, shape (n_steps, n_walkers[, n_dim])
+
+    Returns
+    -------
+    ndarray, shape (n_dim,)
+        Bulk ESS (Vehtari et al. 2021), Geyer's initial monotone sequence.
+    """
     chain = _as3d(chain)
     return np.array([_ess_geyer(_rank_normalise(_split(chain[:, :, d]))) for d in range(chain.shape[2])])
 
 
 def effective_sample_size(chain: NDArray[np.float64], tau: NDArray[np.float64] | None = None) -> NDArray[np.float64]:
-    """Conservative ESS per parameter: min(bulk ESS, n_steps * n_walkers / tau)."""
+    """Conservative ESS per parameter: min(bulk ESS, n_steps * n_walkers / tau).
+
+    Parameters
+    ----------
+    chain : ndarray, shape (n_steps, n_walkers[, n_dim])
+    tau : ndarray, shape (n_dim,), optional
+        Integrated autocorrelation times in steps; computed with
+        :func:`integrated_time` when not given.
+
+    Returns
+    -------
+    ndarray, shape (n_dim,)
+    """
     chain = _as3d(chain)
     if tau is None:
         tau = integrated_time(chain)
@@ -225,6 +262,10 @@ def walker_modes(x: NDArray[np.float64], min_walkers: int = 2, separation: float
     Parameters
     ----------
     x : ndarray, shape (n_steps, n_walkers)
+    min_walkers : int
+        Walkers needed on each side of a gap for it to count.
+    separation : float
+        Gap, in median within-walker standard deviations, that separates modes.
 
     Returns
     -------

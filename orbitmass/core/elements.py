@@ -1,7 +1,7 @@
 """Campbell elements <-> Thiele-Innes constants; the orientation conventions in one place.
 
-Conventions (fixed by the project, see also ``shared/spec/input-format.md``)
----------------------------------------------------------------------------
+Conventions (fixed by the project, see also ``docs/input-format.md``)
+---------------------------------------------------------------------
 Sky frame
     ``x`` = north offset (``Delta delta``), ``y`` = east offset
     (``Delta alpha cos delta``), ``z`` = along the line of sight, positive

@@ -4,7 +4,7 @@ Every function takes and returns plain floats or numpy arrays in the units its
 names carry (``mass_msun``, ``a_au``, ``period_yr``, ``..._kms``, ...); angles
 are radians unless the name says otherwise. The constants come from
 :mod:`orbitmass.units`: the IAU 2015 nominal solar mass parameter GM_sun
-(``GM_SUN_AU3_PER_YR2`` = 39.47692640889, not 4 pi^2 = 39.47841760436, which
+(``GM_SUN_AU3_PER_YR2`` = 39.4769264089, not 4 pi^2 = 39.4784176044, which
 belongs to the Gaussian constant of IAU 1976 and to the rounded
 ``M = a^3 / P^2`` of textbooks), the IAU 2012 au, the Julian year and the
 exact speed of light.

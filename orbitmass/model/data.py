@@ -3,7 +3,10 @@
 These containers are what :mod:`orbitmass.io.target` builds from a target file
 and what the model and likelihood consume. Every array is a plain float array
 in internal units (:mod:`orbitmass.units`); angles of priors are in radians.
-Instances are frozen; arrays are made read-only on construction.
+Instances are frozen. :class:`Astrometry` and :class:`Velocities` make their data
+arrays read-only on construction, in place (the arrays passed in become read-only
+too); their ``lines`` arrays are left as given. No container checks shapes or
+values: the readers of :mod:`orbitmass.io` validate before they build them.
 """
 
 from __future__ import annotations
@@ -194,7 +197,9 @@ class Companion:
 @dataclass(frozen=True)
 class Distance:
     """Distance information: at most one of ``prior`` (pc) and ``parallax`` (mas),
-    and/or a ``redshift`` with an astropy cosmology name."""
+    and/or a ``redshift`` with its ``cosmology``: an astropy realisation name or a
+    ``"flat-lcdm:H0=..,Om0=..,Tcmb0=.."`` specification (see
+    :func:`orbitmass.core.cosmology.cosmology_from_spec`)."""
 
     prior: Prior | None = None
     parallax: Prior | None = None

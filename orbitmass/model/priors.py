@@ -5,8 +5,22 @@ support), how to draw from itself (``sample``), its support and a one-line
 description for reports. Values are in the internal unit of the quantity the
 prior is on (see :mod:`orbitmass.units`); angles are in radians.
 
-To add a family: subclass :class:`Prior`, implement the four members and add
-it to :data:`FAMILIES` under the ``dist`` name used in target files.
+To add a family: subclass :class:`Prior`, implement the four members
+(``support``, ``log_pdf``, ``sample``, ``describe``) and add it to
+:data:`FAMILIES` under the ``dist`` name used in target files. The classes do
+not validate their parameters (``sd > 0``, ``low < high``): the target reader
+does before it builds them.
+
+Examples
+--------
+The standard normal density at 0 is 1 / sqrt(2 pi) (``scipy.stats.norm.logpdf(0)``):
+
+>>> print(f"{float(Normal(0.0, 1.0).log_pdf(0.0)):.12f}")
+-0.918938533205
+>>> Uniform(0.0, 2.0).log_pdf([1.0, 3.0]).tolist()
+[-0.6931471805599453, -inf]
+>>> LogUniform(1.0, 100.0).describe("pc")
+'log-uniform on [1 pc, 100 pc]'
 """
 
 from __future__ import annotations

@@ -15,9 +15,10 @@ Stored and display units
     choice, common practice, no source).
 
 Unit spellings
-    :data:`UNITS` holds each unit in four spellings: the ASCII key written in
+    :data:`UNITS` holds each unit in five spellings: the ASCII key written in
     ``COLUMN_DOC`` and ``summary.json`` (``"M_sun"``), plain text for reports and
-    consoles (``"M☉"``), LaTeX for tables and matplotlib mathtext for figures.
+    consoles (``"M☉"``), LaTeX for tables, matplotlib mathtext for figures and
+    HTML for the HTML report.
     The solar-mass unit is spelt M☉ everywhere a reader sees it.
 
 Conversion factors: 1 au = 149 597 870.7 km (IAU 2012 Resolution B2); 1 kpc =
@@ -266,6 +267,11 @@ PHASE_NAME = "mean argument of latitude at the reference epoch, λ = M₀ + ω"
 def base_of(column: str, companions=()) -> str:
     """Base key of a sample column (companion prefix and instrument suffix removed).
 
+    Without ``companions``, a prefix that is not itself a key of :data:`QUANTITIES`
+    is taken for a companion name.
+
+    Examples
+    --------
     >>> base_of("C1.period_yr", ["C1"]), base_of("offset_kms.spec-b", ["C1"])
     ('period_yr', 'offset_kms')
     """
