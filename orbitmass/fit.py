@@ -345,6 +345,15 @@ class Fit:
 
         return predict(self.results, epochs, **kwargs)
 
+    def to_arviz(self):
+        """The posterior as an ArviZ ``InferenceData``, walkers as chains (needs arviz: ``orbitmass[export]``).
+
+        See :func:`orbitmass.io.export.to_inference_data` for the groups and attributes.
+        """
+        from orbitmass.io.export import to_inference_data
+
+        return to_inference_data(self.results)
+
     def report(self, out_dir: str | Path) -> Path:
         """Write figures, tables, report.md and report.html into ``out_dir``; returns the report path."""
         from orbitmass.io.rundir import write_products
