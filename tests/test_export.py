@@ -118,6 +118,7 @@ def test_fast_path_is_one_chain_of_resampled_draws(fast_path_run):
     layout = idata.posterior.attrs["layout"]
     assert layout.startswith("one chain of resampled draws") and "not a Markov chain" in layout
     assert "fast path" in idata.attrs["method"]
+    assert "n_walkers" not in idata.attrs  # no walkers behind these draws
 
 
 def test_netcdf_round_trip(sampled_run, tmp_path):

@@ -15,9 +15,11 @@ Layout of the ``InferenceData``
         ``lp``: the log posterior of each sample (ArviZ's name for it; the
         ``log_posterior`` column of the samples).
     attributes (of the object and of both groups)
-        ``orbitmass_version``, ``target``, ``seed``, ``layout`` (what the
-        chain and draw dimensions mean), ``method``, ``n_walkers``,
-        ``burn`` and ``thin`` (of the retained chain, in steps).
+        ``orbitmass_version`` (of the fit), ``exported_by``, ``target``,
+        ``seed``, ``layout`` (what the chain and draw dimensions mean),
+        ``method``, ``burn`` and ``thin`` (of the stored chain, in steps),
+        ``n_samples``, ``converged`` (1 or 0), and ``n_walkers`` when the
+        walkers are the chains.
 
     After ordinary sampling the walkers are the chains: draw ``j`` of chain
     ``k`` is walker ``k`` at the ``j``-th retained step (after ``burn``
@@ -86,34 +88,40 @@ def _walker_layout(results) -> tuple[int, int] | None:
     return n_steps, n_walkers
 
 
+def _fast_path(results) -> bool:
+    """True when the run took the astrometry-only fast path (importance-weighted, resampled draws)."""
+    return "linear_path" in results.summary.get("diagnostics", {}) or results.info.get("sampler") == "linear"
+
+
 def _method(results) -> str:
-    lin = results.summary.get("diagnostics", {}).get("linear_path")
-    if isinstance(lin, dict) or results.info.get("sampler") == "linear":
+    if _fast_path(results):
+        lin = results.summary.get("diagnostics", {}).get("linear_path")
         how = str(lin.get("sampler_3d", "")) if isinstance(lin, dict) else ""
         return ("astrometry-only fast path: Thiele-Innes constants integrated out, "
                 f"3 variables sampled ({how or 'see summary.json'}), draws importance-weighted and resampled")
     return "affine-invariant ensemble MCMC (emcee), every sampled parameter"
 
 
-def _attrs(results, layout: str, n_walkers: int) -> dict[str, Any]:
+def _attrs(results, layout: str, n_walkers: int | None) -> dict[str, Any]:
     from orbitmass import __version__
 
     summary = results.summary
     seed = summary.get("provenance", {}).get("seed")
     attrs: dict[str, Any] = {
-        "orbitmass_version": __version__,
-        "fit_orbitmass_version": str(summary.get("orbitmass_version", "")),
+        "orbitmass_version": str(summary.get("orbitmass_version", __version__)),  # the version that fitted
+        "exported_by": f"orbitmass {__version__}",
         "target": str(summary.get("target", results.target.name)),
         "seed": int(seed) if seed is not None else -1,
         "layout": layout,
         "method": _method(results),
-        "n_walkers": int(n_walkers),
         "burn": int(results.burn),
         "thin": int(results.thin),
         "n_samples": int(len(results.samples)),
         "converged": int(bool(summary.get("diagnostics", {}).get("converged", False))),
         "units": "in each variable's name and its 'units' attribute (e.g. mass_msun: solar masses)",
     }
+    if n_walkers is not None:
+        attrs["n_walkers"] = int(n_walkers)
     if seed is None:
         attrs["seed_note"] = "the run recorded no seed (-1)"
     return attrs
@@ -166,8 +174,8 @@ def to_inference_data(results):
         def arrange(values: np.ndarray) -> np.ndarray:
             return values.reshape(n_steps, n_walkers).T
     else:
-        n_walkers = int(np.asarray(results.chain).shape[1]) if np.asarray(results.chain).ndim == 3 else 0
-        if "linear_path" in results.summary.get("diagnostics", {}) or results.info.get("sampler") == "linear":
+        n_walkers = None
+        if _fast_path(results):
             layout = ("one chain of resampled draws: the astrometry-only fast path importance-weights its draws "
                       "and resamples them, so there is no chain of walkers; the draws are not a Markov chain "
                       "and chain-based diagnostics (R-hat, ESS) of this object do not apply")
