@@ -196,6 +196,22 @@ def test_failed_write_leaves_nothing(sampled_run, tmp_path, monkeypatch):
     assert os.listdir(tmp_path) == []  # no partial file, no temporary file
 
 
+def test_file_appearing_during_the_export_is_kept(sampled_run, tmp_path, monkeypatch):
+    fit, _ = sampled_run
+    dest = tmp_path / "x.csv"
+    real = export_mod._write_csv
+
+    def racing(results, tmp):
+        real(results, tmp)
+        dest.write_text("another program's file\n", encoding="utf-8")  # appears while the export is written
+
+    monkeypatch.setattr(export_mod, "_write_csv", racing)
+    with pytest.raises(RunFolderError, match="exists"):
+        export_run(fit.results, dest, "csv")
+    assert dest.read_text(encoding="utf-8") == "another program's file\n"
+    assert os.listdir(tmp_path) == ["x.csv"]  # no hidden or temporary file left
+
+
 def test_missing_arviz_gives_install_hint(sampled_run, tmp_path, monkeypatch):
     fit, _ = sampled_run
     monkeypatch.setitem(sys.modules, "arviz", None)  # import arviz now raises ImportError

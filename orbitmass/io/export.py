@@ -41,8 +41,10 @@ ArviZ (and through it xarray and h5netcdf) is an optional dependency:
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import os
+import secrets
 from pathlib import Path
 from typing import Any
 
@@ -233,9 +235,7 @@ def _check_destination(path: Path, overwrite: bool) -> None:
         if path.is_dir():
             raise RunFolderError(f"{path}: is a folder; give the name of the file to write")
         if not overwrite:
-            exc = RunFolderError(f"{path}: exists; choose another file name or pass overwrite to replace it")
-            exc.remedy = "overwrite"  # a command line names its own option (as orbitmass._atomic does)
-            raise exc
+            raise _exists_error(path)
     parent = path.parent
     if parent.is_dir() and (read_marker(parent) is not None or (parent / "summary.json").is_file()):
         from orbitmass.io.rundir import RUN_FILES
@@ -245,6 +245,24 @@ def _check_destination(path: Path, overwrite: bool) -> None:
             raise RunFolderError(f"{path}: is a file of the orbitmass run folder {parent}; an export never "
                                  "replaces it: choose another file name")
     check_writable(parent)
+
+
+def _exists_error(path: Path) -> RunFolderError:
+    exc = RunFolderError(f"{path}: exists; choose another file name or pass overwrite to replace it")
+    exc.remedy = "overwrite"  # a command line names its own option (as orbitmass._atomic does)
+    return exc
+
+
+def _publish_new(tmp: Path, dest: Path) -> None:
+    """Give the finished file ``tmp`` the name ``dest`` only if no file has that name (never replacing one)."""
+    try:
+        os.link(tmp, dest)  # fails if dest exists, atomically
+    except FileExistsError:
+        raise _exists_error(dest) from None
+    except OSError:  # a file system without hard links: check again, then rename
+        if os.path.lexists(dest):
+            raise _exists_error(dest) from None
+        os.replace(tmp, dest)
 
 
 def _write_csv(results, tmp: Path) -> None:
@@ -299,11 +317,22 @@ def export_run(source, path: str | os.PathLike[str], format: str | None = None, 
     idata = to_inference_data(results) if fmt == "netcdf" else None  # ArviZ missing: fail before writing
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        with atomic_path(path) as tmp:
+        # written whole under a hidden name, then put in place: replacing only with
+        # overwrite, else as a new name (a file that appeared meanwhile is kept)
+        hidden = path.parent / f".{path.name}.export-{secrets.token_hex(4)}"
+        with atomic_path(hidden) as tmp:
             if fmt == "netcdf":
                 idata.to_netcdf(str(tmp))
             else:
                 _write_csv(results, tmp)
+        try:
+            if overwrite:
+                os.replace(hidden, path)
+            else:
+                _publish_new(hidden, path)
+        finally:
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(hidden)
     except OSError as exc:
         raise RunFolderError(f"{path}: cannot write the export ({exc.strerror or exc})") from None
     log.info("exported %d samples of %s to %s (%s)", len(results.samples), results.target.name, path, fmt)
