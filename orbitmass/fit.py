@@ -183,6 +183,15 @@ class Fit:
         """
         return forecast_predict(self.results, epochs, **kwargs)
 
+    def to_arviz(self):
+        """The posterior as an ArviZ ``InferenceData``, walkers as chains (needs arviz: ``orbitmass[export]``).
+
+        See :func:`orbitmass.io.export.to_inference_data` for the groups and attributes.
+        """
+        from orbitmass.io.export import to_inference_data
+
+        return to_inference_data(self.results)
+
     def report(self, out_dir: str | Path) -> Path:
         """Write figures, tables, report.md and report.html into ``out_dir``; returns the report path."""
         return write_products(self.results, Path(out_dir))

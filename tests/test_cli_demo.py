@@ -73,7 +73,7 @@ def test_every_command_module_has_the_two_functions_and_python_m_works():
     from orbitmass.cli.main import COMMANDS
 
     # one module per command group, each with add_parser(subparsers) and run(args) -> int
-    assert list(COMMANDS) == ["fit", "demo", "report", "compare", "batch", "predict", "plan"]
+    assert list(COMMANDS) == ["fit", "demo", "report", "compare", "batch", "predict", "plan", "export"]
     for name, module in COMMANDS.items():
         assert callable(module.add_parser) and callable(module.run), name
     # `python -m orbitmass` and `python -m orbitmass.cli` are the same command; usage errors exit 2

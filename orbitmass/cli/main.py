@@ -14,7 +14,7 @@ import logging
 import sys
 
 from orbitmass._version import __version__
-from orbitmass.cli import batch, compare, demo, fit, plan, predict, report
+from orbitmass.cli import batch, compare, demo, export, fit, plan, predict, report
 from orbitmass.cli.common import EXIT_INPUT, run_command
 
 __all__ = ["main", "build_parser", "COMMANDS"]
@@ -28,6 +28,7 @@ COMMANDS = {
     "batch": batch,
     "predict": predict,
     "plan": plan,
+    "export": export,
 }
 
 

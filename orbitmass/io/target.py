@@ -125,7 +125,17 @@ from orbitmass.model.data import (
     Velocities,
     name_problem,
 )
-from orbitmass.model.priors import FAMILIES, Fixed, Isotropic, LogUniform, Normal, Prior, Uniform
+from orbitmass.model.priors import (
+    FAMILIES,
+    Fixed,
+    Isotropic,
+    LogUniform,
+    Normal,
+    Prior,
+    Uniform,
+    make_prior,
+    optional_keys,
+)
 from orbitmass.units import DAYS_PER_YEAR, parse_quantity
 
 __all__ = ["read_target", "read_target_name", "parse_prior", "DEFAULT_PRIORS", "MAX_TARGET_BYTES",
@@ -366,14 +376,18 @@ def parse_prior(
         raise InputError(f"unknown prior dist {_show(dist)}{hint}; expected one of "
                          f"{', '.join(allowed)}", file=where, key=f"{key}.dist")
     cls, required = FAMILIES[dist]
-    _no_unknown(spec, ("dist",) + required, key, where)
+    optional = tuple(optional_keys(cls))
+    _no_unknown(spec, ("dist",) + required + optional, key, where)
+    if optional and physical_type is not None and any(k not in spec for k in optional):
+        raise InputError(f"a {dist} prior on a quantity with units needs "
+                         f"{', '.join(required + optional)}", file=where, key=key)
     values: dict[str, float] = {}
-    for name in required:
+    for name in required + tuple(k for k in optional if k in spec):
         sub = f"{key}.{name}"
         if name not in spec:
             raise InputError(f"missing '{name}': a {dist} prior needs {', '.join(required)}",
                              file=where, key=sub)
-        if physical_type is None:
+        if physical_type is None or name in cls.shape_keys:  # shape parameters are bare numbers
             values[name] = _bare_number(spec[name], sub, where)
         elif physical_type == "orientation":  # validated as an angle, converted by astropy
             parse_quantity(spec[name], "angle", key=sub, where=where)
@@ -383,13 +397,16 @@ def parse_prior(
     if "sd" in values and not values["sd"] > 0.0:
         raise InputError(f"sd must be positive, got {_show(spec['sd'])}", file=where,
                          key=f"{key}.sd")
-    if "low" in values and not values["low"] < values["high"]:
+    if "low" in values and "high" in values and not values["low"] < values["high"]:
         raise InputError(f"low ({_show(spec['low'])}) must be below high "
                          f"({_show(spec['high'])})", file=where, key=f"{key}.low")
     if dist == "log-uniform" and not values["low"] > 0.0:
         raise InputError(f"a log-uniform prior needs low > 0, got {_show(spec['low'])}",
                          file=where, key=f"{key}.low")
-    return cls(**values)
+    try:
+        return make_prior(dist, values)
+    except InputError as exc:  # a range the family checks (e.g. beta: alpha > 0)
+        raise InputError(exc.reason, file=where, key=f"{key}.{exc.key}") from None
 
 
 # --------------------------------------------------------------------------- sections
