@@ -26,6 +26,7 @@ from orbitmass.forecast.predict import predict as forecast_predict
 from orbitmass.inference import pipeline
 from orbitmass.inference.quality import issue_warnings
 from orbitmass.inference.sampler import SamplerOptions
+from orbitmass.io.export import to_inference_data
 from orbitmass.io.rundir import load_run, save_run, write_products
 from orbitmass.io.target import read_target
 from orbitmass.model.data import Target
@@ -188,7 +189,6 @@ class Fit:
 
         See :func:`orbitmass.io.export.to_inference_data` for the groups and attributes.
         """
-        from orbitmass.io.export import to_inference_data
 
         return to_inference_data(self.results)
 

@@ -8,6 +8,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from orbitmass.exceptions import RunFolderError
+from orbitmass.io.export import export_run, format_from_path
+
 __all__ = ["add_parser", "run"]
 
 
@@ -30,8 +33,6 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 def run(args) -> int:
     """Run ``orbitmass export``; returns the exit code (errors propagate as OrbitmassError)."""
-    from orbitmass.exceptions import RunFolderError
-    from orbitmass.io.export import export_run, format_from_path
 
     fmt = args.format or format_from_path(args.out)
     try:

@@ -7,6 +7,12 @@ from __future__ import annotations
 
 import argparse
 
+from orbitmass.cli.predict import load_run_folder
+from orbitmass.exceptions import InputError
+from orbitmass.forecast._common import epoch_grid, parse_epoch, parse_step_yr, prepare_out_dir
+from orbitmass.forecast.plan import parse_costs, plan
+from orbitmass.units import parse_quantity
+
 __all__ = ["add_parser", "run"]
 
 
@@ -47,11 +53,6 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 def run(args) -> int:
     """Run ``orbitmass plan``; returns the exit code (errors propagate as OrbitmassError)."""
-    from orbitmass.cli.predict import _load
-    from orbitmass.exceptions import InputError
-    from orbitmass.forecast._common import epoch_grid, parse_epoch, parse_step_yr, prepare_out_dir
-    from orbitmass.forecast.plan import parse_costs, plan
-    from orbitmass.units import parse_quantity
 
     a = parse_epoch(args.window[0], key="--window")
     b = parse_epoch(args.window[1], key="--window")
@@ -66,7 +67,7 @@ def run(args) -> int:
     vprec = parse_quantity(args.velocity_precision, "speed", key="--velocity-precision")
     costs = parse_costs(args.cost)
     prepare_out_dir(args.out, kind="plan", overwrite=args.overwrite, check_only=True)  # refuse before the work
-    fit = _load(args.run_dir)
+    fit = load_run_folder(args.run_dir)
     result = plan(fit.results, epochs, quantity=args.quantity, precision_mas=prec, velocity_precision_kms=vprec,
                   costs=costs, max_epochs=args.max_epochs, n_draws=args.draws, seed=args.seed,
                   instrument=args.instrument)

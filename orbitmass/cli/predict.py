@@ -10,6 +10,11 @@ from pathlib import Path
 
 import numpy as np
 
+from orbitmass.exceptions import InputError, RunFolderError
+from orbitmass.fit import load
+from orbitmass.forecast._common import epoch_grid, parse_epoch, parse_step_yr
+from orbitmass.forecast.predict import write_predictions
+
 __all__ = ["add_parser", "run", "read_epochs"]
 
 
@@ -41,8 +46,6 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
 
 def read_epochs(args) -> np.ndarray:
     """Epochs (Julian years) from ``--at`` or ``--from/--to/--step``; InputError on bad input."""
-    from orbitmass.exceptions import InputError
-    from orbitmass.forecast._common import epoch_grid, parse_epoch, parse_step_yr
 
     if args.at:
         if args.stop is not None or args.step is not None:
@@ -54,9 +57,7 @@ def read_epochs(args) -> np.ndarray:
                       parse_step_yr(args.step, key="--step"))
 
 
-def _load(run_dir: str):
-    from orbitmass.exceptions import RunFolderError
-    from orbitmass.fit import load
+def load_run_folder(run_dir: str):
 
     path = Path(run_dir)
     if not (path / "summary.json").is_file():
@@ -66,15 +67,12 @@ def _load(run_dir: str):
 
 def run(args) -> int:
     """Run ``orbitmass predict``; returns the exit code (errors propagate as OrbitmassError)."""
-    from orbitmass.exceptions import InputError
-    from orbitmass.forecast._common import parse_epoch
-    from orbitmass.forecast.predict import write_predictions
 
     epochs = read_epochs(args)
     if args.draws <= 0:
         raise InputError(f"expected a positive number of draws, got {args.draws}", key="--draws")
     after = None if args.after is None else parse_epoch(args.after, key="--after")
-    fit = _load(args.run_dir)
+    fit = load_run_folder(args.run_dir)
     paths = write_predictions(fit.results, epochs, args.out, after=after, overwrite=args.overwrite,
                               n_draws=args.draws, seed=args.seed, run_dir=str(args.run_dir))
     print(f"predictions for {epochs.size} epochs: {paths['predictions']}")

@@ -19,8 +19,11 @@ from typing import Any, Sequence
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
+from orbitmass._version import __version__
 from orbitmass.exceptions import InputError, RunFolderError
+from orbitmass.outputs.style import write_atomic
 from orbitmass.results import QUANTILES, Results
+from orbitmass.units import parse_quantity
 
 __all__ = [
     "parse_epoch",
@@ -85,7 +88,7 @@ def parse_epoch(text: str | float, *, key: str = "epoch") -> float:
 
 
 def _iso_to_jyear(s: str, key: str) -> float:
-    from astropy.time import Time
+    from astropy.time import Time  # start-up time: loaded only when needed
 
     for fmt in ("isot", "iso"):
         with warnings.catch_warnings():
@@ -100,7 +103,6 @@ def _iso_to_jyear(s: str, key: str) -> float:
 
 def parse_step_yr(text: str | float, *, key: str = "--step") -> float:
     """A positive time step: a bare number of Julian years, or a quantity such as ``"30 d"``."""
-    from orbitmass.units import parse_quantity
 
     if isinstance(text, (int, float)) and not isinstance(text, bool):
         value = float(text)
@@ -128,7 +130,7 @@ def epoch_grid(start: float, stop: float, step_yr: float, *, key: str = "--from/
 
 def jyear_to_iso(t_jyear: ArrayLike) -> list[str]:
     """ISO UTC dates (``YYYY-MM-DD``) of Julian-year epochs, for tables meant for people."""
-    from astropy.time import Time
+    from astropy.time import Time  # start-up time: loaded only when needed
 
     t = np.atleast_1d(np.asarray(t_jyear, dtype=float))
     out = []
@@ -382,8 +384,6 @@ def prepare_out_dir(out_dir: str | os.PathLike, *, kind: str, overwrite: bool, c
 
 def write_manifest(out: Path, *, kind: str, files: Sequence[str], run_dir: str, extra: dict | None = None) -> Path:
     """Write the :data:`MANIFEST_NAME` listing ``files`` (names inside ``out``)."""
-    from orbitmass import __version__
-    from orbitmass.outputs.style import write_atomic
 
     info = {"kind": kind, "orbitmass_version": __version__, "run_dir": str(run_dir),
             "created_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),

@@ -47,6 +47,9 @@ expectation. It does not see gains from resolving a multimodal posterior (a
 period alias, the (omega, Omega) ambiguity a first velocity removes) and it is
 approximate when the posterior is far from Gaussian (a short arc); the
 measurement noise is the stated precision, not a promise.
+
+Longer than 600 lines because the planning method, its table, its figure and its
+recommendation text share the linearised-variance machinery and read best together.
 """
 
 from __future__ import annotations
@@ -59,6 +62,7 @@ from typing import Any, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
+from matplotlib.figure import Figure
 from numpy.typing import ArrayLike, NDArray
 
 from orbitmass.exceptions import InputError
@@ -69,9 +73,12 @@ from orbitmass.forecast._common import (
     period_obs_column,
     prepare_out_dir,
     quantiles,
+    reference_row,
     strict_json,
     write_manifest,
 )
+from orbitmass.forecast.predict import predictive_draws
+from orbitmass.outputs.style import DOUBLE_COLUMN_IN, PALETTE, save_figure, style_context, write_atomic
 from orbitmass.results import Results
 
 __all__ = ["plan", "Plan", "resolve_quantity", "parse_costs", "KINDS"]
@@ -262,16 +269,13 @@ class Plan:
         -------
         matplotlib.figure.Figure
         """
-        import matplotlib.pyplot as plt
-
-        from orbitmass.outputs.style import DOUBLE_COLUMN_IN, PALETTE, style_context
 
         colours = {"positions": PALETTE["blue"], "velocities": PALETTE["vermillion"]}
         styles = {"positions": "-", "velocities": "--"}
         has_curve = bool(self.curves)
         with style_context():
-            fig, axes = plt.subplots(2 if has_curve else 1, 1, figsize=(DOUBLE_COLUMN_IN, 4.2 if has_curve else 2.6),
-                                     sharex=True, squeeze=False, constrained_layout=True,
+            fig = Figure(figsize=(DOUBLE_COLUMN_IN, 4.2 if has_curve else 2.6), layout="constrained")
+            axes = fig.subplots(2 if has_curve else 1, 1, sharex=True, squeeze=False,
                                      gridspec_kw={"height_ratios": [1.6, 1]} if has_curve else None)
             ax = axes[0, 0]
             comps = list(dict.fromkeys(self.table["companion"]))
@@ -318,9 +322,6 @@ class Plan:
         ``out_dir`` must be new or empty, or an earlier plan folder with
         ``overwrite`` (nothing else is ever replaced).
         """
-        import matplotlib.pyplot as plt
-
-        from orbitmass.outputs.style import save_figure, write_atomic
 
         out = prepare_out_dir(out_dir, kind="plan", overwrite=overwrite)
         paths = {"table": write_atomic(out / "plan.csv", self.table.to_csv(index=False, float_format="%.8g")),
@@ -331,10 +332,7 @@ class Plan:
                       "sd_now": self.sd_now, "options": self.options, "events": self.events,
                       "best": self.table.iloc[0].to_dict(), "method": __doc__.split("Method\n------\n")[1]}))}
         fig = self.figure()
-        try:
-            paths["figure_png"], paths["figure_pdf"] = save_figure(fig, out / "plan")
-        finally:
-            plt.close(fig)
+        paths["figure_png"], paths["figure_pdf"] = save_figure(fig, out / "plan")
         write_manifest(out, kind="plan", files=[p.name for p in paths.values()], run_dir=run_dir)
         return paths
 
@@ -508,7 +506,6 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
     t_lo, t_hi = float(t.min()), float(t.max())
     events = orbit_events(results, t_lo, t_hi, companions=names, seed=seed)
     rows_out = []
-    from orbitmass.forecast._common import reference_row
 
     ref = reference_row(results)
     for c in names:
@@ -602,7 +599,6 @@ def _greedy_sets(fisher, P, g, var_lin, sd_now, t, names, cost, K) -> pd.DataFra
 
 def _context_curves(results, t, names, seed) -> dict:
     """Predicted velocity (or separation) over the window for the figure's lower panel."""
-    from orbitmass.forecast.predict import predictive_draws
 
     grid = np.linspace(float(t.min()), float(t.max()), 400) if t.size > 1 else t
     d = predictive_draws(results, grid, companions=names, n_draws=500, seed=seed)

@@ -54,6 +54,7 @@ from typing import Any, Sequence
 
 import numpy as np
 import pandas as pd
+from matplotlib.figure import Figure
 from numpy.typing import ArrayLike, NDArray
 
 from orbitmass.exceptions import InputError
@@ -70,6 +71,7 @@ from orbitmass.forecast._common import (
     strict_json,
     write_manifest,
 )
+from orbitmass.outputs.style import DOUBLE_COLUMN_IN, MARKERS, PALETTE, save_figure, style_context, write_atomic
 from orbitmass.results import QUANTILES, Results
 
 __all__ = ["predict", "predictive_draws", "prediction_columns", "next_events", "prediction_figure",
@@ -328,9 +330,6 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
     -------
     matplotlib.figure.Figure
     """
-    import matplotlib.pyplot as plt
-
-    from orbitmass.outputs.style import DOUBLE_COLUMN_IN, MARKERS, PALETTE, style_context
 
     t_pred = _epochs(epochs)
     names = _companions(results, companions)
@@ -339,8 +338,8 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
     blue, verm, grey = PALETTE["blue"], PALETTE["vermillion"], "#7f7f7f"
     offsets = results.velocity_offsets()
     with style_context():
-        fig, axes = plt.subplots(len(names), n_cols, figsize=(DOUBLE_COLUMN_IN, 2.6 * len(names) + 0.8),
-                                 squeeze=False, constrained_layout=True)
+        fig = Figure(figsize=(DOUBLE_COLUMN_IN, 2.6 * len(names) + 0.8), layout="constrained")
+        axes = fig.subplots(len(names), n_cols, squeeze=False)
         for r, c in enumerate(names):
             comp = results.space.companion(c)
             t_data = []
@@ -466,9 +465,6 @@ def write_predictions(results: Results, epochs: ArrayLike, out_dir: str | Path, 
     dict
         File role -> path.
     """
-    import matplotlib.pyplot as plt
-
-    from orbitmass.outputs.style import save_figure, write_atomic
 
     t = _epochs(epochs)
     prepare_out_dir(out_dir, kind="predictions", overwrite=overwrite, check_only=True)  # refuse before the work
@@ -482,10 +478,7 @@ def write_predictions(results: Results, epochs: ArrayLike, out_dir: str | Path, 
     paths["events_json"] = write_atomic(out / "next_events.json", strict_json(
         {"target": results.target.name, "after_jyear": after, "companions": events}))
     paths["events_md"] = write_atomic(out / "next_events.md", events_markdown(events, after, results.target.name))
-    try:
-        png, pdf = save_figure(fig, out / "predictions")
-    finally:
-        plt.close(fig)
+    png, pdf = save_figure(fig, out / "predictions")
     paths["figure_png"], paths["figure_pdf"] = png, pdf
     write_manifest(out, kind="predictions", files=[p.name for p in paths.values()], run_dir=run_dir,
                    extra={"n_epochs": int(t.size), "seed": int(seed),

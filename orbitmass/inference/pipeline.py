@@ -151,7 +151,8 @@ def _linear_path(target, space, rng, options, seed, n_walkers, max_periods, stop
         diag["thin"] = ldiag["thin_3d"]
     info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
             "n_evaluations": run.n_evaluations, "sampler": "linear"}
-    summary["fit_quality"], info["residuals"] = quality_or_failure(final, theta, lp, seed=seed)
+    summary["fit_quality"], info["residuals"] = quality_or_failure(final, theta, lp, seed=seed,
+                                                                  interrupted=bool(run.interrupted))
     return Results(target=target, space=final, samples=samples, theta=theta, chain=run.chain,
                    log_prob=run.log_prob, burn=run.burn, thin=run.thin, summary=summary, info=info)
 
@@ -203,6 +204,7 @@ def _sampler_path(target, space, rng, options, seed, n_walkers, max_periods, ckp
     summary = build_summary(target, space, samples, run, init, seed, wall)
     info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
             "n_evaluations": run.n_evaluations}
-    summary["fit_quality"], info["residuals"] = quality_or_failure(space, theta, lp, seed=seed)
+    summary["fit_quality"], info["residuals"] = quality_or_failure(space, theta, lp, seed=seed,
+                                                                  interrupted=bool(run.interrupted))
     return Results(target=target, space=space, samples=samples, theta=theta, chain=run.chain,
                    log_prob=run.log_prob, burn=run.burn, thin=run.thin, summary=summary, info=info)

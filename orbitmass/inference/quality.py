@@ -66,6 +66,10 @@ Stat. 12, 367: a smooth unmodelled signal cancels in differences, noise does
 not), the structure statistic ``1 - eta`` of the von Neumann ratio, the share of
 the chi-square a constant removes (velocities), the share of the largest row,
 and the size of first-order relativistic terms against the errors.
+
+Longer than 600 lines because the statistics, the degrees-of-freedom convention and the
+diagnosis of likely causes use the same residual arrays; split candidates (the report
+wording, the cause rules) are marked by section comments.
 """
 
 from __future__ import annotations
@@ -724,14 +728,18 @@ def fit_quality(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDA
 
 
 def quality_or_failure(space: ParameterSpace, theta: NDArray[np.float64], log_post: NDArray[np.float64], *,
-                       seed: int) -> tuple[dict, dict]:
+                       seed: int, interrupted: bool = False) -> tuple[dict, dict]:
     """The ``fit_quality`` block and the residual table (JSON-ready columns) of a finished run.
 
     A failure here must not lose a finished sampling run: it is logged and the
     block says "poor" with the reason, so the fit is not presented as a good one.
+    After an interruption (Ctrl-C) the statistics are taken at the best retained
+    sample without the polish and with few posterior draws, so that the program
+    still stops within a couple of seconds.
     """
+    quick = {"polish": False, "n_draws": 20} if interrupted else {}
     try:
-        fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]))
+        fq, residuals = assess_fit(space, theta, log_post, rng=np.random.default_rng([int(seed), 11]), **quick)
     except (ValueError, FloatingPointError, np.linalg.LinAlgError, KeyError, IndexError) as exc:
         log.exception("goodness of fit could not be computed")
         reason = f"goodness of fit could not be computed ({type(exc).__name__}: {exc})"

@@ -51,7 +51,9 @@ from typing import Any
 import numpy as np
 
 from orbitmass._atomic import LOCK_NAME, MARKER_NAME, atomic_path, check_writable, read_marker
+from orbitmass._version import __version__
 from orbitmass.exceptions import InputError, OrbitmassError, RunFolderError
+from orbitmass.io.rundir import RUN_FILES, load_run
 from orbitmass.model.quantities import quantity
 
 __all__ = ["EXPORT_FORMATS", "to_inference_data", "export_run", "format_from_path", "LP_COLUMN"]
@@ -68,7 +70,7 @@ _INSTALL_HINT = 'pip install "orbitmass[export]" (or pip install arviz)'
 def _arviz():
     """Import ArviZ, or raise an :class:`OrbitmassError` with the install hint."""
     try:
-        import arviz
+        import arviz  # start-up time: loaded only when needed
     except ImportError:
         raise OrbitmassError(f"exporting to ArviZ or NetCDF needs the optional package arviz, which is not "
                              f"installed; install it with: {_INSTALL_HINT}") from None
@@ -105,7 +107,6 @@ def _method(results) -> str:
 
 
 def _attrs(results, layout: str, n_walkers: int | None) -> dict[str, Any]:
-    from orbitmass import __version__
 
     summary = results.summary
     seed = summary.get("provenance", {}).get("seed")
@@ -224,7 +225,6 @@ def format_from_path(path: str | os.PathLike[str]) -> str:
 def _results_of(source):
     """Results from a Results, a fitted Fit (anything with ``.results``) or a run folder path."""
     if isinstance(source, str | os.PathLike):
-        from orbitmass.io.rundir import load_run
 
         return load_run(Path(source))
     return getattr(source, "results", source)
@@ -238,7 +238,6 @@ def _check_destination(path: Path, overwrite: bool) -> None:
             raise _exists_error(path)
     parent = path.parent
     if parent.is_dir() and (read_marker(parent) is not None or (parent / "summary.json").is_file()):
-        from orbitmass.io.rundir import RUN_FILES
 
         marker = read_marker(parent) or {}
         if path.name in RUN_FILES or path.name in (MARKER_NAME, LOCK_NAME) or path.name in marker.get("files", []):

@@ -66,6 +66,8 @@ from orbitmass._atomic import (
     write_marker,
 )
 from orbitmass._atomic import jsonable as _jsonable
+from orbitmass._version import __version__
+from orbitmass.core.cosmology import redshift_distance_pc
 from orbitmass.exceptions import RunFolderError
 from orbitmass.io.checkpoint import CHECKPOINT_NAME
 from orbitmass.model.data import (
@@ -79,8 +81,10 @@ from orbitmass.model.data import (
     Target,
     Velocities,
 )
+from orbitmass.model.parameters import ParameterSpace
 from orbitmass.model.priors import FAMILIES, Prior
 from orbitmass.outputs.products import write_products as render_products
+from orbitmass.results import Results
 
 __all__ = [
     "save_run",
@@ -221,7 +225,6 @@ def _read_target(group: h5py.Group) -> Target:
 # ---------------------------------------------------------------- posterior
 def write_posterior(results, path: Path) -> None:
     """Write ``posterior.h5`` (atomically), every dataset with its SHA-256 checksum."""
-    from orbitmass import __version__
 
     with atomic_path(path) as tmp, h5py.File(tmp, "w") as f:
         f.attrs["orbitmass_version"] = __version__
@@ -282,9 +285,6 @@ def load_run(run_dir: Path):
         unreadable; summary.json is not a JSON object; or a stored array or
         summary.json's numbers differ from the checksums recorded at saving.
     """
-    from orbitmass.core.cosmology import redshift_distance_pc
-    from orbitmass.model.parameters import ParameterSpace
-    from orbitmass.results import Results
 
     run_dir = Path(run_dir)
     summary_path = run_dir / "summary.json"

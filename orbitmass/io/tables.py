@@ -66,6 +66,10 @@ Velocity tables
 
 Rows are returned sorted by epoch (stable sort: rows with equal epochs keep
 their file order); duplicated epochs are allowed.
+
+Longer than 600 lines because every format (CSV, ECSV, FITS, VOTable) goes through one
+validation path that must name the file, line and column of each bad value; keeping the
+checks beside the readers keeps the error wording in one place.
 """
 
 from __future__ import annotations
@@ -387,7 +391,7 @@ def _grid(text: str, source: str) -> _Grid:
 
 
 def _read_astropy(data: bytes, source: str, fmt: str):
-    from astropy.table import Table
+    from astropy.table import Table  # start-up time: loaded only when needed
 
     if fmt == "fits.gz":
         try:
@@ -421,7 +425,7 @@ def _read_astropy(data: bytes, source: str, fmt: str):
 
 def _astropy_column(col, name: str, quantities: dict, source: str) -> tuple[str, list[str]]:
     """(column name as in CSV, cells as strings) of one astropy column."""
-    import astropy.units as u
+    import astropy.units as u  # start-up time: loaded only when needed
 
     if isinstance(col, Time):
         return "jyear", [repr(float(v)) for v in np.atleast_1d(col.tdb.jyear)]

@@ -84,6 +84,9 @@ Limits
     within the Julian years -5000 to 10000, like table epochs. Table paths may
     be relative (to the target file's folder), absolute, or lead outside that
     folder.
+
+Longer than 600 lines because every key of the target file is validated here with its own
+error message (file, key, what was expected), which the input contract requires.
 """
 
 from __future__ import annotations
@@ -499,7 +502,7 @@ def _distance(doc: dict[str, Any], where: str) -> Distance:
         if redshift is None:
             raise InputError("'cosmology' is used only with a redshift", file=where,
                              key="distance.cosmology")
-        from astropy.cosmology import realizations
+        from astropy.cosmology import realizations  # start-up time: loaded only when needed
 
         cosmology = dist["cosmology"]
         if isinstance(cosmology, dict):

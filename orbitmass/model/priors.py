@@ -177,7 +177,7 @@ class TruncNormal(Prior):
         return np.where((x >= self.low) & (x <= self.high), out, -np.inf)
 
     def sample(self, rng, size):
-        from scipy.stats import truncnorm
+        from scipy.stats import truncnorm  # start-up time: loaded only when needed
 
         a = (self.low - self.mean) / self.sd
         b = (self.high - self.mean) / self.sd

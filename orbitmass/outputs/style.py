@@ -124,7 +124,7 @@ RC: dict[str, Any] = {
 
 
 def _rc() -> dict[str, Any]:
-    from cycler import cycler
+    from cycler import cycler  # start-up time: loaded only when needed
 
     rc = dict(RC)
     rc["axes.prop_cycle"] = cycler(color=_CYCLE)
@@ -150,7 +150,7 @@ def style_context(**overrides: Any) -> Iterator[None]:
     >>> inside, matplotlib.rcParams["font.size"] == before
     (8.0, True)
     """
-    import matplotlib
+    import matplotlib  # start-up time: loaded only when needed
 
     rc = _rc()
     rc.update(overrides)

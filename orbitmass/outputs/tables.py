@@ -280,7 +280,7 @@ def _mjd(jyr: float) -> float:
 
 def iso_date(jyr: float) -> str:
     """ISO 8601 date and time (to the minute) of a Julian-year epoch, via astropy.time."""
-    from astropy.time import Time
+    from astropy.time import Time  # start-up time: loaded only when needed
 
     if not math.isfinite(float(jyr)):
         return "n/a"
@@ -478,7 +478,7 @@ def table_csv(results: Results, table: pd.DataFrame | None = None, **_ignored: A
 
 
 def _astropy_unit(key: str):
-    import astropy.units as u
+    import astropy.units as u  # start-up time: loaded only when needed
 
     return {"M_sun": u.M_sun, "pc": u.pc, "mas": u.mas, "au": u.au, "km/s": u.km / u.s,
             "mas/yr": u.mas / u.yr, "yr": u.yr, "Julian yr": u.yr, "deg": u.deg}.get(key)
@@ -491,7 +491,7 @@ def table_ecsv(results: Results, table: pd.DataFrame | None = None, **_ignored: 
     columns carry no single unit; the ``unit`` column holds the astropy unit
     string (``solMass``, ``pc``, ``km / s``...; empty for dimensionless or R_S).
     """
-    from astropy.table import Table
+    from astropy.table import Table  # start-up time: loaded only when needed
 
     table = results_table(results) if table is None else table
     t = Table.from_pandas(table.astype({"fixed": bool}))

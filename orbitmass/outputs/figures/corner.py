@@ -116,9 +116,9 @@ def corner_figure(
     InputError
         If a column is unknown or constant, or ``labels`` has the wrong length.
     """
-    import corner
-    from matplotlib.figure import Figure
-    from matplotlib.ticker import MaxNLocator
+    import corner  # start-up time: loaded only when needed
+    from matplotlib.figure import Figure  # start-up time: loaded only when needed
+    from matplotlib.ticker import MaxNLocator  # start-up time: loaded only when needed
 
     companions = results.companion_names
     chosen = params if params is not None else columns

@@ -55,7 +55,7 @@ def _period_obs(results: Results, name: str, rows: NDArray[np.int64]) -> NDArray
 
 
 def _time_axis(ax) -> None:
-    from matplotlib.ticker import MaxNLocator
+    from matplotlib.ticker import MaxNLocator  # start-up time: loaded only when needed
 
     ax.xaxis.set_major_locator(MaxNLocator(nbins=6, integer=True, min_n_ticks=3))
 
@@ -163,7 +163,7 @@ class _CompanionPanels:
         self.legend.setdefault(label, handle)
 
     def _line_handle(self, **kw):
-        from matplotlib.lines import Line2D
+        from matplotlib.lines import Line2D  # start-up time: loaded only when needed
 
         return Line2D([], [], **kw)
 
@@ -457,7 +457,7 @@ def orbit_figure(
     InputError
         If ``companion`` is not a companion of the target or ``n_draws`` < 1.
     """
-    from matplotlib.figure import Figure
+    from matplotlib.figure import Figure  # start-up time: loaded only when needed
 
     if n_draws < 1:
         raise InputError(f"n_draws must be at least 1, got {n_draws}", key="n_draws")

@@ -110,8 +110,8 @@ def trace_figure(
     InputError
         For an unknown variable name.
     """
-    from matplotlib.collections import LineCollection
-    from matplotlib.figure import Figure
+    from matplotlib.collections import LineCollection  # start-up time: loaded only when needed
+    from matplotlib.figure import Figure  # start-up time: loaded only when needed
 
     all_names = list(results.space.names)
     chosen = list(names) if names is not None else all_names[:max_params]

@@ -1,0 +1,210 @@
+"""The package's own structure rules, read from the source with ``ast``.
+
+Rules (DEVELOPERS.md, "Map of the package"): imports run one way through the
+layers below; no import cycles; imports inside functions only for optional
+dependencies or start-up time (each one listed in ``LOCAL_IMPORTS_ALLOWED``
+with its reason); no module imports another module's private names; no module
+over 600 lines without a reason stated in its docstring; the old flat module
+paths still import, with a deprecation warning, for one release.
+Common practice, no source: these are this project's conventions.
+"""
+
+from __future__ import annotations
+
+import ast
+import importlib
+import sys
+import warnings
+from pathlib import Path
+
+import pytest
+
+PKG = Path(__file__).resolve().parents[1] / "orbitmass"
+
+# rank of each top-level part; a module may import only from parts of lower or equal rank
+RANK = {
+    "exceptions": 0, "_version": 0, "units": 1, "_atomic": 1, "_compat": 1,
+    "core": 2, "model": 3, "results": 4, "io": 5, "outputs": 5, "inference": 6, "fit": 7,
+    "compare": 8, "batch": 8, "forecast": 6, "demo": 9, "cli": 10,
+}
+
+# module -> imported orbitmass module -> why the import is inside a function (start-up time)
+LOCAL_IMPORTS_ALLOWED = {
+    "orbitmass.model": {"importlib": "deprecated names resolved on first use (module __getattr__)",
+                        "orbitmass.exceptions": "deprecated names resolved on first use"},
+    "orbitmass.cli.compare": {"orbitmass.compare": "start-up time of every other command"},
+    "orbitmass.cli.demo": {"orbitmass.demo.run": "start-up time of every other command"},
+    "orbitmass.fit": {"orbitmass.outputs.plots": "start-up time: matplotlib only when a figure is asked for"},
+}
+OPTIONAL = ("dask", "distributed", "pyarrow", "arviz", "numba", "tqdm", "cloudpickle", "corner")
+
+
+def _modules():
+    for path in sorted(PKG.rglob("*.py")):
+        rel = path.relative_to(PKG.parent).with_suffix("")
+        parts = list(rel.parts)
+        if parts[-1] == "__init__":
+            parts = parts[:-1]
+        yield ".".join(parts), path
+
+
+def _part(modname: str) -> str | None:
+    bits = modname.split(".")
+    return bits[1] if len(bits) > 1 else None
+
+
+def _imports(tree: ast.AST, modname: str, is_pkg: bool):
+    """(imported module, names, is_local, lineno) for every import in the module."""
+    out = []
+
+    def visit(node, local):
+        for child in ast.iter_child_nodes(node):
+            inner = local or isinstance(child, (ast.FunctionDef, ast.AsyncFunctionDef))
+            if isinstance(child, ast.Import):
+                for alias in child.names:
+                    out.append((alias.name, [], inner, child.lineno))
+            elif isinstance(child, ast.ImportFrom):
+                if child.level:
+                    base = modname.split(".") if is_pkg else modname.split(".")[:-1]
+                    base = base[: len(base) - (child.level - 1)]
+                    mod = ".".join(base + ([child.module] if child.module else []))
+                else:
+                    mod = child.module or ""
+                out.append((mod, [a.name for a in child.names], inner, child.lineno))
+            visit(child, inner)
+
+    visit(tree, False)
+    return out
+
+
+def _graph():
+    mods = dict(_modules())
+    edges = {}
+    for name, path in mods.items():
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        edges[name] = (tree, _imports(tree, name, path.name == "__init__.py"))
+    return mods, edges
+
+
+MODS, EDGES = _graph()
+
+
+def test_imports_run_one_way():
+    bad = []
+    for name, (_, imports) in EDGES.items():
+        src = _part(name)
+        if src is None or src in ("__main__",):
+            continue
+        for mod, _names, local, line in imports:
+            if not mod.startswith("orbitmass.") and mod != "orbitmass":
+                continue
+            dst = _part(mod)
+            if dst is None:  # `from orbitmass import __version__`
+                continue
+            if RANK.get(dst, 99) > RANK.get(src, 99):
+                bad.append(f"{name}:{line} imports {mod} (upward: {src} -> {dst})")
+    assert not bad, "\n".join(bad)
+
+
+def test_no_import_cycles_between_modules():
+    graph = {}
+    for name, (_, imports) in EDGES.items():
+        deps = set()
+        for mod, names, _local, _line in imports:
+            if mod.startswith("orbitmass"):
+                for cand in [f"{mod}.{n}" for n in names] + [mod]:
+                    if cand in MODS and cand != name:
+                        deps.add(cand)
+                        break
+        graph[name] = deps
+    # ignore package __init__ re-exports importing their own children
+    for name in graph:
+        graph[name] = {d for d in graph[name] if not d.startswith(name + ".")}
+    state, stack, cycles = {}, [], []
+
+    def dfs(node):
+        state[node] = 1
+        stack.append(node)
+        for dep in graph.get(node, ()):
+            if state.get(dep) == 1:
+                cycles.append(" -> ".join(stack[stack.index(dep):] + [dep]))
+            elif dep not in state:
+                dfs(dep)
+        stack.pop()
+        state[node] = 2
+
+    for node in graph:
+        if node not in state:
+            dfs(node)
+    assert not cycles, "\n".join(cycles)
+
+
+def test_function_level_imports_only_where_allowed():
+    """Inside a function: optional dependencies, or a heavy library for start-up time, said on the line."""
+    bad = []
+    for name, (_, imports) in EDGES.items():
+        lines = MODS[name].read_text(encoding="utf-8").splitlines()
+        for mod, _names, local, line in imports:
+            if not local:
+                continue
+            top = mod.split(".")[0]
+            text = lines[line - 1]
+            if mod in LOCAL_IMPORTS_ALLOWED.get(name, {}):
+                continue
+            if top == "orbitmass":
+                bad.append(f"{name}:{line} imports {mod} inside a function")
+            elif top not in OPTIONAL and "start-up" not in text and "optional" not in text:
+                bad.append(f"{name}:{line} imports {mod} inside a function without saying why on the line")
+    assert not bad, "\n".join(bad)
+
+
+def test_no_private_names_across_modules():
+    bad = []
+    for name, (_, imports) in EDGES.items():
+        for mod, names, _local, line in imports:
+            if not mod.startswith("orbitmass") or mod == name:
+                continue
+            for n in names:
+                if n.startswith("_") and not n.startswith("__"):
+                    bad.append(f"{name}:{line} imports private {mod}.{n}")
+    assert not bad, "\n".join(bad)
+
+
+def test_modules_stay_readable_in_length():
+    long = []
+    for name, path in MODS.items():
+        n_lines = len(path.read_text(encoding="utf-8").splitlines())
+        if n_lines <= 600:
+            continue
+        doc = ast.get_docstring(EDGES[name][0]) or ""
+        if "600 lines" not in doc.lower() and "600-line" not in doc.lower():
+            long.append(f"{name}: {n_lines} lines and no reason in its docstring")
+    assert not long, "\n".join(long)
+
+
+@pytest.mark.parametrize("old", sorted(importlib.import_module("orbitmass._compat").MOVED_MODULES))
+def test_old_module_paths_import_with_a_deprecation_warning(old):
+    from orbitmass import OrbitmassDeprecationWarning
+    from orbitmass._compat import MOVED_MODULES
+
+    saved = sys.modules.pop(old, None)
+    try:
+        with pytest.warns(OrbitmassDeprecationWarning, match="has moved to"):
+            module = importlib.import_module(old)
+        assert module is importlib.import_module(MOVED_MODULES[old])
+    finally:
+        sys.modules.pop(old, None)
+        if saved is not None:
+            sys.modules[old] = saved
+
+
+def test_old_model_names_warn_and_resolve():
+    from orbitmass import OrbitmassDeprecationWarning
+    from orbitmass.core import orbit
+
+    with pytest.warns(OrbitmassDeprecationWarning):
+        from orbitmass.model import thiele_innes  # noqa: F401
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        import orbitmass.model as m
+        assert m.thiele_innes is orbit.thiele_innes
