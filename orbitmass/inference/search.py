@@ -187,9 +187,9 @@ class SearchSettings:
     """Tuning of :func:`search_orbit` (defaults are what the fit uses)."""
 
     n_bins: int = 2048
-    max_per_slice: int = 3000
+    max_per_slice: int = 2000
     max_grid_rows: int = 4000
-    n_refine: int = 10
+    n_refine: int = 16
     n_refine_full: int = 4
     max_candidates: int = 6
     chunk_rows: int = 100_000
@@ -305,21 +305,20 @@ def _profile(data: SearchData, blocks, period_obs: float, ecc: float, m0: float,
 
 # ------------------------------------------------------------------ phase grid
 class _Tables:
-    """Spectra of the tabulated basis (and products of two basis functions) per eccentricity."""
+    """Spectra of the tabulated basis (and products of two basis functions), per eccentricity."""
 
-    def __init__(self, eccs: Array, n_bins: int, keys: set[str]):
-        m = TWO_PI * np.arange(n_bins) / n_bins
-        self.spec: list[dict[str, Array]] = []
-        for e in eccs:
-            b = kepler_basis(m, t_ref_yr=0.0, period_obs_yr=1.0, ecc=float(e), mean_anomaly_ref=0.0,
+    def __init__(self, eccs: Array, n_bins: int, keys: list[str]):
+        phase = np.arange(n_bins) / n_bins  # mean anomaly / (2 pi) of each bin
+        self.index = {key: i for i, key in enumerate(keys)}
+        self.spec = np.empty((eccs.size, len(keys), n_bins // 2 + 1), complex)
+        for ei, e in enumerate(eccs):
+            b = kepler_basis(phase, t_ref_yr=0.0, period_obs_yr=1.0, ecc=float(e), mean_anomaly_ref=0.0,
                              velocities=True)
             base = {"X": b.X, "Y": b.Y, "dX": b.dX, "dY": b.dY}
-            spec = {}
-            for key in keys:
+            for key, i in self.index.items():
                 parts = key.split("*")
                 arr = base[parts[0]] if len(parts) == 1 else base[parts[0]] * base[parts[1]]
-                spec[key] = np.fft.rfft(arr)
-            self.spec.append(spec)
+                self.spec[ei, i] = np.fft.rfft(arr)
 
 
 def _block_plan(blk: _Block):
@@ -409,12 +408,15 @@ def _grid(data: SearchData, blocks, eccs: Array, settings: SearchSettings, stop_
     freqs, active = _frequency_plan(t_all, data, eccs, settings)
     nb = settings.n_bins
     plans = [_block_plan(blk) for _, blk, _ in blocks]
-    keys = set()
-    for (hists, entries, rhs, *_rest) in plans:
-        keys.update(k for *_, k in entries)
-        keys.update(k for *_, k in rhs)
+    keys = sorted({k for plan in plans for k in [e[3] for e in plan[1]] + [r[2] for r in plan[2]]})
     tables = _Tables(eccs, nb, keys)
-    strides = [max(1, min(nb, int(nb * _width(float(e)) / (2.0 * TWO_PI)))) if e > 0 else nb for e in eccs]
+    strides = np.array([max(1, min(nb, int(nb * _width(float(e)) / (2.0 * TWO_PI)))) if e > 0 else nb
+                        for e in eccs])
+    items = []
+    for hists, entries, rhs, *_ in plans:
+        pairs = [(hi, tables.index[key]) for (_, _, hi, key) in entries] + \
+                [(hi, tables.index[key]) for (_, hi, key) in rhs]
+        items.append((np.array([p[0] for p in pairs]), np.array([p[1] for p in pairs])))
     best_chi2 = np.full(freqs.size, np.inf)
     best_e = np.zeros(freqs.size, int)
     best_m0 = np.zeros(freqs.size)
@@ -424,43 +426,41 @@ def _grid(data: SearchData, blocks, eccs: Array, settings: SearchSettings, stop_
             log.info("%s: search interrupted after %d of %d frequencies", data.name, fi, freqs.size)
             break
         rate = TWO_PI * KMS_PER_AU_PER_YR * data.one_plus_z * f
-        spectra = []
-        for (_, blk, _), (hists, *_r) in zip(blocks, plans):
+        act = np.flatnonzero(active[fi])
+        sel = [np.arange(0, nb, strides[ei]) for ei in act]
+        sizes = [s.size for s in sel]
+        total = None
+        for (_, blk, _), (hists, entries, rhs, const, const_rhs, ywy), (hi, ki) in zip(blocks, plans, items):
             phase = np.mod(f * (blk.t - data.t_ref_yr), 1.0)
             bins = np.minimum((phase * nb + 0.5).astype(np.int64), nb) % nb
             h = np.stack([np.bincount(bins, weights=g, minlength=nb) for g in hists])
-            spectra.append(np.conj(np.fft.rfft(h, axis=1)))
-        for ei in np.flatnonzero(active[fi]):
-            spec = tables.spec[ei]
-            stride = strides[ei]
-            chi2 = 0.0
-            for (_, blk, _), (hists, entries, rhs, const, const_rhs, ywy), hs in zip(blocks, plans, spectra):
-                items = [(hi, key) for (_, _, hi, key) in entries] + [(hi, key) for (_, hi, key) in rhs]
-                prod = np.stack([hs[hi] * spec[key] for hi, key in items])
-                corr = np.fft.irfft(prod, n=nb, axis=1)[:, ::stride]
-                nm = corr.shape[1]
-                k = const.shape[0]
-                normal = np.broadcast_to(const, (nm, k, k)).copy()
-                vec = np.broadcast_to(const_rhs, (nm, k)).copy()
-                nk = len(blk.kernels)
+            hs = np.conj(np.fft.rfft(h, axis=1))
+            corr = np.fft.irfft(hs[hi][None, :, :] * tables.spec[act][:, ki, :], n=nb, axis=-1)
+            corr = np.concatenate([corr[a][:, s] for a, s in enumerate(sel)], axis=1)
+            nm = corr.shape[1]
+            k = const.shape[0]
+            normal = np.empty((nm, k, k))
+            normal[:] = const
+            vec = np.empty((nm, k))
+            vec[:] = const_rhs
+            for c, (i, j, _, _) in enumerate(entries):
+                normal[:, i, j] = corr[c]
+                normal[:, j, i] = corr[c]
+            for c, (i, _, _) in enumerate(rhs):
+                vec[:, i] = corr[len(entries) + c]
+            if blk.velocity:
                 sc = np.ones(k)
-                if blk.velocity:
-                    sc[:nk] = rate
-                for c, (i, j, _, _) in enumerate(entries):
-                    normal[:, i, j] = corr[c]
-                    normal[:, j, i] = corr[c]
-                for c, (i, _, _) in enumerate(rhs):
-                    vec[:, i] = corr[len(entries) + c]
+                sc[: len(blk.kernels)] = rate
                 normal *= sc[:, None] * sc[None, :]
                 vec *= sc
-                _, c2 = _solve(normal, vec, ywy)
-                chi2 = chi2 + c2
-            n_points += np.size(chi2)
-            j = int(np.argmin(chi2))
-            if chi2[j] < best_chi2[fi]:
-                best_chi2[fi] = chi2[j]
-                best_e[fi] = ei
-                best_m0[fi] = TWO_PI * j * stride / nb
+            c2 = _solve(normal, vec, ywy)[1]
+            total = c2 if total is None else total + c2
+        n_points += total.size
+        j = int(np.argmin(total))
+        a = int(np.searchsorted(np.cumsum(sizes), j, side="right"))
+        best_chi2[fi] = total[j]
+        best_e[fi] = act[a]
+        best_m0[fi] = TWO_PI * sel[a][j - (int(np.sum(sizes[:a])))] / nb
     return freqs, best_chi2, best_e, best_m0, n_points
 
 
@@ -576,12 +576,18 @@ def _thin(data: SearchData, max_rows: int):
     return out
 
 
-def _local_minima(chi2: Array) -> NDArray[np.int64]:
-    ok = np.isfinite(chi2)
-    left = np.concatenate([[np.inf], chi2[:-1]])
-    right = np.concatenate([chi2[1:], [np.inf]])
-    idx = np.flatnonzero(ok & (chi2 <= left) & (chi2 <= right))
-    return idx[np.argsort(chi2[idx])]
+def _distinct_minima(freqs: Array, chi2: Array, n: int, sep: float = 0.004) -> list[int]:
+    """Indices of the ``n`` lowest chi^2 frequencies at least ``sep`` apart in ln f."""
+    order = np.argsort(chi2)
+    order = order[np.isfinite(chi2[order])]
+    lnf = np.log(freqs)
+    taken: list[int] = []
+    for i in order:
+        if all(abs(lnf[i] - lnf[j]) > sep for j in taken):
+            taken.append(int(i))
+            if len(taken) >= n:
+                break
+    return taken
 
 
 def search_orbit(data: SearchData, *, settings: SearchSettings | None = None,
@@ -638,7 +644,7 @@ def search_orbit(data: SearchData, *, settings: SearchSettings | None = None,
         return [], n_points
     # refinement from the best local minima of the profile over frequency
     refined = []
-    for fi in _local_minima(chi2_f)[: settings.n_refine]:
+    for fi in _distinct_minima(freqs, chi2_f, settings.n_refine):
         if stop_flag is not None and stop_flag():
             break
         refined.append(_refine(data, grid_blocks, 1.0 / freqs[fi], float(eccs[e_f[fi]]), float(m0_f[fi]),
