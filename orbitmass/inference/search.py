@@ -103,6 +103,9 @@ log = logging.getLogger(__name__)
 TWO_PI = 2.0 * math.pi
 Array = NDArray[np.float64]
 
+#: Most periods polished on a partial arc.
+ARC_POINTS = 60
+
 GRID_ECCENTRICITIES = (0.0, 0.25, 0.45, 0.6, 0.7, 0.78, 0.84, 0.88, 0.91, 0.935)
 
 
@@ -406,6 +409,7 @@ def _grid(data: SearchData, blocks, eccs: Array, settings: SearchSettings, stop_
     """Best chi^2 over (e, M0) at every grid frequency: arrays over frequency (chi2, e index, M0)."""
     t_all = np.concatenate([blk.t for _, blk, _ in blocks])
     freqs, active = _frequency_plan(t_all, data, eccs, settings)
+    span = max(float(np.ptp(t_all)), 1e-9)
     nb = settings.n_bins
     plans = [_block_plan(blk) for _, blk, _ in blocks]
     keys = sorted({k for plan in plans for k in [e[3] for e in plan[1]] + [r[2] for r in plan[2]]})
@@ -427,13 +431,21 @@ def _grid(data: SearchData, blocks, eccs: Array, settings: SearchSettings, stop_
             break
         rate = TWO_PI * KMS_PER_AU_PER_YR * data.one_plus_z * f
         act = np.flatnonzero(active[fi])
-        sel = [np.arange(0, nb, strides[ei]) for ei in act]
+        # on arcs the M0 step is also at most a quarter of the phase the data span
+        arc_stride = max(1, int(0.25 * nb * f * span))
+        sel = [np.arange(0, nb, min(strides[ei], arc_stride)) for ei in act]
         sizes = [s.size for s in sel]
         total = None
         for (_, blk, _), (hists, entries, rhs, const, const_rhs, ywy), (hi, ki) in zip(blocks, plans, items):
-            phase = np.mod(f * (blk.t - data.t_ref_yr), 1.0)
-            bins = np.minimum((phase * nb + 0.5).astype(np.int64), nb) % nb
-            h = np.stack([np.bincount(bins, weights=g, minlength=nb) for g in hists])
+            # cloud-in-cell: each row shared between its two neighbouring bins (linear interpolation
+            # of the kernels at the exact phase, error O(bin^2))
+            pos = np.mod(f * (blk.t - data.t_ref_yr), 1.0) * nb
+            lo = np.floor(pos)
+            frac = pos - lo
+            lo = lo.astype(np.int64) % nb
+            hi_bin = (lo + 1) % nb
+            h = np.stack([np.bincount(lo, weights=g * (1.0 - frac), minlength=nb)
+                          + np.bincount(hi_bin, weights=g * frac, minlength=nb) for g in hists])
             hs = np.conj(np.fft.rfft(h, axis=1))
             corr = np.fft.irfft(hs[hi][None, :, :] * tables.spec[act][:, ki, :], n=nb, axis=-1)
             corr = np.concatenate([corr[a][:, s] for a, s in enumerate(sel)], axis=1)
@@ -667,7 +679,10 @@ def search_orbit(data: SearchData, *, settings: SearchSettings | None = None,
     cands.sort(key=lambda c: c["chi2"])
     cands = cands[: settings.max_candidates]
     # partial arcs: spread candidates over the periods the data allow
-    arc = _arc_candidates(data, freqs, chi2_f, e_f, m0_f, eccs)
+    arc = []
+    if data.period_fixed_yr is None and 3.0 * baseline < p_bounds[1]:
+        arc = _arc_candidates(data, grid_blocks, freqs, chi2_f, e_f, m0_f, eccs, baseline, e_bounds, p_bounds,
+                              settings, stop_flag, cands[0]["chi2"] if cands else np.inf)
     n_arc = 0
     for p, e, m0 in arc:
         if any(abs(math.log(p / c["period_obs"])) < 0.05 for c in cands):
@@ -682,35 +697,55 @@ def search_orbit(data: SearchData, *, settings: SearchSettings | None = None,
     return cands, n_points
 
 
-def _arc_candidates(data, freqs, chi2_f, e_f, m0_f, eccs):
-    """(P_obs, e, M0) at the 5, 25, 50, 75, 95 % points of the profile-likelihood x prior weights over ln P."""
+def _arc_candidates(data, blocks, freqs, chi2_f, e_f, m0_f, eccs, baseline, e_bounds, p_bounds, settings,
+                    stop_flag, best_chi2):
+    """(P_obs, e, M0) at the 5, 25, 50, 75, 95 % points of the period distribution an arc allows.
+
+    Periods from 3 baselines to the prior's upper bound, every 0.1 in ln P (at most
+    ``ARC_POINTS``): at each, (e, M0) start from the best grid point within 0.05 in
+    ln P and are polished at that fixed period (on an arc chi^2 is a narrow valley in
+    (e, M0) that no grid resolves). Weights: exp(-chi^2 / 2) x the prior mass of the
+    cell. Nothing is returned when the arc periods are all far worse (by 25 in chi^2)
+    than the best refined candidate, or when they span less than 0.2 in ln P.
+    """
+    ln_lo = math.log(max(3.0 * baseline, p_bounds[0]))
+    ln_hi = math.log(p_bounds[1])
+    n = int(min(ARC_POINTS, max(2, math.ceil((ln_hi - ln_lo) / 0.1) + 1)))
+    ln_ps = np.linspace(ln_lo, ln_hi, n)
+    lnp_grid = -np.log(freqs)
     ok = np.isfinite(chi2_f)
-    if ok.sum() < 3:
+    pts = []
+    for lnp in ln_ps:
+        if stop_flag is not None and stop_flag():
+            break
+        near = np.flatnonzero(ok & (np.abs(lnp_grid - lnp) < 0.05))
+        if near.size == 0:
+            near = np.flatnonzero(ok)
+            near = near[[int(np.argmin(np.abs(lnp_grid[near] - lnp)))]]
+        i = near[int(np.argmin(chi2_f[near]))]
+        p = math.exp(lnp)
+        val, _, e, m0 = _refine(data, blocks, p, float(eccs[e_f[i]]), float(m0_f[i]), data.ecc_fixed, e_bounds,
+                                (p, p), settings.chunk_rows, baseline)
+        pts.append((lnp, val, e, m0))
+    if len(pts) < 3:
         return []
-    f = freqs[ok]
-    order = np.argsort(f)
-    f = f[order]
-    c2 = chi2_f[ok][order]
-    e_idx = e_f[ok][order]
-    m0 = m0_f[ok][order]
-    ln_p = -np.log(f)
-    edges = np.concatenate([[ln_p[0]], 0.5 * (ln_p[1:] + ln_p[:-1]), [ln_p[-1]]])
-    width = np.abs(np.diff(edges))
-    log_w = -0.5 * (c2 - c2.min()) + np.log(np.maximum(width, 1e-300))
+    ln_p = np.array([q[0] for q in pts])
+    c2 = np.array([q[1] for q in pts])
+    if c2.min() > best_chi2 + 25.0:
+        return []
+    step = ln_p[1] - ln_p[0]
+    log_w = -0.5 * (c2 - c2.min()) + math.log(step)
     if data.period_log_pdf is not None:
-        p_rest = np.exp(ln_p) / data.one_plus_z
-        log_w = log_w + np.asarray(data.period_log_pdf(p_rest), float) + ln_p
+        log_w = log_w + np.asarray(data.period_log_pdf(np.exp(ln_p) / data.one_plus_z), float) + ln_p
     log_w -= np.max(log_w)
     w = np.exp(log_w)
     if not np.isfinite(w).all() or w.sum() <= 0:
         return []
-    order = np.argsort(ln_p)
-    cdf = np.cumsum(w[order]) / w.sum()
-    qs = np.interp([0.05, 0.25, 0.5, 0.75, 0.95], cdf, np.arange(cdf.size))
-    picks = order[np.clip(np.round(qs).astype(int), 0, cdf.size - 1)]
+    cdf = np.cumsum(w) / w.sum()
+    picks = [int(min(np.searchsorted(cdf, q), cdf.size - 1)) for q in (0.05, 0.25, 0.5, 0.75, 0.95)]
     if ln_p[picks[-1]] - ln_p[picks[0]] < 0.2:
         return []
-    return [(float(math.exp(ln_p[i])), float(eccs[e_idx[i]]), float(m0[i])) for i in picks]
+    return [(float(math.exp(ln_p[i])), pts[i][2], pts[i][3]) for i in dict.fromkeys(picks)]
 
 
 # ------------------------------------------------------------------- adapter
