@@ -272,9 +272,9 @@ def _blocks(data: SearchData, select: Mapping[str, NDArray[np.int64]] | None = N
 def _solve(normal: Array, rhs: Array, ywy: float) -> tuple[Array, Array]:
     """Batched weighted least squares from normal equations: coefficients and chi^2."""
     k = normal.shape[-1]
-    tr = np.trace(normal, axis1=-2, axis2=-1)[..., None, None]
-    reg = normal + (1e-12 * tr + 1e-300) * np.eye(k)
-    coef = np.linalg.solve(reg, rhs[..., None])[..., 0]
+    diag = np.einsum("...ii->...i", normal)  # a view: the ridge is added in place
+    diag += (1e-12 * diag.sum(axis=-1, keepdims=True) + 1e-300)
+    coef = np.linalg.solve(normal, rhs[..., None])[..., 0]
     chi2 = ywy - np.einsum("...k,...k->...", coef, rhs)
     return coef, np.maximum(chi2, 0.0)
 
@@ -359,7 +359,7 @@ def _block_plan(blk: _Block):
             const[nk + r, nk + s] = np.sum(blk.w * u * v)
         const_rhs[nk + r] = np.sum(blk.w * u * blk.y)
     ywy = float(np.sum(blk.w * blk.y * blk.y))
-    return hists, entries, rhs, const, const_rhs, ywy
+    return np.stack(hists), entries, rhs, const, const_rhs, ywy
 
 
 def _width(e: float) -> float:
@@ -420,7 +420,9 @@ def _grid(data: SearchData, blocks, eccs: Array, settings: SearchSettings, stop_
     for hists, entries, rhs, *_ in plans:
         pairs = [(hi, tables.index[key]) for (_, _, hi, key) in entries] + \
                 [(hi, tables.index[key]) for (_, hi, key) in rhs]
-        items.append((np.array([p[0] for p in pairs]), np.array([p[1] for p in pairs])))
+        items.append((np.array([p[0] for p in pairs]), np.array([p[1] for p in pairs]),
+                      np.array([e[0] for e in entries], int), np.array([e[1] for e in entries], int),
+                      np.array([r[0] for r in rhs], int)))
     best_chi2 = np.full(freqs.size, np.inf)
     best_e = np.zeros(freqs.size, int)
     best_m0 = np.zeros(freqs.size)
@@ -436,16 +438,19 @@ def _grid(data: SearchData, blocks, eccs: Array, settings: SearchSettings, stop_
         sel = [np.arange(0, nb, min(strides[ei], arc_stride)) for ei in act]
         sizes = [s.size for s in sel]
         total = None
-        for (_, blk, _), (hists, entries, rhs, const, const_rhs, ywy), (hi, ki) in zip(blocks, plans, items):
+        for (_, blk, _), (hists, entries, rhs, const, const_rhs, ywy), (hi, ki, ii, jj, ri) in zip(
+                blocks, plans, items):
             # cloud-in-cell: each row shared between its two neighbouring bins (linear interpolation
             # of the kernels at the exact phase, error O(bin^2))
             pos = np.mod(f * (blk.t - data.t_ref_yr), 1.0) * nb
             lo = np.floor(pos)
             frac = pos - lo
             lo = lo.astype(np.int64) % nb
-            hi_bin = (lo + 1) % nb
-            h = np.stack([np.bincount(lo, weights=g * (1.0 - frac), minlength=nb)
-                          + np.bincount(hi_bin, weights=g * frac, minlength=nb) for g in hists])
+            n_h = hists.shape[0]
+            offs = (np.arange(n_h) * nb)[:, None]
+            h = (np.bincount((offs + lo).ravel(), weights=(hists * (1.0 - frac)).ravel(), minlength=n_h * nb)
+                 + np.bincount((offs + (lo + 1) % nb).ravel(), weights=(hists * frac).ravel(),
+                               minlength=n_h * nb)).reshape(n_h, nb)
             hs = np.conj(np.fft.rfft(h, axis=1))
             corr = np.fft.irfft(hs[hi][None, :, :] * tables.spec[act][:, ki, :], n=nb, axis=-1)
             corr = np.concatenate([corr[a][:, s] for a, s in enumerate(sel)], axis=1)
@@ -453,13 +458,12 @@ def _grid(data: SearchData, blocks, eccs: Array, settings: SearchSettings, stop_
             k = const.shape[0]
             normal = np.empty((nm, k, k))
             normal[:] = const
+            ne = ii.size
+            normal[:, ii, jj] = corr[:ne].T
+            normal[:, jj, ii] = corr[:ne].T
             vec = np.empty((nm, k))
             vec[:] = const_rhs
-            for c, (i, j, _, _) in enumerate(entries):
-                normal[:, i, j] = corr[c]
-                normal[:, j, i] = corr[c]
-            for c, (i, _, _) in enumerate(rhs):
-                vec[:, i] = corr[len(entries) + c]
+            vec[:, ri] = corr[ne:].T
             if blk.velocity:
                 sc = np.ones(k)
                 sc[: len(blk.kernels)] = rate
