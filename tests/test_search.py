@@ -73,6 +73,7 @@ def test_dense_periastron(ecc):
     assert best["chi2"] / 400.0 < 1.5
 
 
+@pytest.mark.slow
 def test_arc_five_percent_polar():
     # 5 % of a 300-yr orbit in separation/position-angle rows, 30 epochs (as validation.hard_cases arc5polar)
     rng = np.random.default_rng(1)
@@ -93,6 +94,7 @@ def test_arc_five_percent_polar():
     assert all(set(c) >= {"period_obs", "ecc", "m0", "chi2", "ti"} for c in cands)
 
 
+@pytest.mark.slow
 def test_velocity_dominated_with_free_systemic():
     # 80 velocities over 11 yr and 5 positions, e = 0.62 (as validation.hard_cases rvdominated), level -31 km/s
     rng = np.random.default_rng(2)
@@ -109,6 +111,7 @@ def test_velocity_dominated_with_free_systemic():
     assert abs(split["base"] + 31.0) < 1.0 and split["offsets"]["spec"] == 0.0
 
 
+@pytest.mark.slow
 def test_double_lined_central_rows():
     # 30 central-body + 10 companion velocities, 6 positions, systemic +23 km/s (as hard_cases double)
     rng = np.random.default_rng(4)

@@ -11,17 +11,19 @@ coefficients out by weighted least squares and looks for low chi-square in
 Method
 ------
 1. **Phase-folded grid, every M0 at once.** For a trial frequency ``f`` the
-   rows are folded to phase bins ``phi_k = 2 pi f (t_k - t_ref)`` (``N_b =
-   2048`` bins). Every entry of the normal equations is a sum over rows of a
-   row weight times a function of ``M0 + phi_k`` (``X``, ``Y``, ``dX/dM``,
-   ``dY/dM`` from :func:`orbitmass.core.orbit.kepler_basis` tabulated once
-   per eccentricity, or products of two of them), i.e. a circular
-   cross-correlation of a per-bin histogram with a tabulated kernel; one FFT
+   rows are folded to phase ``phi_k = 2 pi f (t_k - t_ref)`` and shared
+   between the two nearest of ``N_b = 2048`` phase bins (cloud-in-cell, i.e.
+   linear interpolation of the basis at the exact phase). Every entry of the
+   normal equations is a sum over rows of a row weight times a function of
+   ``M0 + phi_k`` (``X``, ``Y``, ``dX/dM``, ``dY/dM`` from
+   :func:`orbitmass.core.orbit.kepler_basis`, tabulated once per
+   eccentricity, or a product of two of them), i.e. a circular
+   cross-correlation of a per-bin histogram with a tabulated kernel: one FFT
    per histogram and one inverse FFT per entry give it at all ``N_b`` values
-   of ``M0``. The small systems are then solved at a stride matched to the
-   width of a periastron passage, ``w(e) = (1 - e)^{3/2}`` (half a width per
-   step; one M0 for circular orbits, where a change of M0 is absorbed by the
-   constants).
+   of ``M0``. The small systems are solved at an M0 stride of half the width
+   of a periastron passage, ``w(e) = (1 - e)^{3/2}`` (one M0 for circular
+   orbits, where a change of M0 is absorbed by the constants), and at most a
+   quarter of the phase the data span (arcs).
 2. **Frequencies.** Uniform in ``f`` above ``f_arc = 1 / (3 T)`` (``T`` the
    baseline) with spacing ``df(e) = w(e) / (4 pi T)``, so the phase drift over
    the baseline, ``2 pi T df``, is half a periastron width at every grid
@@ -42,13 +44,19 @@ Method
    profiled out exactly (the orbit from :func:`kepler_basis`, normal
    equations accumulated over chunks of rows), first on the grid rows, then
    the best few again on all rows.
-5. **Partial arcs.** When the profile-likelihood weights over the frequency
-   grid, times the prior mass of each cell (log-uniform in P unless a
-   ``period_log_pdf`` is given), spread the period over more than 0.2 in ln P
-   (5 %-95 %), candidates at the 5, 25, 50, 75 and 95 % points of that
-   distribution are added (a deterministic importance sampling of the prior
-   by the profile likelihood), so the candidate set spans the periods the arc
-   allows. The weights ignore the volume of the linear constants.
+5. **Partial arcs.** When the prior allows periods beyond three baselines,
+   periods from 3 baselines to the prior's upper bound (every 0.1 in ln P,
+   at most ``ARC_POINTS``) are each polished in (e, M0) at that fixed period
+   from the best nearby grid point (on an arc chi-square is a narrow valley
+   in (e, M0) that no affordable grid resolves). Their weights
+   ``exp(-chi^2 / 2)`` times the prior mass of the cell (log-uniform in P
+   unless ``period_log_pdf`` is given) are a deterministic importance
+   sampling of the prior by the profile likelihood; when they spread the
+   period over more than 0.2 in ln P (5 %-95 %) and are not all worse than
+   the best refined candidate by 25 in chi-square, candidates at their 5, 25,
+   50, 75 and 95 % points are appended (flagged ``arc``), so the candidate
+   set spans the periods the arc allows. The weights ignore the volume of
+   the linear constants and the mass and distance priors.
 
 Data used
 ---------
@@ -271,7 +279,6 @@ def _blocks(data: SearchData, select: Mapping[str, NDArray[np.int64]] | None = N
 
 def _solve(normal: Array, rhs: Array, ywy: float) -> tuple[Array, Array]:
     """Batched weighted least squares from normal equations: coefficients and chi^2."""
-    k = normal.shape[-1]
     diag = np.einsum("...ii->...i", normal)  # a view: the ridge is added in place
     diag += (1e-12 * diag.sum(axis=-1, keepdims=True) + 1e-300)
     coef = np.linalg.solve(normal, rhs[..., None])[..., 0]
