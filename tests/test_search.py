@@ -206,3 +206,24 @@ def test_hundred_thousand_rows_bounded_memory():
         tracemalloc.stop()
     _check_best(cands, 6.5, 0.3, rel_period=0.005, d_ecc=0.005)
     assert peak < 100e6, peak
+
+
+@pytest.mark.slow
+def test_absolute_frame_drifting_origin():
+    # one star of validation.hard_cases nucleus: absolute frame with x0, y0 (mas), vx0, vy0 (mas/yr) free,
+    # 35 positions (0.5 mas) over 26 yr and 15 velocities (15 km/s) with vz0 = 6 km/s free
+    rng = np.random.default_rng(9)
+    frame = {"x0": 0.3, "y0": -0.2, "vx0": 0.05, "vy0": -0.08, "vz0": 6.0}
+    sysm = System(mass_msun=4.1e6, distance_pc=8200.0, orbits={"N3": Orbit(27.0, 0.7, 35.0, 300.0, 250.0, 2016.0)},
+                  frame=frame, t_ref=2015.0)
+    tp = np.sort(rng.uniform(2000.0, 2026.0, 35))
+    tv = np.sort(rng.uniform(2004.0, 2026.0, 15))
+    obs = observe(sysm, "N3", tp, tv, absolute=True)
+    data = SearchData(name="N3", t_ref_yr=2015.0, period_bounds_yr=(1.0, 500.0), frame="absolute",
+                      frame_fixed={"x0": None, "y0": None, "vx0": None, "vy0": None},
+                      **_positions(tp, obs, 0.5, rng), **_velocities(tv, obs["rv_companion_kms"], 15.0, rng),
+                      instrument_names=("spec",), offset_fixed=(0.0,))
+    best = _check_best(search_orbit(data)[0], 27.0, 0.7, rel_period=0.03)
+    # the frame terms are profiled, not fixed: they come out near the simulated ones (errors ~0.5 mas / sqrt(35))
+    assert abs(best["x0"] - 0.3) < 1.0 and abs(best["y0"] + 0.2) < 1.0
+    assert abs(best["vx0"] - 0.05) < 0.2 and abs(best["vy0"] + 0.08) < 0.2
