@@ -13,7 +13,15 @@ Method (stated in the README and the report):
    :func:`orbitmass.core.orbit.kepler_basis`; model terms are left out of the
    search (it only finds a start; the polish and the sampler use the full
    model). The period axis is processed in chunks, and a stop request is
-   honoured between chunks.
+   honoured between chunks. This quick grid takes a fraction of a second; when
+   it cannot be trusted (:func:`needs_global_search`: central-body velocities,
+   a poor best fit, a partial arc whose period may lie beyond the grid, a high
+   eccentricity) the global search of :mod:`orbitmass.inference.search` runs
+   as well (finer period and eccentricity grids to e = 0.99, periods up to the
+   prior's bound, local refinement; tens of seconds) and its candidates come
+   first. Every candidate's velocity levels are split into the systemic
+   velocity and the instrument offsets consistently with what is fixed
+   (:func:`orbitmass.inference.search.split_levels`).
 2. **Candidates.** The best grid points at distinct periods are turned into
    Campbell elements (the classical Thiele-Innes inversion; the velocity
    solution fixes the (omega, Omega) ambiguity and, with the astrometric
@@ -34,6 +42,9 @@ Method (stated in the README and the report):
 A stop request (``stop_flag``, e.g. after SIGINT) ends the search and the
 polish early; walkers are then scattered about the best point so far and the
 solution is marked ``interrupted``.
+
+Longer than 600 lines because the quick grid, the escalation rule, the assembly of a
+start from candidates and the polish form one procedure that is read top to bottom.
 """
 
 from __future__ import annotations
@@ -49,6 +60,7 @@ from scipy import optimize
 from orbitmass.core.elements import thiele_innes_to_campbell
 from orbitmass.core.orbit import TWO_PI, kepler_basis
 from orbitmass.core.physics import mass_msun as kepler_mass
+from orbitmass.inference.search import search_data_from_posterior, search_orbit, split_levels
 from orbitmass.model.likelihood import LogPosterior
 from orbitmass.model.parameters import AngleWindows
 from orbitmass.units import KMS_PER_AU_PER_YR
@@ -225,6 +237,36 @@ def _companion_search(post: LogPosterior, comp, max_periods: int, stop_flag=None
     return cands, int(chi2.size)
 
 
+def needs_global_search(post: LogPosterior, comp, cands: list[dict], max_periods: int) -> str | None:
+    """Why the quick grid of :func:`_companion_search` is not enough for ``comp``, or None.
+
+    The quick grid (periods up to 50 baselines, eight eccentricities up to 0.96,
+    companion velocity rows only) is kept for ordinary data because it takes a
+    fraction of a second; the global search of :mod:`orbitmass.inference.search`
+    (tens of seconds) runs when:
+
+    * central-body velocities exist (the quick grid does not use them);
+    * the period prior reaches well beyond the grid (three times its longest
+      period or more) and the best grid period lies in the grid's upper third:
+      a partial arc, whose period may be far longer than the grid allows.
+
+    Other hard cases (a coarse grid at high eccentricity, a poor best grid
+    point) are left to the polish, which starts from several candidates.
+    """
+    if not cands:
+        return "no grid candidate"
+    vb = post.velocities.get(comp.name)
+    ab = post.astrometry.get(comp.name)
+    if vb is not None and bool(np.any(vb.central)):
+        return "central-body velocities"
+    t = np.concatenate([x.t for x in (ab, vb) if x is not None])
+    grid = period_grid(t, comp.priors["period"], post.space.one_plus_z, max_periods)
+    p_hi_prior = comp.priors["period"].support[1] * post.space.one_plus_z
+    if p_hi_prior > 3.0 * float(grid.max()) and cands[0]["period_obs"] > float(grid.max()) / 3.0:
+        return "partial arc (best period near the end of the grid)"
+    return None
+
+
 def _prior_centre(prior) -> float:
     if prior.fixed:
         return float(prior.value)
@@ -274,7 +316,11 @@ def _candidate_values(space, comp, cand, mass_dist):
     if a_mas is not None:
         mass_dist["a_mas"].append((a_mas, period))
     if comp.name in [lay.name for lay in space.companions if lay.has_q]:
-        v[f"{comp.name}.q"] = _prior_centre(comp.priors["mass_ratio"])
+        q = _prior_centre(comp.priors["mass_ratio"])
+        if "q" in cand and math.isfinite(cand["q"]):  # from the central-body velocities
+            lo, hi = comp.priors["mass_ratio"].support
+            q = float(np.clip(cand["q"], lo + 1e-6 * (hi - lo), hi - 1e-6 * (hi - lo)))
+        v[f"{comp.name}.q"] = q
     return v
 
 
@@ -313,14 +359,14 @@ def _assemble(space, per_comp_values, mass_dist, extra):
         values[f"jitter.{name}"] = _prior_centre(jp) if not jp.fixed else jp.value
         if not jp.fixed and jp.dist == "log-uniform":
             values[f"jitter.{name}"] = math.exp(0.25 * math.log(jp.support[1]) + 0.75 * math.log(jp.support[0]))
-    # levels from the velocity solution: first instrument level -> systemic, others -> offsets
-    levels = extra.get("levels", {})
-    zero = space.instrument_names[0] if space.instrument_names else None
-    base = levels.get(zero) if zero in levels else None
-    if base is not None:
-        for name, lev in levels.items():
+    # levels from the velocity solution, split consistently with what is fixed
+    # (a fixed systemic velocity or zero point keeps its value; free ones take the rest)
+    split = extra.get("split")
+    base = None if split is None else split["base"]
+    if split is not None:
+        for name, off in split["offsets"].items():
             if space.offset_idx.get(name) is not None:
-                values[f"offset.{name}"] = lev - base
+                values[f"offset.{name}"] = off
     for key in space.frame_idx:
         pr = cp[key]
         val = _prior_centre(pr)
@@ -459,7 +505,21 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
         if cands is None:
             interrupted = True
             break
+        sdata = search_data_from_posterior(post, comp)
+        reason = needs_global_search(post, comp, cands, max_periods)
+        if reason is not None:  # a hard case: the global search of inference.search (tens of seconds)
+            log.info("%s: global orbit search (%s)", comp.name, reason)
+            deep, ng = search_orbit(sdata, stop_flag=stop_flag)
+            n_grid += ng
+            if _stopped(stop_flag):
+                interrupted = True
+            cands = deep[:6] + [c for c in deep[6:] if c.get("arc")] + cands[:2]
+        for cand in cands:
+            if "levels" in cand:
+                cand["split"] = split_levels(cand["levels"], sdata)
         searches.append((comp, cands))
+        if interrupted:
+            break
     results = []
     if not interrupted:
         # combinations: best candidate for every companion, alternatives for one at a time
@@ -527,8 +587,8 @@ def _combo_values(space, searches, combo) -> dict:
         for key in ("x0", "y0", "vx0", "vy0"):
             if key in cand and key not in extra:
                 extra[key] = cand[key]
-        if "levels" in cand and "levels" not in extra:
-            extra["levels"] = cand["levels"]
+        if "split" in cand and "split" not in extra:
+            extra["split"] = cand["split"]
     return _assemble(space, per_comp, mass_dist, extra)
 
 

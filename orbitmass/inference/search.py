@@ -89,6 +89,9 @@ frequency (a few MB) or chunks of ``chunk_rows`` rows, so memory is bounded
 ``stop_flag`` (a callable returning True when the user interrupted) is
 checked between frequencies and between refinements; the search then
 returns the candidates it has.
+
+Longer than 600 lines because the folded-phase grid, the frequency plan, the refinement
+and the arc stage share the profiled least-squares machinery.
 """
 
 from __future__ import annotations
@@ -383,7 +386,7 @@ def _frequency_plan(t_all: Array, data: SearchData, eccs: Array, settings: Searc
     spacing = np.diff(np.unique(t_all))
     typical = float(np.median(spacing)) if spacing.size else baseline
     p_min = max(lo * opz, 2.0 * typical, 1e-6)
-    p_max = hi * opz
+    p_max = min(hi * opz, 1e4 * baseline)  # an unbounded prior (log-normal) is searched to 1e4 baselines
     if p_max <= p_min:
         p_min, p_max = lo * opz, hi * opz
     f_lo, f_hi = 1.0 / p_max, 1.0 / p_min
