@@ -29,6 +29,10 @@ taken from Kepler's third law with ``period_rest_yr``); ``ch_au`` (the
 line-of-sight Thiele-Innes constants in au) for the Roemer delay;
 ``distance_pc`` for an extended mass whose scale radius is an angle.
 
+Building the terms of a target: :func:`model_terms` turns the target's
+``[relativity]`` and ``[extended_mass]`` tables into the terms and their
+priors (the one builder used by the fit and by a reloaded run folder).
+
 Helpers for derived posteriors: :func:`precession_arcmin_per_orbit`,
 :func:`redshift_at_periastron_kms`, :func:`periastron_schwarzschild_radii`,
 :func:`roemer_delay_range_days`, :func:`plummer_precession_per_orbit`.
@@ -73,6 +77,7 @@ __all__ = [
     "RoemerTerm",
     "PrecessionTerm",
     "ExtendedMassTerm",
+    "model_terms",
     "schwarzschild_precession_per_orbit",
     "plummer_precession_per_orbit",
     "unwrapped_true_anomaly",
@@ -481,6 +486,59 @@ class ExtendedMassTerm:
     def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
         """``(delta, d delta / dM)`` in rad, shape of the basis."""
         return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
+
+
+# ----------------------------------------------------------------------------- building the terms
+
+def _is_off(prior) -> bool:
+    """A prior fixed at exactly 0 (the factor, or fraction, switches its term off)."""
+    return bool(getattr(prior, "fixed", False)) and float(prior.value) == 0.0
+
+
+def model_terms(relativity=None, extended_mass=None) -> tuple[tuple, dict]:
+    """The model terms of a target and the priors of their parameters.
+
+    Parameters
+    ----------
+    relativity : object with ``redshift_factor``, ``precession_factor`` (priors) and ``roemer_delay`` (bool), optional
+        The target's ``[relativity]`` table (:class:`orbitmass.model.data.Relativity`), or None.
+    extended_mass : object with ``fraction`` (prior), ``scale_radius_mas``, ``scale_radius_au``, optional
+        The target's ``[extended_mass]`` table (:class:`orbitmass.model.data.ExtendedMass`), or None.
+
+    Returns
+    -------
+    terms : tuple
+        In the order :func:`orbitmass.core.orbit.evaluate` applies them:
+        :class:`RoemerTerm` (when ``roemer_delay``), :class:`PrecessionTerm`,
+        :class:`ExtendedMassTerm`, :class:`RedshiftTerm`. A factor (or the
+        fraction) fixed at exactly 0 adds no term at all, so a Newtonian target
+        costs nothing; sampled or fixed at another value, it does.
+    priors : dict
+        Parameter name -> prior (``redshift_factor``, ``precession_factor``,
+        ``extended_mass_fraction``) of every term returned.
+
+    Examples
+    --------
+    >>> terms, priors = model_terms(None, None)
+    >>> terms, priors
+    ((), {})
+    """
+    terms: list = []
+    priors: dict = {}
+    if relativity is not None:
+        if relativity.roemer_delay:
+            terms.append(RoemerTerm())
+        if not _is_off(relativity.precession_factor):
+            terms.append(PrecessionTerm())
+            priors["precession_factor"] = relativity.precession_factor
+    if extended_mass is not None and not _is_off(extended_mass.fraction):
+        terms.append(ExtendedMassTerm(scale_radius_au=extended_mass.scale_radius_au,
+                                      scale_radius_mas=extended_mass.scale_radius_mas))
+        priors["extended_mass_fraction"] = extended_mass.fraction
+    if relativity is not None and not _is_off(relativity.redshift_factor):
+        terms.append(RedshiftTerm())
+        priors["redshift_factor"] = relativity.redshift_factor
+    return tuple(terms), priors
 
 
 # ----------------------------------------------------------------------------- derived quantities
