@@ -77,6 +77,7 @@ __all__ = [
     "RoemerTerm",
     "PrecessionTerm",
     "ExtendedMassTerm",
+    "CombinedPrecession",
     "model_terms",
     "schwarzschild_precession_per_orbit",
     "plummer_precession_per_orbit",
@@ -149,9 +150,9 @@ def _apsidal_rotation(per_orbit_rad, state: OrbitState, basis: KeplerBasis) -> t
     cos_e0, sin_e0 = kepler_cos_sin(m_ref, ecc)
     ref = KeplerBasis(cos_E=cos_e0, sin_E=sin_e0, X=None, Y=None, dX=None, dY=None, mean_anomaly=m_ref)
     nu_ref = unwrapped_true_anomaly(ref, ecc)
-    delta = scale * (nu - nu_ref)
+    delta = scale * nu - scale * nu_ref
     one_minus = 1.0 - ecc * basis.cos_E
-    rate = scale * np.sqrt(1.0 - ecc * ecc) / (one_minus * one_minus)
+    rate = (scale * np.sqrt(1.0 - ecc * ecc)) / (one_minus * one_minus)
     return delta, rate
 
 
@@ -204,13 +205,20 @@ def plummer_precession_per_orbit(mass_msun, a_au, ecc, fraction, scale_radius_au
     """
     mass, a, ecc, frac, b = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in
                                                   (mass_msun, a_au, ecc, fraction, scale_radius_au)))
-    nodes = np.linspace(0.0, TWO_PI, n_nodes, endpoint=False)
+    # the integrand is even in E: the nodes on [0, pi] with the trapezoid weights of the full circle
+    half = n_nodes // 2
+    nodes = np.linspace(0.0, TWO_PI, n_nodes, endpoint=False)[: half + 1]
+    weights = np.full(half + 1, 2.0)
+    weights[0] = 1.0
+    if n_nodes % 2 == 0:
+        weights[half] = 1.0
     cos_e = np.cos(nodes)
     ecc_safe = np.maximum(ecc, 1e-8)[..., None]
     r = a[..., None] * (1.0 - ecc_safe * cos_e)
     # R / (G M_ext) in 1/au^2; G M_ext = fraction * G M
-    force = -r / (r * r + b[..., None] ** 2) ** 1.5
-    integral = TWO_PI * np.mean(force * (cos_e - ecc_safe), axis=-1)
+    q = r * r + b[..., None] ** 2
+    force = -r / (q * np.sqrt(q))
+    integral = (TWO_PI / n_nodes) * ((force * (cos_e - ecc_safe)) @ weights)
     return -np.sqrt(1.0 - ecc * ecc) * a * a * frac * integral / np.maximum(ecc, 1e-8)
 
 
@@ -253,8 +261,10 @@ class RedshiftTerm:
     coordinates in which the orbit is written.
 
     ``v`` and ``r`` are taken from the (possibly rotated) in-plane basis:
-    ``r = a sqrt(X^2 + Y^2)``, ``v = n a sqrt(dX^2 + dY^2)`` with
-    ``n = 2 pi / P_rest``.
+    ``r = a sqrt(X^2 + Y^2) = a (1 - e cos E)`` (a rotation keeps the
+    length; Kepler's equation, common practice, no source), ``v^2 = n^2 a^2
+    (dX^2 + dY^2)`` with ``n = 2 pi / P_rest`` (no square roots: they cost
+    more than the rest of the term).
     """
 
     name: str = "redshift"
@@ -265,37 +275,112 @@ class RedshiftTerm:
         """The shift ``f (v^2/(2c) + GM/(rc))`` in km/s, shape of ``vz_kms``."""
         factor = np.asarray(extra["redshift_factor"], dtype=float)
         a = _semimajor_axis_au(state)
-        r_au = a * np.hypot(basis.X, basis.Y)
-        speed_kms = (TWO_PI * KMS_PER_AU_PER_YR / np.asarray(state.period_rest_yr, dtype=float)) * a \
-            * np.hypot(basis.dX, basis.dY)
-        return factor * redshift_shift_kms(_mass_msun(state), r_au, speed_kms)
+        ecc = np.asarray(state.ecc, dtype=float)
+        # per-set constants (n_sets, 1) first, so the epoch arrays see few operations
+        gm_over_a = GM_SUN_AU3_PER_YR2 * _mass_msun(state) / a * (KMS_PER_AU_PER_YR ** 2 / C_KMS)
+        half_v2 = 0.5 / C_KMS * ((TWO_PI * KMS_PER_AU_PER_YR / np.asarray(state.period_rest_yr, dtype=float)) * a) ** 2
+        shift = (basis.dX * basis.dX + basis.dY * basis.dY) * (factor * half_v2)
+        shift += (factor * gm_over_a) / (1.0 - ecc * basis.cos_E)
+        return shift
 
 
-def _los_time_derivatives(basis: KeplerBasis, C, H, ecc, n_per_yr) -> list[Array]:
-    """``z`` (au) and its first four time derivatives (au / yr^k) on a Keplerian orbit.
+def _los_time_derivatives(basis: KeplerBasis, C, H, ecc, n_per_yr, *, fourth: bool = False) -> list[Array]:
+    """``z`` (au) and its first three (or four) time derivatives (au / yr^k) on a Keplerian orbit.
 
     In units of ``a`` and mean anomaly the relative orbit obeys
     ``r'' = -u r`` with ``u = rho^-3``, ``rho = |r| = 1 - e cos E``; hence
-    ``r''' = -u' r - u r'`` and ``r'''' = -u'' r - 2 u' r' - u r''`` with
-    ``rho' = e sin E / rho``, ``rho'' = e cos E / rho^2 - e^2 sin^2 E / rho^3``,
-    ``u' = -3 rho' / rho^4``, ``u'' = 12 rho'^2 / rho^5 - 3 rho'' / rho^4``
-    (Kepler's equation differentiated, common practice, no source).
+    the third and fourth derivatives are ``-u' r - u r'`` and
+    ``-u'' r - 2 u' r' - u r''``, with ``rho' = e sin E / rho``,
+    ``rho'' = e cos E / rho^2 - e^2 sin^2 E / rho^3``, ``u' = -3 rho' / rho^4``,
+    ``u'' = 12 rho'^2 / rho^5 - 3 rho'' / rho^4`` (Kepler's equation
+    differentiated, common practice, no source).
     """
     ecc = np.asarray(ecc, dtype=float)
     inv = 1.0 / (1.0 - ecc * basis.cos_E)
     rho1 = ecc * basis.sin_E * inv
-    rho2 = inv * (ecc * basis.cos_E * inv - rho1 * rho1)
     u0 = inv * inv * inv
     u1 = -3.0 * rho1 * u0 * inv
-    u2 = (12.0 * rho1 * rho1 * inv - 3.0 * rho2) * u0 * inv
     # z is linear in (X, Y), so the recursion runs on z and its derivatives per unit mean anomaly
     z0 = C * basis.X + H * basis.Y
     z1 = C * basis.dX + H * basis.dY
     z2 = -u0 * z0
     z3 = -u1 * z0 - u0 * z1
-    z4 = -u2 * z0 - 2.0 * u1 * z1 - u0 * z2
     n = n_per_yr
-    return [z0, n * z1, n * n * z2, n**3 * z3, n**4 * z4]
+    out = [z0, n * z1, (n * n) * z2, n**3 * z3]
+    if fourth:
+        rho2 = inv * (ecc * basis.cos_E * inv - rho1 * rho1)
+        u2 = (12.0 * rho1 * rho1 * inv - 3.0 * rho2) * u0 * inv
+        out.append(n**4 * (-u2 * z0 - 2.0 * u1 * z1 - u0 * z2))
+    return out
+
+
+def _fourth_derivative_bound(ecc) -> Array:
+    """An upper bound of ``|r''''| rho^4`` over the orbit (units of ``a`` and mean anomaly).
+
+    With the relations of :func:`_los_time_derivatives`, ``|r''| = rho^-2``,
+    ``|rho'| <= e / sqrt(1 - e^2)``, ``|r'| <= sqrt((1 + e) / (1 - e))`` and
+    ``rho >= 1 - e``: ``|u r''| rho^4 <= 1 / (1 - e)``, ``|2 u' r'| rho^4 <= 6
+    |rho'| |r'|``, ``|u'' r| rho^4 <= 15 rho'^2 + 3 e / rho`` (triangle
+    inequality, common practice, no source).
+    """
+    ecc = np.asarray(ecc, dtype=float)
+    one_m = 1.0 - ecc
+    rho1_max = ecc / np.sqrt(1.0 - ecc * ecc)
+    return (1.0 + 3.0 * ecc) / one_m + 6.0 * rho1_max * np.sqrt((1.0 + ecc) / one_m) + 15.0 * rho1_max * rho1_max
+
+
+#: largest change of the eccentric anomaly :func:`_advance_basis` takes on (its series hold there)
+ADVANCE_MAX_RAD = 0.05
+#: largest error bound (rad) of the eccentric anomaly :func:`_advance_basis` accepts
+ADVANCE_MAX_ERROR_RAD = 1e-7
+
+
+def _advance_basis(basis: KeplerBasis, ecc, d_mean) -> KeplerBasis | None:
+    """The Keplerian basis after the mean anomaly moves on by a small ``d_mean`` (rad), without a Kepler solve.
+
+    The eccentric anomaly moves on by its Taylor series in ``d_mean``
+    (``E' = rho^-1``, ``E'' = -e sin E rho^-3``, ``E''' = rho^-4 (3 rho'^2 -
+    e cos E)`` with ``rho = 1 - e cos E``, ``rho' = e sin E / rho``; Kepler's
+    equation differentiated, common practice, no source):
+
+        x = w (1 - rho' w / 2 + (3 rho'^2 - e cos E / rho) w^2 / 6),   w = d_mean / rho.
+
+    Its error, the next term, is bounded by ``w^4 (15 rho'^3 + 11 rho' / rho
+    + 1 / rho) / 24`` (the fourth derivative's terms, with ``|rho'| <= e /
+    sqrt(1 - e^2)`` and ``1 / rho <= 1 / (1 - e)``): 1.4e-8 rad for the Roemer
+    delay of an e = 0.88, 16-yr orbit around 4e6 solar masses (``|w| <=
+    6e-3``), i.e. below 1e-3 km/s and 1e-5 mas. The sine and cosine of ``E +
+    x`` follow from the angle-addition formulas with the Taylor series of
+    ``sin x`` and ``cos x - 1`` (error below 2e-13 for ``|x| <= 0.05``). None
+    when the step is too large for that (``|w|`` above
+    :data:`ADVANCE_MAX_RAD` or the bound above :data:`ADVANCE_MAX_ERROR_RAD`):
+    the caller then solves Kepler's equation.
+    """
+    ecc = np.asarray(ecc, dtype=float)
+    cos_e, sin_e = basis.cos_E, basis.sin_E
+    e_cos = ecc * cos_e
+    inv = 1.0 / (1.0 - e_cos)
+    w = d_mean * inv
+    if not np.size(w):
+        return None
+    w_max = float(np.max(np.abs(w)))
+    rho1_max = float(np.max(ecc / np.sqrt(1.0 - ecc * ecc)))
+    inv_max = float(np.max(1.0 / (1.0 - ecc)))
+    if w_max > ADVANCE_MAX_RAD or w_max**4 * (15.0 * rho1_max**3 + 11.0 * rho1_max * inv_max + inv_max) / 24.0 \
+            > ADVANCE_MAX_ERROR_RAD:
+        return None
+    rho1 = ecc * sin_e * inv
+    x = w * (1.0 - 0.5 * rho1 * w + (3.0 * rho1 * rho1 - e_cos * inv) * (w * w) / 6.0)
+    x2 = x * x
+    sin_x = x * (1.0 - x2 / 6.0 * (1.0 - x2 / 20.0))
+    cm1 = -0.5 * x2 * (1.0 - x2 / 12.0 * (1.0 - x2 / 30.0))
+    cos_new = cos_e + cos_e * cm1 - sin_e * sin_x
+    sin_new = sin_e + sin_e * cm1 + cos_e * sin_x
+    root = np.sqrt(1.0 - ecc * ecc)
+    inv_new = 1.0 / (1.0 - ecc * cos_new)
+    mean = None if basis.mean_anomaly is None else basis.mean_anomaly + d_mean
+    return KeplerBasis(cos_E=cos_new, sin_E=sin_new, X=cos_new - ecc, Y=root * sin_new, dX=-sin_new * inv_new,
+                       dY=(root * inv_new) * cos_new, mean_anomaly=mean)
 
 
 @dataclass(frozen=True)
@@ -319,17 +404,27 @@ class RoemerTerm:
     :func:`_los_time_derivatives`), ``Delta = t_emit - t_obs`` solves the
     cubic Taylor model ``Delta + s (z_0 + z_1 Delta + z_2 Delta^2 / 2 + z_3
     Delta^3 / 6) = 0`` (``s = P_obs / (P_rest c)``; one Newton step on the
-    polynomial from its linear solution). The series converges with a ratio ~``v / c`` per order since
-    ``|Delta| <= r / c``, so twice the next term, ``2 s |z_4| Delta^4 / 24``,
-    bounds the error. Where that bound exceeds ``tol_s`` (default 10 ms: a star
-    at 7,700 km/s moves 77 km, below 1e-7 mas at 8 kpc, in that time) at any
-    epoch, Newton's method on the exact equation continues (``f' = 1 + s
-    v_z``, common practice, no source), one Kepler solve per step, until the
-    error estimate after a step, ``|f''| step^2 / (2 f')`` with ``f'' = s
-    a_z`` and ``a_z = -n^2 (C X + H Y) / (1 - e cos E)^3``, is below ``tol_s``
+    polynomial from its linear solution). The series converges with a ratio
+    ~``v / c`` per order since ``|Delta| <= r / c``, so twice the next term,
+    ``2 s |z_4| Delta^4 / 24``, bounds the error; it is first bounded per
+    parameter set (:func:`_fourth_derivative_bound`, with ``|Delta| <= s
+    sqrt(C^2 + H^2) rho / slope``), and evaluated per epoch only when that
+    bound is not enough. Where the error exceeds
+    ``tol_s`` (default 10 ms: a star at 7,700 km/s moves 77 km, below 1e-7
+    mas at 8 kpc, in that time) at any epoch, Newton's method on the exact
+    equation continues (``f' = 1 + s v_z``, common practice, no source), one
+    Kepler solve per step, until the error estimate after a step,
+    ``|f''| step^2 / (2 f')`` with ``f'' = s a_z``, is below ``tol_s``
     everywhere. For an e = 0.88, 16-yr orbit around 4e6 solar masses the
-    cubic model is enough (tests check the result against a root finder to
-    0.01 s). Positions and velocities are then those at ``t_emit``.
+    cubic model is enough (the bound per set is 8 ms; tests check the result
+    against a root finder to 0.01 s). Positions and velocities are then those at ``t_emit``.
+
+    When the model suffices, the Keplerian basis at ``t_emit`` comes without
+    a second Kepler solve (:func:`_advance_basis`: the eccentric anomaly moved
+    on by a Taylor step and one Newton step on Kepler's equation, with series
+    for the sine and cosine of the small change); :meth:`emission_times`
+    returns it with the epochs and :func:`orbitmass.core.orbit.evaluate` uses
+    it as it is.
 
     Neglected: the periastron rotation of other terms inside the delay (the
     delay uses the Keplerian ``z``; the error is at most ``delta * r / c``,
@@ -349,8 +444,13 @@ class RoemerTerm:
     max_iter: int = 20
 
     def emission_times(self, t_obs_yr, state: OrbitState, extra: Mapping[str, Any],
-                       solve: Callable[[Any], KeplerBasis]) -> Array:
-        """Emission epochs (Julian years) for the observed epochs ``t_obs_yr``."""
+                       solve: Callable[[Any], KeplerBasis]) -> tuple[Array, KeplerBasis | None]:
+        """Emission epochs (Julian years) for the observed epochs ``t_obs_yr``, and the basis there.
+
+        Returns ``(t_emit, basis)``: ``basis`` is the Keplerian basis at
+        ``t_emit`` when it came without another Kepler solve, else None (the
+        caller solves).
+        """
         if state.ch_au is None:
             raise ValueError("the Roemer delay needs the line-of-sight constants (OrbitState.ch_au)")
         C, H = state.ch_au
@@ -360,17 +460,27 @@ class RoemerTerm:
         ecc = np.asarray(state.ecc, dtype=float)
         t_obs = np.asarray(t_obs_yr, dtype=float)
         tol_yr = self.tol_s / (DAYS_PER_YEAR * 86400.0)
-        z_k = _los_time_derivatives(solve(t_obs), C, H, ecc, n_obs)
+        basis = solve(t_obs)
+        z_k = _los_time_derivatives(basis, C, H, ecc, n_obs)
         # the linear solution, then one Newton step on the cubic (its nonlinear part is ~v/c smaller)
         slope0 = 1.0 + yr_per_au * z_k[1]
         delta = -yr_per_au * z_k[0] / slope0
         nonlinear = yr_per_au * delta * delta * (0.5 * z_k[2] + delta * z_k[3] / 6.0)
         delta = delta - nonlinear / (slope0 + yr_per_au * delta * (z_k[2] + 0.5 * delta * z_k[3]))
-        t = t_obs + delta
+        # error: twice the next term, 2 s |z_4| Delta^4 / 24; first a bound per parameter set
+        # (|Delta| <= s |z| / slope, |z| <= sqrt(C^2 + H^2) rho), per epoch only when that is not enough
+        los_au = np.hypot(C, H)
+        root = np.sqrt((1.0 + ecc) / (1.0 - ecc))
+        min_slope = np.maximum(1.0 - yr_per_au * n_obs * los_au * root, 0.5)
+        bound = (yr_per_au * los_au) ** 5 * n_obs**4 * _fourth_derivative_bound(ecc) / (12.0 * min_slope**5)
+        if not np.size(delta) or float(np.max(bound)) < tol_yr:
+            return t_obs + delta, _advance_basis(basis, ecc, n_obs * delta)
+        z4 = _los_time_derivatives(basis, C, H, ecc, n_obs, fourth=True)[4]
         delta2 = delta * delta
-        error = yr_per_au / 12.0 * np.abs(z_k[4]) * delta2 * delta2 / slope0
-        if not np.size(error) or float(np.max(error)) < tol_yr:
-            return t
+        error = yr_per_au / 12.0 * np.abs(z4) * delta2 * delta2 / slope0
+        if float(np.max(error)) < tol_yr:
+            return t_obs + delta, _advance_basis(basis, ecc, n_obs * delta)
+        t = t_obs + delta
         for _ in range(self.max_iter):
             basis = solve(t)
             z_au = C * basis.X + H * basis.Y
@@ -380,7 +490,7 @@ class RoemerTerm:
             curvature = yr_per_au * n_obs * n_obs * np.abs(z_au) / (1.0 - ecc * basis.cos_E) ** 3
             error = float(np.max(0.5 * curvature * step * step / slope)) if np.size(step) else 0.0
             if error < tol_yr:
-                return t
+                return t, None
         raise ArithmeticError(f"the Roemer delay iteration did not converge in {self.max_iter} steps "
                               f"(error estimate {error * DAYS_PER_YEAR * 86400.0:.3g} s)")
 
@@ -420,11 +530,14 @@ class PrecessionTerm:
     parameters: tuple[str, ...] = ("precession_factor",)
     linear_safe: bool = False
 
+    def precession_per_orbit(self, state: OrbitState, extra: Mapping[str, Any]) -> Array:
+        """Periastron advance per orbit (rad) for the state's orbits, scaled by the factor."""
+        return np.asarray(extra["precession_factor"], dtype=float) * schwarzschild_precession_per_orbit(
+            _mass_msun(state), _semimajor_axis_au(state), state.ecc)
+
     def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
         """``(delta, d delta / dM)`` in rad, shape of the basis."""
-        per_orbit = np.asarray(extra["precession_factor"], dtype=float) * schwarzschild_precession_per_orbit(
-            _mass_msun(state), _semimajor_axis_au(state), state.ecc)
-        return _apsidal_rotation(per_orbit, state, basis)
+        return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
 
 
 @dataclass(frozen=True)
@@ -488,6 +601,39 @@ class ExtendedMassTerm:
         return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
 
 
+@dataclass(frozen=True)
+class CombinedPrecession:
+    """Several periastron precessions (e.g. Schwarzschild and an extended mass) as one in-plane rotation.
+
+    Each part is a term with ``precession_per_orbit(state, extra)`` applied
+    as ``delta = (Delta omega / 2 pi) (nu - nu_ref)`` (:class:`PrecessionTerm`,
+    :class:`ExtendedMassTerm`). Rotations in the plane add, and so do their
+    rates, so rotating once by the sum of the advances per orbit is the same
+    as rotating by each in turn (to rounding), at the cost of one: the true
+    anomaly and the rotation are computed once.
+    """
+
+    parts: tuple = ()
+    name: str = "precession"
+    linear_safe: bool = False
+
+    @property
+    def parameters(self) -> tuple[str, ...]:
+        """The parameters of every part, in order."""
+        return tuple(p for part in self.parts for p in part.parameters)
+
+    def precession_per_orbit(self, state: OrbitState, extra: Mapping[str, Any]) -> Array:
+        """The summed advance per orbit (rad) of the parts."""
+        total = 0.0
+        for part in self.parts:
+            total = total + part.precession_per_orbit(state, extra)
+        return total
+
+    def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
+        """``(delta, d delta / dM)`` in rad, shape of the basis."""
+        return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
+
+
 # ----------------------------------------------------------------------------- building the terms
 
 def _is_off(prior) -> bool:
@@ -510,7 +656,8 @@ def model_terms(relativity=None, extended_mass=None) -> tuple[tuple, dict]:
     terms : tuple
         In the order :func:`orbitmass.core.orbit.evaluate` applies them:
         :class:`RoemerTerm` (when ``roemer_delay``), :class:`PrecessionTerm`,
-        :class:`ExtendedMassTerm`, :class:`RedshiftTerm`. A factor (or the
+        :class:`ExtendedMassTerm` (both at once as one
+        :class:`CombinedPrecession`), :class:`RedshiftTerm`. A factor (or the
         fraction) fixed at exactly 0 adds no term at all, so a Newtonian target
         costs nothing; sampled or fixed at another value, it does.
     priors : dict
@@ -525,16 +672,20 @@ def model_terms(relativity=None, extended_mass=None) -> tuple[tuple, dict]:
     """
     terms: list = []
     priors: dict = {}
+    precessions: list = []
     if relativity is not None:
         if relativity.roemer_delay:
             terms.append(RoemerTerm())
         if not _is_off(relativity.precession_factor):
-            terms.append(PrecessionTerm())
+            precessions.append(PrecessionTerm())
             priors["precession_factor"] = relativity.precession_factor
     if extended_mass is not None and not _is_off(extended_mass.fraction):
-        terms.append(ExtendedMassTerm(scale_radius_au=extended_mass.scale_radius_au,
-                                      scale_radius_mas=extended_mass.scale_radius_mas))
+        precessions.append(ExtendedMassTerm(scale_radius_au=extended_mass.scale_radius_au,
+                                            scale_radius_mas=extended_mass.scale_radius_mas))
         priors["extended_mass_fraction"] = extended_mass.fraction
+    if len(precessions) > 1:  # one rotation for both (same result, half the cost)
+        precessions = [CombinedPrecession(parts=tuple(precessions))]
+    terms += precessions
     if relativity is not None and not _is_off(relativity.redshift_factor):
         terms.append(RedshiftTerm())
         priors["redshift_factor"] = relativity.redshift_factor
