@@ -284,105 +284,6 @@ class RedshiftTerm:
         return shift
 
 
-def _los_time_derivatives(basis: KeplerBasis, C, H, ecc, n_per_yr, *, fourth: bool = False) -> list[Array]:
-    """``z`` (au) and its first three (or four) time derivatives (au / yr^k) on a Keplerian orbit.
-
-    In units of ``a`` and mean anomaly the relative orbit obeys
-    ``r'' = -u r`` with ``u = rho^-3``, ``rho = |r| = 1 - e cos E``; hence
-    the third and fourth derivatives are ``-u' r - u r'`` and
-    ``-u'' r - 2 u' r' - u r''``, with ``rho' = e sin E / rho``,
-    ``rho'' = e cos E / rho^2 - e^2 sin^2 E / rho^3``, ``u' = -3 rho' / rho^4``,
-    ``u'' = 12 rho'^2 / rho^5 - 3 rho'' / rho^4`` (Kepler's equation
-    differentiated, common practice, no source).
-    """
-    ecc = np.asarray(ecc, dtype=float)
-    inv = 1.0 / (1.0 - ecc * basis.cos_E)
-    rho1 = ecc * basis.sin_E * inv
-    u0 = inv * inv * inv
-    u1 = -3.0 * rho1 * u0 * inv
-    # z is linear in (X, Y), so the recursion runs on z and its derivatives per unit mean anomaly
-    z0 = C * basis.X + H * basis.Y
-    z1 = C * basis.dX + H * basis.dY
-    z2 = -u0 * z0
-    z3 = -u1 * z0 - u0 * z1
-    n = n_per_yr
-    out = [z0, n * z1, (n * n) * z2, n**3 * z3]
-    if fourth:
-        rho2 = inv * (ecc * basis.cos_E * inv - rho1 * rho1)
-        u2 = (12.0 * rho1 * rho1 * inv - 3.0 * rho2) * u0 * inv
-        out.append(n**4 * (-u2 * z0 - 2.0 * u1 * z1 - u0 * z2))
-    return out
-
-
-def _fourth_derivative_bound(ecc) -> Array:
-    """An upper bound of ``|r''''| rho^4`` over the orbit (units of ``a`` and mean anomaly).
-
-    With the relations of :func:`_los_time_derivatives`, ``|r''| = rho^-2``,
-    ``|rho'| <= e / sqrt(1 - e^2)``, ``|r'| <= sqrt((1 + e) / (1 - e))`` and
-    ``rho >= 1 - e``: ``|u r''| rho^4 <= 1 / (1 - e)``, ``|2 u' r'| rho^4 <= 6
-    |rho'| |r'|``, ``|u'' r| rho^4 <= 15 rho'^2 + 3 e / rho`` (triangle
-    inequality, common practice, no source).
-    """
-    ecc = np.asarray(ecc, dtype=float)
-    one_m = 1.0 - ecc
-    rho1_max = ecc / np.sqrt(1.0 - ecc * ecc)
-    return (1.0 + 3.0 * ecc) / one_m + 6.0 * rho1_max * np.sqrt((1.0 + ecc) / one_m) + 15.0 * rho1_max * rho1_max
-
-
-#: largest change of the eccentric anomaly :func:`_advance_basis` takes on (its series hold there)
-ADVANCE_MAX_RAD = 0.05
-#: largest error bound (rad) of the eccentric anomaly :func:`_advance_basis` accepts
-ADVANCE_MAX_ERROR_RAD = 1e-7
-
-
-def _advance_basis(basis: KeplerBasis, ecc, d_mean) -> KeplerBasis | None:
-    """The Keplerian basis after the mean anomaly moves on by a small ``d_mean`` (rad), without a Kepler solve.
-
-    The eccentric anomaly moves on by its Taylor series in ``d_mean``
-    (``E' = rho^-1``, ``E'' = -e sin E rho^-3``, ``E''' = rho^-4 (3 rho'^2 -
-    e cos E)`` with ``rho = 1 - e cos E``, ``rho' = e sin E / rho``; Kepler's
-    equation differentiated, common practice, no source):
-
-        x = w (1 - rho' w / 2 + (3 rho'^2 - e cos E / rho) w^2 / 6),   w = d_mean / rho.
-
-    Its error, the next term, is bounded by ``w^4 (15 rho'^3 + 11 rho' / rho
-    + 1 / rho) / 24`` (the fourth derivative's terms, with ``|rho'| <= e /
-    sqrt(1 - e^2)`` and ``1 / rho <= 1 / (1 - e)``): 1.4e-8 rad for the Roemer
-    delay of an e = 0.88, 16-yr orbit around 4e6 solar masses (``|w| <=
-    6e-3``), i.e. below 1e-3 km/s and 1e-5 mas. The sine and cosine of ``E +
-    x`` follow from the angle-addition formulas with the Taylor series of
-    ``sin x`` and ``cos x - 1`` (error below 2e-13 for ``|x| <= 0.05``). None
-    when the step is too large for that (``|w|`` above
-    :data:`ADVANCE_MAX_RAD` or the bound above :data:`ADVANCE_MAX_ERROR_RAD`):
-    the caller then solves Kepler's equation.
-    """
-    ecc = np.asarray(ecc, dtype=float)
-    cos_e, sin_e = basis.cos_E, basis.sin_E
-    e_cos = ecc * cos_e
-    inv = 1.0 / (1.0 - e_cos)
-    w = d_mean * inv
-    if not np.size(w):
-        return None
-    w_max = float(np.max(np.abs(w)))
-    rho1_max = float(np.max(ecc / np.sqrt(1.0 - ecc * ecc)))
-    inv_max = float(np.max(1.0 / (1.0 - ecc)))
-    if w_max > ADVANCE_MAX_RAD or w_max**4 * (15.0 * rho1_max**3 + 11.0 * rho1_max * inv_max + inv_max) / 24.0 \
-            > ADVANCE_MAX_ERROR_RAD:
-        return None
-    rho1 = ecc * sin_e * inv
-    x = w * (1.0 - 0.5 * rho1 * w + (3.0 * rho1 * rho1 - e_cos * inv) * (w * w) / 6.0)
-    x2 = x * x
-    sin_x = x * (1.0 - x2 / 6.0 * (1.0 - x2 / 20.0))
-    cm1 = -0.5 * x2 * (1.0 - x2 / 12.0 * (1.0 - x2 / 30.0))
-    cos_new = cos_e + cos_e * cm1 - sin_e * sin_x
-    sin_new = sin_e + sin_e * cm1 + cos_e * sin_x
-    root = np.sqrt(1.0 - ecc * ecc)
-    inv_new = 1.0 / (1.0 - ecc * cos_new)
-    mean = None if basis.mean_anomaly is None else basis.mean_anomaly + d_mean
-    return KeplerBasis(cos_E=cos_new, sin_E=sin_new, X=cos_new - ecc, Y=root * sin_new, dX=-sin_new * inv_new,
-                       dY=(root * inv_new) * cos_new, mean_anomaly=mean)
-
-
 @dataclass(frozen=True)
 class RoemerTerm:
     """Roemer delay: the light-travel time across the orbit.
@@ -399,32 +300,29 @@ class RoemerTerm:
 
     (the Roemer delay, e.g. Alexander 2005, Phys. Rep. 419, 65, from memory).
 
-    Solution, in one Kepler solve where that suffices: with the Keplerian
-    derivatives ``z_k = d^k z / dt^k`` at ``t_obs`` (see
-    :func:`_los_time_derivatives`), ``Delta = t_emit - t_obs`` solves the
-    cubic Taylor model ``Delta + s (z_0 + z_1 Delta + z_2 Delta^2 / 2 + z_3
-    Delta^3 / 6) = 0`` (``s = P_obs / (P_rest c)``; one Newton step on the
-    polynomial from its linear solution). The series converges with a ratio
-    ~``v / c`` per order since ``|Delta| <= r / c``, so twice the next term,
-    ``2 s |z_4| Delta^4 / 24``, bounds the error; it is first bounded per
-    parameter set (:func:`_fourth_derivative_bound`, with ``|Delta| <= s
-    sqrt(C^2 + H^2) rho / slope``), and evaluated per epoch only when that
-    bound is not enough. Where the error exceeds
-    ``tol_s`` (default 10 ms: a star at 7,700 km/s moves 77 km, below 1e-7
-    mas at 8 kpc, in that time) at any epoch, Newton's method on the exact
-    equation continues (``f' = 1 + s v_z``, common practice, no source), one
-    Kepler solve per step, until the error estimate after a step,
-    ``|f''| step^2 / (2 f')`` with ``f'' = s a_z``, is below ``tol_s``
-    everywhere. For an e = 0.88, 16-yr orbit around 4e6 solar masses the
-    cubic model is enough (the bound per set is 8 ms; tests check the result
-    against a root finder to 0.01 s). Positions and velocities are then those at ``t_emit``.
+    Solution, exact for the Keplerian ``z`` and in one Kepler solve: in mean
+    anomaly, ``M_obs = M_emit + sigma z(E)`` with ``sigma = n_obs s``, ``s =
+    P_obs / (P_rest c)``, ``M_emit = E - e sin E`` and ``z = C (cos E - e) + H
+    sqrt(1 - e^2) sin E``, so
 
-    When the model suffices, the Keplerian basis at ``t_emit`` comes without
-    a second Kepler solve (:func:`_advance_basis`: the eccentric anomaly moved
-    on by a Taylor step and one Newton step on Kepler's equation, with series
-    for the sine and cosine of the small change); :meth:`emission_times`
-    returns it with the epochs and :func:`orbitmass.core.orbit.evaluate` uses
-    it as it is.
+        M_obs + sigma C e = E - p sin E + q cos E,    p = e - sigma H sqrt(1 - e^2),   q = sigma C,
+
+    and with ``e* = sqrt(p^2 + q^2)``, ``phi = atan2(q, p)`` (``p sin E - q
+    cos E = e* sin(E - phi)``) this is Kepler's equation
+
+        M* = E* - e* sin E*,    E* = E - phi,    M* = M_obs + sigma C e - phi
+
+    (the light-time equation of a Keplerian orbit folded into Kepler's
+    equation; derived here, the trigonometric identity is common practice, no
+    source). One solve gives ``E`` at the emission epoch for every observed
+    epoch; ``t_emit = t_obs - s z``. :meth:`emission_times` returns the
+    Keplerian basis at ``t_emit`` with the epochs, so
+    :func:`orbitmass.core.orbit.evaluate` needs no second solve. ``e* < 1``
+    unless ``e`` is within ``~v / c`` of 1; otherwise Newton's method on the
+    light-time equation (``f(t) = t + s z(t) - t_obs``, ``f' = 1 + s v_z``,
+    common practice, no source) runs instead, one Kepler solve per step,
+    until the error estimate after a step, ``|f''| step^2 / (2 f')``, is below
+    ``tol_s`` (default 10 ms) everywhere.
 
     Neglected: the periastron rotation of other terms inside the delay (the
     delay uses the Keplerian ``z``; the error is at most ``delta * r / c``,
@@ -445,11 +343,10 @@ class RoemerTerm:
 
     def emission_times(self, t_obs_yr, state: OrbitState, extra: Mapping[str, Any],
                        solve: Callable[[Any], KeplerBasis]) -> tuple[Array, KeplerBasis | None]:
-        """Emission epochs (Julian years) for the observed epochs ``t_obs_yr``, and the basis there.
+        """Emission epochs (Julian years) for the observed epochs ``t_obs_yr``, and the Keplerian basis there.
 
-        Returns ``(t_emit, basis)``: ``basis`` is the Keplerian basis at
-        ``t_emit`` when it came without another Kepler solve, else None (the
-        caller solves).
+        Returns ``(t_emit, basis)``; ``basis`` is None after the Newton
+        iterations (the caller then solves at ``t_emit``).
         """
         if state.ch_au is None:
             raise ValueError("the Roemer delay needs the line-of-sight constants (OrbitState.ch_au)")
@@ -459,28 +356,27 @@ class RoemerTerm:
         n_obs = TWO_PI / period_obs
         ecc = np.asarray(state.ecc, dtype=float)
         t_obs = np.asarray(t_obs_yr, dtype=float)
+        root = np.sqrt(1.0 - ecc * ecc)
+        sigma = n_obs * yr_per_au
+        p = ecc - sigma * H * root
+        q = sigma * C
+        e_star = np.hypot(p, q)
+        if np.size(e_star) and float(np.max(e_star)) < 1.0:
+            phi = np.arctan2(q, p)
+            mean_obs = state.mean_anomaly_ref + n_obs * (t_obs - state.t_ref_yr)
+            cos_s, sin_s = kepler_cos_sin(mean_obs + (q * ecc - phi), e_star)
+            cos_phi, sin_phi = np.cos(phi), np.sin(phi)
+            cos_e = cos_s * cos_phi - sin_s * sin_phi
+            sin_e = sin_s * cos_phi + cos_s * sin_phi
+            X = cos_e - ecc
+            Y = root * sin_e
+            inv = 1.0 / (1.0 - ecc * cos_e)
+            z_au = C * X + H * Y
+            basis = KeplerBasis(cos_E=cos_e, sin_E=sin_e, X=X, Y=Y, dX=-sin_e * inv, dY=(root * inv) * cos_e,
+                                mean_anomaly=mean_obs - sigma * z_au)
+            return t_obs - yr_per_au * z_au, basis
         tol_yr = self.tol_s / (DAYS_PER_YEAR * 86400.0)
-        basis = solve(t_obs)
-        z_k = _los_time_derivatives(basis, C, H, ecc, n_obs)
-        # the linear solution, then one Newton step on the cubic (its nonlinear part is ~v/c smaller)
-        slope0 = 1.0 + yr_per_au * z_k[1]
-        delta = -yr_per_au * z_k[0] / slope0
-        nonlinear = yr_per_au * delta * delta * (0.5 * z_k[2] + delta * z_k[3] / 6.0)
-        delta = delta - nonlinear / (slope0 + yr_per_au * delta * (z_k[2] + 0.5 * delta * z_k[3]))
-        # error: twice the next term, 2 s |z_4| Delta^4 / 24; first a bound per parameter set
-        # (|Delta| <= s |z| / slope, |z| <= sqrt(C^2 + H^2) rho), per epoch only when that is not enough
-        los_au = np.hypot(C, H)
-        root = np.sqrt((1.0 + ecc) / (1.0 - ecc))
-        min_slope = np.maximum(1.0 - yr_per_au * n_obs * los_au * root, 0.5)
-        bound = (yr_per_au * los_au) ** 5 * n_obs**4 * _fourth_derivative_bound(ecc) / (12.0 * min_slope**5)
-        if not np.size(delta) or float(np.max(bound)) < tol_yr:
-            return t_obs + delta, _advance_basis(basis, ecc, n_obs * delta)
-        z4 = _los_time_derivatives(basis, C, H, ecc, n_obs, fourth=True)[4]
-        delta2 = delta * delta
-        error = yr_per_au / 12.0 * np.abs(z4) * delta2 * delta2 / slope0
-        if float(np.max(error)) < tol_yr:
-            return t_obs + delta, _advance_basis(basis, ecc, n_obs * delta)
-        t = t_obs + delta
+        t = t_obs
         for _ in range(self.max_iter):
             basis = solve(t)
             z_au = C * basis.X + H * basis.Y
