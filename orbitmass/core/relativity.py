@@ -580,7 +580,7 @@ def model_terms(relativity=None, extended_mass=None) -> tuple[tuple, dict]:
                                             scale_radius_mas=extended_mass.scale_radius_mas))
         priors["extended_mass_fraction"] = extended_mass.fraction
     if len(precessions) > 1:  # one rotation for both (same result, half the cost)
-        precessions = [CombinedPrecession(parts=tuple(precessions))]
+        precessions = [CombinedPrecession(parts=tuple(precessions), name="+".join(t.name for t in precessions))]
     terms += precessions
     if relativity is not None and not _is_off(relativity.redshift_factor):
         terms.append(RedshiftTerm())
