@@ -70,8 +70,8 @@ SCENARIOS: dict[str, TrueOrbit] = {
 #: Schwarzschild precession fixed at its general-relativity value, the Roemer delay on
 QUILLON_RELATIVITY = """\
     [relativity]
-    # first post-Newtonian terms (QD-S4 passes at ~7,000 Schwarzschild radii): the redshift is
-    # measured, the precession (~2.6 arcmin per orbit, below these positions' errors) is that of
+    # first post-Newtonian terms (QD-S4 passes at ~3,600 Schwarzschild radii): the redshift is
+    # measured, the precession (~5 arcmin per orbit, ~0.03 mas here) is that of
     # general relativity
     redshift_factor = { dist = "uniform", low = -1, high = 3 }
     precession_factor = { dist = "fixed", value = 1 }
