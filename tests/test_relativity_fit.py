@@ -139,6 +139,7 @@ def test_new_quantities_have_table_entries():
         assert q.label and q.latex and q.text and q.meaning and q.unit in UNITS
 
 
+@pytest.mark.slow
 def test_short_fit_writes_the_derived_keys_and_reloads_with_the_same_terms(tmp_path):
     # a short run (not converged, not a measurement): the keys, their form, and load_run's rebuilt model
     target = write_star(tmp_path / "data", gr=True, n_pos=(20, 6, 0), n_rv=(8, 6), tables="""
@@ -215,13 +216,12 @@ def test_keplerian_fit_of_gr_data_is_biased(tmp_path):
     # against the truth 4.1e6, +11.0 sigma; distance 8331 +- 12 pc against 8200, +10.7 sigma
     # (against the relativistic fit's medians: +12.7 and +12.2 sigma). The full model's log
     # posterior at its mode is higher by ~186 (the polish: -90 against -277).
-    gr = Fit(seed=3, progress=False).fit(write_star(tmp_path / "rel", gr=True, tables=SAMPLED)).summary
-    kep = Fit(seed=3, progress=False).fit(write_star(tmp_path / "kep", gr=True)).summary
-    assert kep["diagnostics"]["converged"] and gr["diagnostics"]["converged"]
+    kep = Fit(seed=3, progress=False).fit(write_star(tmp_path, gr=True)).summary
+    assert kep["diagnostics"]["converged"]
     shifts = {}
-    for key in ("mass_msun", "distance_pc"):
+    for key, truth in (("mass_msun", TRUTH.mass_msun), ("distance_pc", TRUTH.distance_pc)):
         b = kep["derived"][key]
-        sigma = 0.5 * (b["q84"] - b["q16"])
-        shifts[key] = (b["median"] - gr["derived"][key]["median"]) / sigma
-    # the velocity residuals at periastron: the Keplerian model cannot follow the ~190 km/s redshift
-    assert max(abs(v) for v in shifts.values()) > 3.0, shifts
+        shifts[key] = (b["median"] - truth) / (0.5 * (b["q84"] - b["q16"]))
+        assert not inside95(b, truth)
+    # both biased high by many sigma: the Keplerian orbit absorbs the ~190 km/s periastron redshift
+    assert min(shifts.values()) > 5.0, shifts
