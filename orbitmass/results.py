@@ -24,6 +24,11 @@ from orbitmass.core.physics import (
     semi_amplitude_kms,
     semimajor_axis_au,
 )
+from orbitmass.core.relativity import (
+    precession_arcmin_per_orbit,
+    redshift_at_periastron_kms,
+    roemer_delay_range_days,
+)
 from orbitmass.model.data import Target
 from orbitmass.model.likelihood import predict_system
 from orbitmass.model.parameters import ParameterSpace
@@ -162,6 +167,11 @@ def derive_samples(space: ParameterSpace, theta: NDArray[np.float64],
     for name in space.instrument_names:
         cols[f"offset_kms.{name}"] = phys[f"offset.{name}"]
         cols[f"jitter_kms.{name}"] = phys[f"jitter.{name}"]
+    # the sampled factors of the model terms (a fixed one is a setting, not a posterior)
+    for pname, prior in space.term_parameters.items():
+        if not prior.fixed:
+            cols[pname] = phys[pname]
+    beyond_kepler = space.target.relativity is not None or space.target.extended_mass is not None
     for lay in space.companions:
         c = lay.name
         plane_info = space.planes[lay.plane]
@@ -199,6 +209,14 @@ def derive_samples(space: ParameterSpace, theta: NDArray[np.float64],
         cols[f"{c}.periastron_rs"] = rp / schwarzschild_radius_au(mass)
         cols[f"{c}.periastron_speed_kms"] = periastron_speed_kms(mass, a_au, e)
         sin_i = np.sqrt(1 - cos_i**2)
+        if beyond_kepler:
+            # what general relativity predicts for this orbit (factor 1); the fitted model applies
+            # precession_factor / redshift_factor times these
+            cols[f"{c}.precession_arcmin_per_orbit"] = precession_arcmin_per_orbit(mass, a_au, e)
+            cols[f"{c}.redshift_periastron_kms"] = redshift_at_periastron_kms(mass, a_au, e)
+            sin_w, cos_w = np.sin(phys[f"{c}.omega"]), np.cos(phys[f"{c}.omega"])
+            cols[f"{c}.roemer_delay_range_days"] = roemer_delay_range_days(a_au * sin_w * sin_i,
+                                                                           a_au * cos_w * sin_i, e)
         cols[f"{c}.semi_amplitude_kms"] = semi_amplitude_kms(a_au, p, np.arccos(cos_i), e)
         comp = space.companion(c)
         if comp.has_velocities and (comp.astrometry is None or len(comp.astrometry) == 0):

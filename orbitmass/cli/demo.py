@@ -44,6 +44,16 @@ def run(args: argparse.Namespace) -> int:
         print(f"  converged: {'yes' if d['converged'] else 'NO'}; ESS of the mass {d['ess_mass']:.0f}; "
               f"{d['wall_seconds']:.1f} s")
         print(f"  report: {res.run_dir / 'report.md'}  (also report.html)")
+        rel = res.relativity
+        if rel:  # the black-hole star: relativistic data fitted with and without the terms
+            for key, name in (("redshift_factor", "redshift factor"), ("precession_factor", "precession factor")):
+                if key in rel["factors"]:
+                    print(f"  {name}: {fmt_interval(rel['factors'][key])}   (general relativity 1, Newton 0)")
+            m = rel["mass_msun"]
+            print(f"  Keplerian fit of the same data: total mass {fmt_interval(m['keplerian'])} Msun, "
+                  f"shifted by {m['shift']:+.3g} Msun ({m['shift_sigma']:+.1f} sigma); distance shifted by "
+                  f"{rel['distance_pc']['shift']:+.3g} pc ({rel['distance_pc']['shift_sigma']:+.1f} sigma)")
+            print(f"  velocity residuals of both models around periastron: {rel['figure'][0]}")
     cmp_dir = Path(args.out) / "comparison-demo" / "comparison"
     if (cmp_dir / "comparison.md").is_file():
         print(f"\ncomparison of two invented teams' datasets and their joint refit: {cmp_dir / 'comparison.md'}")

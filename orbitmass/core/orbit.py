@@ -54,10 +54,13 @@ A model term is an object with
 
 and any of these optional hooks, applied by :func:`evaluate` in this order:
 
-``emission_times(t_obs_yr, state, extra, solve) -> t_emit_yr``
+``emission_times(t_obs_yr, state, extra, solve) -> t_emit_yr`` or ``(t_emit_yr, basis)``
     Light-travel time: return the epochs at which the light observed at
     ``t_obs_yr`` was emitted. ``solve(t)`` evaluates the Keplerian state at
-    any epochs (so the term can iterate, e.g. for the Romer delay).
+    any epochs (so the term can iterate, e.g. for the Romer delay). A term
+    that has the Keplerian basis at ``t_emit_yr`` at hand may return it too
+    (or None in its place); :func:`evaluate` then uses it instead of solving
+    Kepler's equation again.
 ``plane_rotation(state, basis, extra) -> (delta, delta_rate)``
     A rotation of the orbit in its plane by ``delta`` (rad, shape of the
     basis), e.g. a periastron advance that grows with the true anomaly swept,
@@ -243,14 +246,19 @@ def evaluate(state: OrbitState, t_yr, *, positions: bool = True, velocities: boo
         return kepler_basis(tt, t_ref_yr=state.t_ref_yr, period_obs_yr=state.period_obs_yr, ecc=state.ecc,
                             mean_anomaly_ref=state.mean_anomaly_ref, velocities=True)
 
+    emitted = None  # a hook may return (t_emit, basis at t_emit): then no second Kepler solve
     for term in terms:
         hook = getattr(term, "emission_times", None)
         if hook is not None:
             t = hook(t, state, extra, solve)
+            t, emitted = t if isinstance(t, tuple) else (t, None)
     rotations = [term for term in terms if getattr(term, "plane_rotation", None) is not None]
     shifts = [term for term in terms if getattr(term, "velocity_shift", None) is not None]
-    basis = kepler_basis(t, t_ref_yr=state.t_ref_yr, period_obs_yr=state.period_obs_yr, ecc=state.ecc,
-                         mean_anomaly_ref=state.mean_anomaly_ref, velocities=velocities or bool(rotations))
+    if emitted is not None and (emitted.dX is not None or not (velocities or rotations)):
+        basis = emitted
+    else:
+        basis = kepler_basis(t, t_ref_yr=state.t_ref_yr, period_obs_yr=state.period_obs_yr, ecc=state.ecc,
+                             mean_anomaly_ref=state.mean_anomaly_ref, velocities=velocities or bool(rotations))
     for term in rotations:
         basis = _rotate_basis(basis, *term.plane_rotation(state, basis, extra))
     out: dict[str, Array] = {}

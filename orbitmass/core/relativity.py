@@ -21,6 +21,9 @@ Terms
 :class:`ExtendedMassTerm`
     A Plummer sphere of fixed scale radius and sampled mass fraction
     ``extended_mass_fraction``: its retrograde periastron precession.
+:class:`CombinedPrecession`
+    The two precessions at once, as one in-plane rotation (what
+    :func:`model_terms` builds when both are on).
 
 What the terms need from :class:`~orbitmass.core.orbit.OrbitState`:
 ``mass_msun`` (total mass, solar masses) for the redshift, the precessions and
@@ -28,6 +31,10 @@ the extended mass; ``a_au`` (relative semimajor axis, au; when None it is
 taken from Kepler's third law with ``period_rest_yr``); ``ch_au`` (the
 line-of-sight Thiele-Innes constants in au) for the Roemer delay;
 ``distance_pc`` for an extended mass whose scale radius is an angle.
+
+Building the terms of a target: :func:`model_terms` turns the target's
+``[relativity]`` and ``[extended_mass]`` tables into the terms and their
+priors (the one builder used by the fit and by a reloaded run folder).
 
 Helpers for derived posteriors: :func:`precession_arcmin_per_orbit`,
 :func:`redshift_at_periastron_kms`, :func:`periastron_schwarzschild_radii`,
@@ -73,6 +80,8 @@ __all__ = [
     "RoemerTerm",
     "PrecessionTerm",
     "ExtendedMassTerm",
+    "CombinedPrecession",
+    "model_terms",
     "schwarzschild_precession_per_orbit",
     "plummer_precession_per_orbit",
     "unwrapped_true_anomaly",
@@ -144,9 +153,9 @@ def _apsidal_rotation(per_orbit_rad, state: OrbitState, basis: KeplerBasis) -> t
     cos_e0, sin_e0 = kepler_cos_sin(m_ref, ecc)
     ref = KeplerBasis(cos_E=cos_e0, sin_E=sin_e0, X=None, Y=None, dX=None, dY=None, mean_anomaly=m_ref)
     nu_ref = unwrapped_true_anomaly(ref, ecc)
-    delta = scale * (nu - nu_ref)
+    delta = scale * nu - scale * nu_ref
     one_minus = 1.0 - ecc * basis.cos_E
-    rate = scale * np.sqrt(1.0 - ecc * ecc) / (one_minus * one_minus)
+    rate = (scale * np.sqrt(1.0 - ecc * ecc)) / (one_minus * one_minus)
     return delta, rate
 
 
@@ -195,17 +204,32 @@ def plummer_precession_per_orbit(mass_msun, a_au, ecc, fraction, scale_radius_au
         Central mass, semimajor axis, eccentricity, Plummer mass / central
         mass, Plummer scale radius (au); broadcast together.
     n_nodes : int
-        Quadrature nodes in the eccentric anomaly.
+        Most quadrature nodes in the eccentric anomaly (fewer are used where
+        the orbits' eccentricity allows, see the code comment).
     """
     mass, a, ecc, frac, b = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in
                                                   (mass_msun, a_au, ecc, fraction, scale_radius_au)))
-    nodes = np.linspace(0.0, TWO_PI, n_nodes, endpoint=False)
+    # The trapezoid error falls as exp(-N sigma), sigma the distance from the real axis of the
+    # integrand's nearest pole: for b -> 0 the root of 1 - e cos E = 0, Im E = acosh(1 / e) (a larger
+    # b moves the poles further out). N = 40 / sigma nodes (at least 32, at most n_nodes) keep the
+    # error below ~1e-12 relative (the tests check 1e-9 against 8192 nodes).
+    e_max = float(np.max(ecc)) if np.size(ecc) else 0.0
+    sigma = math.acosh(1.0 / e_max) if 0.0 < e_max < 1.0 else math.inf
+    n_nodes = int(min(n_nodes, max(32, 2 * math.ceil(20.0 / sigma)))) if math.isfinite(sigma) else min(n_nodes, 32)
+    # the integrand is even in E: the nodes on [0, pi] with the trapezoid weights of the full circle
+    half = n_nodes // 2
+    nodes = np.linspace(0.0, TWO_PI, n_nodes, endpoint=False)[: half + 1]
+    weights = np.full(half + 1, 2.0)
+    weights[0] = 1.0
+    if n_nodes % 2 == 0:
+        weights[half] = 1.0
     cos_e = np.cos(nodes)
     ecc_safe = np.maximum(ecc, 1e-8)[..., None]
     r = a[..., None] * (1.0 - ecc_safe * cos_e)
     # R / (G M_ext) in 1/au^2; G M_ext = fraction * G M
-    force = -r / (r * r + b[..., None] ** 2) ** 1.5
-    integral = TWO_PI * np.mean(force * (cos_e - ecc_safe), axis=-1)
+    q = r * r + b[..., None] ** 2
+    force = -r / (q * np.sqrt(q))
+    integral = (TWO_PI / n_nodes) * ((force * (cos_e - ecc_safe)) @ weights)
     return -np.sqrt(1.0 - ecc * ecc) * a * a * frac * integral / np.maximum(ecc, 1e-8)
 
 
@@ -248,8 +272,10 @@ class RedshiftTerm:
     coordinates in which the orbit is written.
 
     ``v`` and ``r`` are taken from the (possibly rotated) in-plane basis:
-    ``r = a sqrt(X^2 + Y^2)``, ``v = n a sqrt(dX^2 + dY^2)`` with
-    ``n = 2 pi / P_rest``.
+    ``r = a sqrt(X^2 + Y^2) = a (1 - e cos E)`` (a rotation keeps the
+    length; Kepler's equation, common practice, no source), ``v^2 = n^2 a^2
+    (dX^2 + dY^2)`` with ``n = 2 pi / P_rest`` (no square roots: they cost
+    more than the rest of the term).
     """
 
     name: str = "redshift"
@@ -260,37 +286,13 @@ class RedshiftTerm:
         """The shift ``f (v^2/(2c) + GM/(rc))`` in km/s, shape of ``vz_kms``."""
         factor = np.asarray(extra["redshift_factor"], dtype=float)
         a = _semimajor_axis_au(state)
-        r_au = a * np.hypot(basis.X, basis.Y)
-        speed_kms = (TWO_PI * KMS_PER_AU_PER_YR / np.asarray(state.period_rest_yr, dtype=float)) * a \
-            * np.hypot(basis.dX, basis.dY)
-        return factor * redshift_shift_kms(_mass_msun(state), r_au, speed_kms)
-
-
-def _los_time_derivatives(basis: KeplerBasis, C, H, ecc, n_per_yr) -> list[Array]:
-    """``z`` (au) and its first four time derivatives (au / yr^k) on a Keplerian orbit.
-
-    In units of ``a`` and mean anomaly the relative orbit obeys
-    ``r'' = -u r`` with ``u = rho^-3``, ``rho = |r| = 1 - e cos E``; hence
-    ``r''' = -u' r - u r'`` and ``r'''' = -u'' r - 2 u' r' - u r''`` with
-    ``rho' = e sin E / rho``, ``rho'' = e cos E / rho^2 - e^2 sin^2 E / rho^3``,
-    ``u' = -3 rho' / rho^4``, ``u'' = 12 rho'^2 / rho^5 - 3 rho'' / rho^4``
-    (Kepler's equation differentiated, common practice, no source).
-    """
-    ecc = np.asarray(ecc, dtype=float)
-    inv = 1.0 / (1.0 - ecc * basis.cos_E)
-    rho1 = ecc * basis.sin_E * inv
-    rho2 = inv * (ecc * basis.cos_E * inv - rho1 * rho1)
-    u0 = inv * inv * inv
-    u1 = -3.0 * rho1 * u0 * inv
-    u2 = (12.0 * rho1 * rho1 * inv - 3.0 * rho2) * u0 * inv
-    # z is linear in (X, Y), so the recursion runs on z and its derivatives per unit mean anomaly
-    z0 = C * basis.X + H * basis.Y
-    z1 = C * basis.dX + H * basis.dY
-    z2 = -u0 * z0
-    z3 = -u1 * z0 - u0 * z1
-    z4 = -u2 * z0 - 2.0 * u1 * z1 - u0 * z2
-    n = n_per_yr
-    return [z0, n * z1, n * n * z2, n**3 * z3, n**4 * z4]
+        ecc = np.asarray(state.ecc, dtype=float)
+        # per-set constants (n_sets, 1) first, so the epoch arrays see few operations
+        gm_over_a = GM_SUN_AU3_PER_YR2 * _mass_msun(state) / a * (KMS_PER_AU_PER_YR ** 2 / C_KMS)
+        half_v2 = 0.5 / C_KMS * ((TWO_PI * KMS_PER_AU_PER_YR / np.asarray(state.period_rest_yr, dtype=float)) * a) ** 2
+        shift = (basis.dX * basis.dX + basis.dY * basis.dY) * (factor * half_v2)
+        shift += (factor * gm_over_a) / (1.0 - ecc * basis.cos_E)
+        return shift
 
 
 @dataclass(frozen=True)
@@ -309,22 +311,29 @@ class RoemerTerm:
 
     (the Roemer delay, e.g. Alexander 2005, Phys. Rep. 419, 65, from memory).
 
-    Solution, in one Kepler solve where that suffices: with the Keplerian
-    derivatives ``z_k = d^k z / dt^k`` at ``t_obs`` (see
-    :func:`_los_time_derivatives`), ``Delta = t_emit - t_obs`` solves the
-    cubic Taylor model ``Delta + s (z_0 + z_1 Delta + z_2 Delta^2 / 2 + z_3
-    Delta^3 / 6) = 0`` (``s = P_obs / (P_rest c)``; one Newton step on the
-    polynomial from its linear solution). The series converges with a ratio ~``v / c`` per order since
-    ``|Delta| <= r / c``, so twice the next term, ``2 s |z_4| Delta^4 / 24``,
-    bounds the error. Where that bound exceeds ``tol_s`` (default 10 ms: a star
-    at 7,700 km/s moves 77 km, below 1e-7 mas at 8 kpc, in that time) at any
-    epoch, Newton's method on the exact equation continues (``f' = 1 + s
-    v_z``, common practice, no source), one Kepler solve per step, until the
-    error estimate after a step, ``|f''| step^2 / (2 f')`` with ``f'' = s
-    a_z`` and ``a_z = -n^2 (C X + H Y) / (1 - e cos E)^3``, is below ``tol_s``
-    everywhere. For an e = 0.88, 16-yr orbit around 4e6 solar masses the
-    cubic model is enough (tests check the result against a root finder to
-    0.01 s). Positions and velocities are then those at ``t_emit``.
+    Solution, exact for the Keplerian ``z`` and in one Kepler solve: in mean
+    anomaly, ``M_obs = M_emit + sigma z(E)`` with ``sigma = n_obs s``, ``s =
+    P_obs / (P_rest c)``, ``M_emit = E - e sin E`` and ``z = C (cos E - e) + H
+    sqrt(1 - e^2) sin E``, so
+
+        M_obs + sigma C e = E - p sin E + q cos E,    p = e - sigma H sqrt(1 - e^2),   q = sigma C,
+
+    and with ``e* = sqrt(p^2 + q^2)``, ``phi = atan2(q, p)`` (``p sin E - q
+    cos E = e* sin(E - phi)``) this is Kepler's equation
+
+        M* = E* - e* sin E*,    E* = E - phi,    M* = M_obs + sigma C e - phi
+
+    (the light-time equation of a Keplerian orbit folded into Kepler's
+    equation; derived here, the trigonometric identity is common practice, no
+    source). One solve gives ``E`` at the emission epoch for every observed
+    epoch; ``t_emit = t_obs - s z``. :meth:`emission_times` returns the
+    Keplerian basis at ``t_emit`` with the epochs, so
+    :func:`orbitmass.core.orbit.evaluate` needs no second solve. ``e* < 1``
+    unless ``e`` is within ``~v / c`` of 1; otherwise Newton's method on the
+    light-time equation (``f(t) = t + s z(t) - t_obs``, ``f' = 1 + s v_z``,
+    common practice, no source) runs instead, one Kepler solve per step,
+    until the error estimate after a step, ``|f''| step^2 / (2 f')``, is below
+    ``tol_s`` (default 10 ms) everywhere.
 
     Neglected: the periastron rotation of other terms inside the delay (the
     delay uses the Keplerian ``z``; the error is at most ``delta * r / c``,
@@ -344,8 +353,12 @@ class RoemerTerm:
     max_iter: int = 20
 
     def emission_times(self, t_obs_yr, state: OrbitState, extra: Mapping[str, Any],
-                       solve: Callable[[Any], KeplerBasis]) -> Array:
-        """Emission epochs (Julian years) for the observed epochs ``t_obs_yr``."""
+                       solve: Callable[[Any], KeplerBasis]) -> tuple[Array, KeplerBasis | None]:
+        """Emission epochs (Julian years) for the observed epochs ``t_obs_yr``, and the Keplerian basis there.
+
+        Returns ``(t_emit, basis)``; ``basis`` is None after the Newton
+        iterations (the caller then solves at ``t_emit``).
+        """
         if state.ch_au is None:
             raise ValueError("the Roemer delay needs the line-of-sight constants (OrbitState.ch_au)")
         C, H = state.ch_au
@@ -354,18 +367,27 @@ class RoemerTerm:
         n_obs = TWO_PI / period_obs
         ecc = np.asarray(state.ecc, dtype=float)
         t_obs = np.asarray(t_obs_yr, dtype=float)
+        root = np.sqrt(1.0 - ecc * ecc)
+        sigma = n_obs * yr_per_au
+        p = ecc - sigma * H * root
+        q = sigma * C
+        e_star = np.hypot(p, q)
+        if np.size(e_star) and float(np.max(e_star)) < 1.0:
+            phi = np.arctan2(q, p)
+            mean_obs = state.mean_anomaly_ref + n_obs * (t_obs - state.t_ref_yr)
+            cos_s, sin_s = kepler_cos_sin(mean_obs + (q * ecc - phi), e_star)
+            cos_phi, sin_phi = np.cos(phi), np.sin(phi)
+            cos_e = cos_s * cos_phi - sin_s * sin_phi
+            sin_e = sin_s * cos_phi + cos_s * sin_phi
+            X = cos_e - ecc
+            Y = root * sin_e
+            inv = 1.0 / (1.0 - ecc * cos_e)
+            z_au = C * X + H * Y
+            basis = KeplerBasis(cos_E=cos_e, sin_E=sin_e, X=X, Y=Y, dX=-sin_e * inv, dY=(root * inv) * cos_e,
+                                mean_anomaly=mean_obs - sigma * z_au)
+            return t_obs - yr_per_au * z_au, basis
         tol_yr = self.tol_s / (DAYS_PER_YEAR * 86400.0)
-        z_k = _los_time_derivatives(solve(t_obs), C, H, ecc, n_obs)
-        # the linear solution, then one Newton step on the cubic (its nonlinear part is ~v/c smaller)
-        slope0 = 1.0 + yr_per_au * z_k[1]
-        delta = -yr_per_au * z_k[0] / slope0
-        nonlinear = yr_per_au * delta * delta * (0.5 * z_k[2] + delta * z_k[3] / 6.0)
-        delta = delta - nonlinear / (slope0 + yr_per_au * delta * (z_k[2] + 0.5 * delta * z_k[3]))
-        t = t_obs + delta
-        delta2 = delta * delta
-        error = yr_per_au / 12.0 * np.abs(z_k[4]) * delta2 * delta2 / slope0
-        if not np.size(error) or float(np.max(error)) < tol_yr:
-            return t
+        t = t_obs
         for _ in range(self.max_iter):
             basis = solve(t)
             z_au = C * basis.X + H * basis.Y
@@ -375,7 +397,7 @@ class RoemerTerm:
             curvature = yr_per_au * n_obs * n_obs * np.abs(z_au) / (1.0 - ecc * basis.cos_E) ** 3
             error = float(np.max(0.5 * curvature * step * step / slope)) if np.size(step) else 0.0
             if error < tol_yr:
-                return t
+                return t, None
         raise ArithmeticError(f"the Roemer delay iteration did not converge in {self.max_iter} steps "
                               f"(error estimate {error * DAYS_PER_YEAR * 86400.0:.3g} s)")
 
@@ -415,11 +437,14 @@ class PrecessionTerm:
     parameters: tuple[str, ...] = ("precession_factor",)
     linear_safe: bool = False
 
+    def precession_per_orbit(self, state: OrbitState, extra: Mapping[str, Any]) -> Array:
+        """Periastron advance per orbit (rad) for the state's orbits, scaled by the factor."""
+        return np.asarray(extra["precession_factor"], dtype=float) * schwarzschild_precession_per_orbit(
+            _mass_msun(state), _semimajor_axis_au(state), state.ecc)
+
     def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
         """``(delta, d delta / dM)`` in rad, shape of the basis."""
-        per_orbit = np.asarray(extra["precession_factor"], dtype=float) * schwarzschild_precession_per_orbit(
-            _mass_msun(state), _semimajor_axis_au(state), state.ecc)
-        return _apsidal_rotation(per_orbit, state, basis)
+        return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
 
 
 @dataclass(frozen=True)
@@ -481,6 +506,97 @@ class ExtendedMassTerm:
     def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
         """``(delta, d delta / dM)`` in rad, shape of the basis."""
         return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
+
+
+@dataclass(frozen=True)
+class CombinedPrecession:
+    """Several periastron precessions (e.g. Schwarzschild and an extended mass) as one in-plane rotation.
+
+    Each part is a term with ``precession_per_orbit(state, extra)`` applied
+    as ``delta = (Delta omega / 2 pi) (nu - nu_ref)`` (:class:`PrecessionTerm`,
+    :class:`ExtendedMassTerm`). Rotations in the plane add, and so do their
+    rates, so rotating once by the sum of the advances per orbit is the same
+    as rotating by each in turn (to rounding), at the cost of one: the true
+    anomaly and the rotation are computed once.
+    """
+
+    parts: tuple = ()
+    name: str = "precession"
+    linear_safe: bool = False
+
+    @property
+    def parameters(self) -> tuple[str, ...]:
+        """The parameters of every part, in order."""
+        return tuple(p for part in self.parts for p in part.parameters)
+
+    def precession_per_orbit(self, state: OrbitState, extra: Mapping[str, Any]) -> Array:
+        """The summed advance per orbit (rad) of the parts."""
+        total = 0.0
+        for part in self.parts:
+            total = total + part.precession_per_orbit(state, extra)
+        return total
+
+    def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
+        """``(delta, d delta / dM)`` in rad, shape of the basis."""
+        return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
+
+
+# ----------------------------------------------------------------------------- building the terms
+
+def _is_off(prior) -> bool:
+    """A prior fixed at exactly 0 (the factor, or fraction, switches its term off)."""
+    return bool(getattr(prior, "fixed", False)) and float(prior.value) == 0.0
+
+
+def model_terms(relativity=None, extended_mass=None) -> tuple[tuple, dict]:
+    """The model terms of a target and the priors of their parameters.
+
+    Parameters
+    ----------
+    relativity : object with ``redshift_factor``, ``precession_factor`` (priors) and ``roemer_delay`` (bool), optional
+        The target's ``[relativity]`` table (:class:`orbitmass.model.data.Relativity`), or None.
+    extended_mass : object with ``fraction`` (prior), ``scale_radius_mas``, ``scale_radius_au``, optional
+        The target's ``[extended_mass]`` table (:class:`orbitmass.model.data.ExtendedMass`), or None.
+
+    Returns
+    -------
+    terms : tuple
+        In the order :func:`orbitmass.core.orbit.evaluate` applies them:
+        :class:`RoemerTerm` (when ``roemer_delay``), :class:`PrecessionTerm`,
+        :class:`ExtendedMassTerm` (both at once as one
+        :class:`CombinedPrecession`), :class:`RedshiftTerm`. A factor (or the
+        fraction) fixed at exactly 0 adds no term at all, so a Newtonian target
+        costs nothing; sampled or fixed at another value, it does.
+    priors : dict
+        Parameter name -> prior (``redshift_factor``, ``precession_factor``,
+        ``extended_mass_fraction``) of every term returned.
+
+    Examples
+    --------
+    >>> terms, priors = model_terms(None, None)
+    >>> terms, priors
+    ((), {})
+    """
+    terms: list = []
+    priors: dict = {}
+    precessions: list = []
+    if relativity is not None:
+        if relativity.roemer_delay:
+            terms.append(RoemerTerm())
+        if not _is_off(relativity.precession_factor):
+            precessions.append(PrecessionTerm())
+            priors["precession_factor"] = relativity.precession_factor
+    if extended_mass is not None and not _is_off(extended_mass.fraction):
+        precessions.append(ExtendedMassTerm(scale_radius_au=extended_mass.scale_radius_au,
+                                            scale_radius_mas=extended_mass.scale_radius_mas))
+        priors["extended_mass_fraction"] = extended_mass.fraction
+    if len(precessions) > 1:  # one rotation for both (same result, half the cost)
+        precessions = [CombinedPrecession(parts=tuple(precessions), name="+".join(t.name for t in precessions))]
+    terms += precessions
+    if relativity is not None and not _is_off(relativity.redshift_factor):
+        terms.append(RedshiftTerm())
+        priors["redshift_factor"] = relativity.redshift_factor
+    return tuple(terms), priors
 
 
 # ----------------------------------------------------------------------------- derived quantities

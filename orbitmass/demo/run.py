@@ -16,6 +16,7 @@ from pathlib import Path
 
 from orbitmass.compare import MassPosterior, combined_refit, compare
 from orbitmass.compare.report import check_out_dir
+from orbitmass.demo.beyond_kepler import relativity_comparison, residual_figure
 from orbitmass.demo.scenarios import DEMO_REFERENCE, SCENARIOS, write_comparison_datasets, write_scenarios
 from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.exceptions import RunFolderError
@@ -28,17 +29,29 @@ log = logging.getLogger(__name__)
 
 @dataclass
 class DemoResult:
-    """What the demo produced for one scenario."""
+    """What the demo produced for one scenario.
+
+    For the black-hole star (``quillon``) also ``relativity``: the Keplerian
+    fit of the same data (run folder ``runs/quillon-kepler``) against the
+    relativistic one (:func:`orbitmass.demo.beyond_kepler.relativity_comparison`,
+    with ``figure``: the residual figure's files).
+    """
 
     name: str
     run_dir: Path
     truth: TrueOrbit
     summary: dict
+    relativity: dict | None = None
 
 
 def run_demo(out_dir: Path, *, seed: int = 1, overwrite: bool = False, progress: bool | None = None,
              max_steps: int = 20000, compare: bool = True) -> list[DemoResult]:
     """Write the invented data into ``out_dir/data``, fit each scenario, save runs into ``out_dir/runs``.
+
+    The black-hole star QD-S4 (relativistic data) is fitted with its ``[relativity]``
+    table (``runs/quillon``) and with Keplerian orbits (``runs/quillon-kepler``); the
+    velocity residuals of both around periastron are drawn in
+    ``out_dir/quillon-relativity.png`` (and ``.pdf``).
 
     With ``compare``, also the comparison demo of :func:`demo_comparison`
     (two teams' datasets of the Quillon black hole, compared and fitted jointly) into
@@ -55,11 +68,25 @@ def run_demo(out_dir: Path, *, seed: int = 1, overwrite: bool = False, progress:
         fit = Fit(seed=seed, progress=progress, max_steps=max_steps).fit(path)
         run_dir = fit.save(out_dir / "runs" / name, overwrite=True)
         truth = SCENARIOS["quillon" if name == "quillon-joint" else name]
-        results.append(DemoResult(name=name, run_dir=run_dir, truth=truth, summary=fit.summary))
+        relativity = _keplerian_counterpart(fit, path, out_dir, seed, progress, max_steps) \
+            if name == "quillon" else None
+        results.append(DemoResult(name=name, run_dir=run_dir, truth=truth, summary=fit.summary,
+                                  relativity=relativity))
     if compare:
         demo_comparison(out_dir / "comparison-demo", seed=seed, overwrite=True, progress=progress,
                         max_steps=max_steps)
     return results
+
+
+def _keplerian_counterpart(fit: Fit, path: Path, out_dir: Path, seed: int, progress, max_steps: int) -> dict:
+    """Fit the black-hole star's data with Keplerian orbits too; compare, and draw the residual figure."""
+    kepler = Fit(seed=seed, progress=progress, max_steps=max_steps).fit(path.parent / "target-kepler.toml")
+    kepler.save(out_dir / "runs" / "quillon-kepler", overwrite=True)
+    info = relativity_comparison(fit.summary, kepler.summary)
+    info["figure"] = [str(p) for p in residual_figure(
+        fit.results, kepler.results, "QD-S4", out_dir / "quillon-relativity",
+        periastron_jyr=SCENARIOS["quillon"].periastron_time)]
+    return info
 
 
 def demo_comparison(

@@ -9,7 +9,9 @@ teams, the visual binary "Tessaly 41 AB" and the sample of visual binaries
 every machine.
 
 - :func:`write_scenarios`: the demo's three targets (QD-S4 alone in the relative
-  frame, Tessaly 41 AB from astrometry and a parallax, QD-S4 and QD-S9 jointly
+  frame, its data simulated with general relativity to first post-Newtonian
+  order by :mod:`orbitmass.demo.simulate_pn`, with a target file that models
+  the relativistic terms and one that does not; Tessaly 41 AB from astrometry and a parallax, QD-S4 and QD-S9 jointly
   on a drifting external frame); the files in ``examples/`` are exactly these.
 - :func:`write_comparison_datasets`: two teams' datasets of one black hole, for
   the comparison demo (:func:`orbitmass.demo.run.demo_comparison`).
@@ -27,12 +29,14 @@ import numpy as np
 
 from orbitmass.batch.plan import folder_name
 from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
+from orbitmass.demo.simulate_pn import simulate_pn
 from orbitmass.exceptions import OrbitmassError
 from orbitmass.outputs.style import write_atomic
 
 __all__ = [
     "SCENARIOS",
     "QUILLON_FRAME",
+    "QUILLON_RELATIVITY",
     "DATA_SEED",
     "write_scenarios",
     "DEMO_MASS_MSUN",
@@ -45,6 +49,8 @@ __all__ = [
 
 #: seed of the demo's data (write_scenarios)
 DATA_SEED = 20261201
+#: seed of QD-S4's periastron campaign (velocities through the 2018.35 periastron)
+QUILLON_PERIASTRON_SEED = 20261202
 
 #: the invented truths, for comparison with the fits
 SCENARIOS: dict[str, TrueOrbit] = {
@@ -60,11 +66,25 @@ SCENARIOS: dict[str, TrueOrbit] = {
 }
 
 
+#: the demo black-hole star's tables of the relativistic terms: the redshift sampled, the
+#: Schwarzschild precession fixed at its general-relativity value, the Roemer delay on
+QUILLON_RELATIVITY = """\
+    [relativity]
+    # first post-Newtonian terms (QD-S4 passes at ~3,600 Schwarzschild radii): the redshift is
+    # measured, the precession (~5 arcmin per orbit, ~0.03 mas here) is that of
+    # general relativity
+    redshift_factor = { dist = "uniform", low = -1, high = 3 }
+    precession_factor = { dist = "fixed", value = 1 }
+    roemer_delay = true
+    """
+
+
 def _write_quillon(folder: Path, rng: np.random.Generator) -> Path:
+    """QD-S4: data from the first post-Newtonian simulator; target.toml models it, target-kepler.toml not."""
     truth = SCENARIOS["quillon"]
     folder.mkdir(parents=True, exist_ok=True)
     t_pos = np.sort(rng.uniform(2008.0, 2026.5, 26))
-    sim = simulate(truth, t_pos)
+    sim = simulate_pn(truth, t_pos)
     err = 0.08
     write_positions_csv(folder / "qd-s4_positions.csv", t_pos,
                         sim["east_mas"] + rng.normal(0, err, t_pos.size),
@@ -73,14 +93,22 @@ def _write_quillon(folder: Path, rng: np.random.Generator) -> Path:
     t_rv = np.sort(rng.uniform(2009.0, 2026.5, 20))
     inst = np.where(np.arange(t_rv.size) % 3 == 0, "south-ifu", "north-spec")
     offset = np.where(inst == "south-ifu", 18.0, 0.0)
-    sim_v = simulate(truth, t_rv)
+    sim_v = simulate_pn(truth, t_rv)
     rv_err = np.where(inst == "south-ifu", 20.0, 12.0)
     rv = sim_v["rv_companion_kms"] + offset + rng.normal(0, rv_err)
-    write_velocities_csv(folder / "qd-s4_velocities.csv", t_rv, rv, rv_err, instrument=inst,
-                         comment="QD-S4 line-of-sight velocities, two spectrographs (invented data)")
+    # a campaign through the periastron (2018.35), where the redshift peaks (~75 km/s): its own
+    # generator, so the other scenarios' draws stay as they were
+    extra = np.random.default_rng(QUILLON_PERIASTRON_SEED)
+    t_pc = np.sort(extra.uniform(truth.periastron_time - 0.4, truth.periastron_time + 0.4, 10))
+    rv_pc = simulate_pn(truth, t_pc)["rv_companion_kms"] + extra.normal(0, 12.0, t_pc.size)
+    order = np.argsort(np.concatenate([t_rv, t_pc]), kind="stable")
+    write_velocities_csv(folder / "qd-s4_velocities.csv", np.concatenate([t_rv, t_pc])[order],
+                         np.concatenate([rv, rv_pc])[order], np.concatenate([rv_err, np.full(t_pc.size, 12.0)])[order],
+                         instrument=np.concatenate([inst, np.full(t_pc.size, "north-spec")])[order],
+                         comment="QD-S4 line-of-sight velocities, two spectrographs, with a periastron campaign "
+                                 "(invented data)")
     target = folder / "target.toml"
-    target.write_text(textwrap.dedent("""\
-        # Invented demo: the star QD-S4 around the dormant black hole of the Quillon Dwarf.
+    common = textwrap.dedent("""\
         [target]
         name = "Quillon Dwarf nucleus"
         reference_epoch = 2018.0
@@ -101,7 +129,13 @@ def _write_quillon(folder: Path, rng: np.random.Generator) -> Path:
         astrometry = "qd-s4_positions.csv"
         velocities = "qd-s4_velocities.csv"
         period = { dist = "log-uniform", low = "1 yr", high = "200 yr" }
-        """), encoding="utf-8")
+        """)
+    head = ("# Invented demo: the star QD-S4 around the dormant black hole of the Quillon Dwarf. Its data\n"
+            "# are simulated with general relativity to first post-Newtonian order.\n")
+    target.write_text(head + common + "\n" + textwrap.dedent(QUILLON_RELATIVITY), encoding="utf-8")
+    (folder / "target-kepler.toml").write_text(
+        head + "# This file fits them with Keplerian orbits (no [relativity] table), for comparison.\n" + common,
+        encoding="utf-8")
     return target
 
 

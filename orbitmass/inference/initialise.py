@@ -471,7 +471,8 @@ def hessian_covariance(post, x0: NDArray[np.float64]) -> NDArray[np.float64]:
 
 
 def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Generator, *,
-                       max_periods: int = 3000, max_evals: int = 2000, stop_flag=None) -> InitialSolution:
+                       max_periods: int = 3000, max_evals: int = 2000, stop_flag=None,
+                       start: NDArray[np.float64] | None = None) -> InitialSolution:
     """Find the posterior mode from scratch and scatter ``n_walkers`` around it.
 
     Parameters
@@ -488,6 +489,9 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
         Returns True when the search should stop (e.g. after SIGINT): the
         search and polish end within about a second, walkers are scattered
         about the best point so far and the solution says ``interrupted``.
+    start : ndarray, shape (n_dim,), optional
+        A starting point (e.g. the mode of a simpler model) to polish instead
+        of running the search.
 
     Returns
     -------
@@ -499,7 +503,7 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
     searches = []
     n_grid = 0
     interrupted = False
-    for comp in space.target.companions:
+    for comp in space.target.companions if start is None else ():
         cands, ng = _companion_search(post, comp, max_periods, stop_flag)
         n_grid += ng
         if cands is None:
@@ -521,7 +525,11 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
         if interrupted:
             break
     results = []
-    if not interrupted:
+    if start is not None and not _stopped(stop_flag):
+        post_c = post.with_space(space.with_windows(space.windows_from(start[None, :])))
+        best, val = polish(post_c, post_c.space.wrap_angles(start[None, :])[0], max_evals, stop_flag)
+        results.append((val, best, None))
+    elif start is None and not interrupted:
         # combinations: best candidate for every companion, alternatives for one at a time
         combos = [[0] * len(searches)]
         for ci, (_, cands) in enumerate(searches):

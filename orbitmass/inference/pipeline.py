@@ -31,6 +31,7 @@ from pathlib import Path
 import numpy as np
 
 from orbitmass.core.cosmology import redshift_distance_pc
+from orbitmass.core.relativity import model_terms
 from orbitmass.exceptions import InputError
 from orbitmass.inference.initialise import initialise_walkers
 from orbitmass.inference.linear import LinearPathError, applies, fit_linear
@@ -58,11 +59,63 @@ class ResumedInit:
         self.interrupted = False
 
 
-def build_space(target: Target, *, terms=(), term_priors=None) -> ParameterSpace:
-    """The parameter space of ``target`` (the distance fixed by a redshift when that is all there is)."""
+def build_space(target: Target, *, terms=None, term_priors=None) -> ParameterSpace:
+    """The parameter space of ``target`` (the distance fixed by a redshift when that is all there is).
+
+    The model terms come from the target's ``[relativity]`` and
+    ``[extended_mass]`` tables (:func:`orbitmass.core.relativity.model_terms`:
+    a factor fixed at 0 adds no term, so a Newtonian target evaluates plain
+    Keplerian orbits) unless ``terms`` is given; ``term_priors`` then holds the
+    priors of their parameters.
+    """
     z = target.distance.redshift
     d_fixed = redshift_distance_pc(z, target.distance.cosmology) if z is not None else None
+    if terms is None:
+        terms, built = model_terms(target.relativity, target.extended_mass)
+        term_priors = {**built, **(term_priors or {})}
     return ParameterSpace(target, redshift_distance_pc=d_fixed, terms=terms, term_priors=term_priors)
+
+
+def _term_start(prior) -> float:
+    """Starting value of a sampled term parameter: 0 (Newtonian) when the prior allows it, else just inside."""
+    low, high = prior.support
+    if low < 0.0 < high:
+        return 0.0
+    return float(low + 1e-3 * (high - low)) if math.isfinite(high) else float(low + 1e-3 * max(abs(low), 1.0))
+
+
+def _initialise(post: LogPosterior, n_walkers: int, rng, max_periods: int, stop_flag):
+    """The initial search (Keplerian), then the polish and walkers of the full model.
+
+    With model terms the search and a first polish run on the Keplerian orbits
+    (the term parameters left out); their mode, with every sampled term
+    parameter at its start (:func:`_term_start`), is polished under the full
+    model, which sets the walkers. Polishing the full model straight from the
+    coarse search stalls on precise data (the factors wander while the orbit is
+    still far off).
+    """
+    space = post.space
+    if not space.terms:
+        return initialise_walkers(post, n_walkers, rng, max_periods=max_periods, stop_flag=stop_flag)
+    kepler_space = build_space(space.target, terms=())
+    kepler = initialise_walkers(LogPosterior(kepler_space, blocks=(post.astrometry, post.velocities)), n_walkers,
+                                rng, max_periods=max_periods, stop_flag=stop_flag)
+    return _scattered_start(post, kepler_space, kepler, n_walkers, rng, stop_flag)
+
+
+def _scattered_start(post, kepler_space, kepler, n_walkers, rng, stop_flag):
+    """Polish the full model from the Keplerian solution ``kepler``; walkers about the result."""
+    space = post.space
+    values = dict(kepler_space.with_windows(kepler.windows).unpack(kepler.best[None, :]))  # physical values
+    for pname, prior in space.term_parameters.items():
+        if not prior.fixed:
+            values[pname] = _term_start(prior)
+    start = space.pack(values)[0]
+    init = initialise_walkers(post, n_walkers, rng, stop_flag=stop_flag, start=start)
+    init.n_grid = kepler.n_grid
+    init.other_modes = kepler.other_modes
+    init.interrupted = init.interrupted or kepler.interrupted
+    return init
 
 
 def resolve_seed(seed: int | None) -> int:
@@ -177,7 +230,7 @@ def _sampler_path(target, space, rng, options, seed, n_walkers, max_periods, ckp
         p0 = None
         init = ResumedInit(meta)
     else:
-        init = initialise_walkers(post, n_walkers, rng, max_periods=max_periods, stop_flag=stop_flag)
+        init = _initialise(post, n_walkers, rng, max_periods, stop_flag)
         p0 = init.walkers
         windows = init.windows
         meta = {"seed": int(seed), "data_sha256": target.data_sha256, "names": space.names,

@@ -50,6 +50,10 @@ def build_summary(target, space, samples, run, init, seed: int, wall: float) -> 
     for col in samples.columns:
         if "." not in col and col != "log_posterior":
             derived[col] = quantile_block(samples[col].to_numpy())
+    if "extended_mass_fraction" in samples.columns:  # a one-sided 95 % upper limit, a plain number
+        frac = samples["extended_mass_fraction"].to_numpy()
+        frac = frac[np.isfinite(frac)]
+        derived["extended_mass_fraction_upper95"] = float(np.quantile(frac, 0.95)) if frac.size else float("nan")
     companions = {}
     for comp in target.companions:
         prefix = comp.name + "."

@@ -68,6 +68,7 @@ from orbitmass._atomic import (
 from orbitmass._atomic import jsonable as _jsonable
 from orbitmass._version import __version__
 from orbitmass.core.cosmology import redshift_distance_pc
+from orbitmass.core.relativity import model_terms
 from orbitmass.exceptions import RunFolderError
 from orbitmass.io.checkpoint import CHECKPOINT_NAME
 from orbitmass.model.data import (
@@ -318,7 +319,9 @@ def load_run(run_dir: Path):
                              "after the fit or belongs to another run); refusing to load it")
     z = target.distance.redshift
     d_fixed = redshift_distance_pc(z, target.distance.cosmology) if z is not None else None
-    space = ParameterSpace(target, redshift_distance_pc=d_fixed, windows=windows)
+    terms, term_priors = model_terms(target.relativity, target.extended_mass)  # the fit's own terms
+    space = ParameterSpace(target, redshift_distance_pc=d_fixed, windows=windows, terms=terms,
+                           term_priors=term_priors)
     return Results(target=target, space=space, samples=samples, theta=theta, chain=chain, log_prob=log_prob,
                    burn=burn, thin=thin, summary=summary, info=info)
 

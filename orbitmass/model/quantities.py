@@ -101,6 +101,7 @@ UNITS: dict[str, Unit] = {
         _u("Julian yr", "Julian yr", "yr (Julian)", r"\mathrm{yr}"),
         _u("MJD", "MJD", "MJD", r"\mathrm{MJD}"),
         _u("deg", "deg", "deg", r"\mathrm{deg}"),
+        _u("arcmin", "arcmin", "arcmin", r"\mathrm{arcmin}"),
         _u("rad", "rad", "rad", r"\mathrm{rad}"),
         _u("R_S", "R_S", r"$R_\mathrm{S}$", r"R_\mathrm{S}", "<i>R</i><sub>S</sub>"),
         _u("", "", "", ""),
@@ -200,6 +201,13 @@ QUANTITIES: dict[str, Quantity] = {
            "zero-point offset of instrument <I>"),
         _q("jitter_kms", "jitter", "Velocity jitter", "km/s", r"\sigma_\mathrm{jit}", "σ_jit",
            "<i>σ</i><sub>jit</sub>", "extra velocity scatter of instrument <I>"),
+        _q("redshift_factor", "f_z", "Redshift factor", "", r"f_\mathrm{z}", "f_z", "<i>f</i><sub>z</sub>",
+           "scale of the gravitational redshift + transverse Doppler shift (0 Newton, 1 general relativity)"),
+        _q("precession_factor", "f_SP", "Precession factor", "", r"f_\mathrm{SP}", "f_SP",
+           "<i>f</i><sub>SP</sub>",
+           "scale of the Schwarzschild periastron precession (0 Newton, 1 general relativity)"),
+        _q("extended_mass_fraction", "f_ext", "Extended mass fraction", "", r"f_\mathrm{ext}", "f_ext",
+           "<i>f</i><sub>ext</sub>", "mass of the Plummer sphere / central mass"),
         _q("period_yr", "P", "Period", "yr", "P", "P", "<i>P</i>", "orbital period (rest frame)",
            _PERIOD),
         _q("period_obs_yr", "P_obs", "Period (observed)", "yr", r"P_\mathrm{obs}", "P_obs",
@@ -226,6 +234,14 @@ QUANTITIES: dict[str, Quantity] = {
            "periastron in Schwarzschild radii of the total mass"),
         _q("periastron_speed_kms", "v_p", "Periastron speed", "km/s", r"v_\mathrm{p}", "v_p",
            "<i>v</i><sub>p</sub>", "relative speed at periastron (vis-viva)"),
+        _q("precession_arcmin_per_orbit", "dw_GR", "Schwarzschild precession per orbit", "arcmin",
+           r"\Delta\omega_\mathrm{GR}", "Δω_GR", "Δ<i>ω</i><sub>GR</sub>",
+           "periastron advance per orbit predicted by general relativity, 6 pi GM / (c^2 a (1 - e^2))"),
+        _q("redshift_periastron_kms", "dv_GR", "Redshift at periastron", "km/s", r"\Delta v_\mathrm{GR,p}",
+           "Δv_GR,p", "Δ<i>v</i><sub>GR,p</sub>",
+           "gravitational redshift + transverse Doppler at periastron predicted by general relativity"),
+        _q("roemer_delay_range_days", "dt_R", "Roemer delay range", "d", r"\Delta t_\mathrm{R}", "Δt_R",
+           "Δ<i>t</i><sub>R</sub>", "full range of the light-travel time across the orbit"),
         _q("semi_amplitude_kms", "K", "Velocity semi-amplitude", "km/s", "K", "K", "<i>K</i>",
            "velocity semi-amplitude of the relative orbit"),
         _q("semi_amplitude_central_kms", "K_c", "Central-body semi-amplitude", "km/s", r"K_\mathrm{c}", "K_c",
@@ -253,7 +269,8 @@ COLUMN_PATTERNS: dict[str, str] = {
     k: (f"{k}.<I>" if k in ("offset_kms", "jitter_kms")
         else k if k in ("mass_msun", "distance_pc", "parallax_mas", "schwarzschild_radius_au",
                         "systemic_kms", "x0_mas", "y0_mas", "vx0_mas_per_yr", "vy0_mas_per_yr",
-                        "vz0_kms", "log_posterior")
+                        "vz0_kms", "log_posterior", "redshift_factor", "precession_factor",
+                        "extended_mass_fraction")
         else f"<C>.{k}")
     for k in QUANTITIES
 }

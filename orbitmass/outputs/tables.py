@@ -68,6 +68,9 @@ _GLOBAL_ORDER = (
     "vx0_mas_per_yr",
     "vy0_mas_per_yr",
     "vz0_kms",
+    "redshift_factor",
+    "precession_factor",
+    "extended_mass_fraction",
 )
 #: nuisance terms listed only when sampled (a fixed zero offset is a convention, not a result)
 _NUISANCE = {
@@ -92,6 +95,9 @@ _COMPANION_ORDER = (
     "semimajor_axis_au",
     "periastron_au",
     "periastron_rs",
+    "precession_arcmin_per_orbit",
+    "redshift_periastron_kms",
+    "roemer_delay_range_days",
     "mass_ratio",
     "central_mass_msun",
     "companion_mass_msun",

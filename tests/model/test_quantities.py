@@ -87,7 +87,7 @@ def test_stored_unit_in_the_name_matches_astropy(key):
     assert q.unit in UNITS
     suffix_unit = {"_msun": "M_sun", "_pc": "pc", "_mas": "mas", "_au": "au", "_kms": "km/s",
                    "_mas_per_yr": "mas/yr", "_yr": "yr", "_deg": "deg", "_jyr": "Julian yr",
-                   "_rs": "R_S"}
+                   "_rs": "R_S", "_arcmin_per_orbit": "arcmin", "_days": "d"}
     for suffix, unit in sorted(suffix_unit.items(), key=lambda kv: -len(kv[0])):
         if key.endswith(suffix):
             assert q.unit == unit, key
