@@ -29,6 +29,7 @@ __all__ = [
     "seed",
     "fmt_interval",
     "run_command",
+    "whole_int",
     "walkers_count",
     "step_cap",
     "fit_settings",
@@ -68,36 +69,40 @@ def whole_number(text: str) -> int:
 seed = whole_number
 
 
-def _bounded(name: str) -> Callable[[str], int]:
-    low, high = FIT_LIMITS[name]
-
-    def parse(text: str) -> int:
-        try:
-            value = int(text)
-        except ValueError:
-            raise argparse.ArgumentTypeError(f"expected a whole number from {low} to {high}, got {text!r}") from None
-        if not low <= value <= high:
-            raise argparse.ArgumentTypeError(f"expected a whole number from {low} to {high}, got {text!r}")
-        return value
-
-    parse.__name__ = name  # argparse names the type in its messages
-    return parse
+def whole_int(text: str) -> int:
+    """argparse type: any whole number (its range is checked by the command, in one line)."""
+    try:
+        return int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}") from None
 
 
-#: argparse type of ``--walkers``: the range of the target file's ``[fit] walkers``
-walkers_count = _bounded("walkers")
-#: argparse type of ``--max-steps``: the range of the target file's ``[fit] max_steps``
-step_cap = _bounded("max_steps")
+#: argparse type of ``--walkers`` (range checked by :func:`fit_settings`)
+walkers_count = whole_int
+#: argparse type of ``--max-steps`` (range checked by :func:`fit_settings`)
+step_cap = whole_int
+_FLAGS = {"n_walkers": ("--walkers", "walkers"), "max_steps": ("--max-steps", "max_steps")}
 
 
-def fit_settings(args: argparse.Namespace, file_options: dict, *, default_max_steps: int = 20000) -> dict:
+def fit_settings(args: argparse.Namespace, file_options: dict, *, default_max_steps: int | None = 20000) -> dict:
     """Keyword arguments of :class:`orbitmass.fit.Fit` from the target's ``[fit]`` table and the flags.
 
     ``file_options`` is ``Target.fit_options.as_fit_kwargs()``; a flag that was
     given (not None) overrides the table, the table overrides the defaults.
+
+    Raises
+    ------
+    InputError
+        A ``--walkers`` or ``--max-steps`` outside the range the ``[fit]`` table
+        accepts (:data:`orbitmass.io.target.FIT_LIMITS`), named by its flag.
     """
     given = {"seed": getattr(args, "seed", None), "n_walkers": getattr(args, "walkers", None),
              "max_steps": getattr(args, "max_steps", None)}
+    for key, (flag, limit) in _FLAGS.items():
+        low, high = FIT_LIMITS[limit]
+        value = given[key]
+        if value is not None and not low <= value <= high:
+            raise InputError(f"expected a whole number from {low} to {high}, got {value}", key=flag)
     out = dict(file_options)
     out.update({k: v for k, v in given.items() if v is not None})
     out.setdefault("max_steps", default_max_steps)

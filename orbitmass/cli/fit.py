@@ -9,6 +9,7 @@ summary, the goodness of fit and orbitmass's warnings once each.
 from __future__ import annotations
 
 import argparse
+import re
 import signal
 import sys
 from pathlib import Path
@@ -105,11 +106,14 @@ def print_quality(summary: dict) -> bool:
     return poor
 
 
-def _walkers_error(exc: InputError, from_flag: bool) -> InputError:
-    if exc.key != "walkers":
+def _walkers_error(exc: InputError, given: int | None, from_flag: bool, target_file: str) -> InputError:
+    """The library's "n_walkers = N is too small" worded for the flag or the [fit] key that set it."""
+    if exc.key != "walkers" or given is None:
         return exc
-    return InputError(exc.reason.replace("n_walkers = ", "").replace(" is too small", " walkers are too few"),
-                      key="--walkers" if from_flag else "fit.walkers", file="" if from_flag else exc.file)
+    reason = re.sub(r"^n_walkers = \d+ is too small", f"{given} walkers are too few", exc.reason)
+    if from_flag:
+        return InputError(reason, key="--walkers")
+    return InputError(reason, key="fit.walkers", file=target_file)
 
 
 def run(args: argparse.Namespace) -> int:
@@ -139,7 +143,8 @@ def run(args: argparse.Namespace) -> int:
                 try:
                     fit.fit(target, stop_flag=lambda: stop["flag"])
                 except InputError as exc:
-                    raise _walkers_error(exc, args.walkers is not None) from None
+                    raise _walkers_error(exc, settings["n_walkers"], args.walkers is not None,
+                                         str(args.target)) from None
         finally:
             signal.signal(signal.SIGINT, old_int)
             signal.signal(signal.SIGTERM, old_term)
