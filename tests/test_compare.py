@@ -292,8 +292,9 @@ def test_write_produces_every_file_and_refuses_non_empty_folder(rng, tmp_path):
     cmp = _three_way(rng)
     out = cmp.write(tmp_path / "cmp")
     names = sorted(p.name for p in out.iterdir())
-    assert names == ["comparison.json", "comparison.md", "comparison.pdf", "comparison.png", "enclosed_mass.pdf",
-                     "enclosed_mass.png"]
+    # the marker of orbitmass._atomic says orbitmass wrote the folder (so --overwrite may replace it)
+    assert names == [".orbitmass-run", "comparison.json", "comparison.md", "comparison.pdf", "comparison.png",
+                     "enclosed_mass.pdf", "enclosed_mass.png"]
     assert (out / "comparison.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert (out / "enclosed_mass.pdf").read_bytes()[:5] == b"%PDF-"
     md = (out / "comparison.md").read_text(encoding="utf-8")
@@ -336,8 +337,8 @@ def test_plain_samples_over_decades(rng, tmp_path):
     assert cmp.figure().axes[1].get_xscale() == "log"  # masses three decades apart
     out = cmp.write(tmp_path / "c")
     # no companion radii in plain samples: no enclosed-mass figure, and none linked
-    assert sorted(p.name for p in out.iterdir()) == ["comparison.json", "comparison.md", "comparison.pdf",
-                                                     "comparison.png"]
+    assert sorted(p.name for p in out.iterdir()) == [".orbitmass-run", "comparison.json", "comparison.md",
+                                                     "comparison.pdf", "comparison.png"]
     assert "enclosed_mass" not in (out / "comparison.md").read_text(encoding="utf-8")
     assert cmp.pairs[0].verdict == "tension" and cmp.pairs[0].tension_is_lower_bound
 

@@ -6,8 +6,8 @@ import argparse
 import sys
 from pathlib import Path
 
-from orbitmass.cli.common import EXIT_NOT_CONVERGED, EXIT_OK, fmt_interval, positive_int, seed
-from orbitmass.exceptions import InputError
+from orbitmass.cli.common import EXIT_NOT_CONVERGED, EXIT_OK, fmt_interval, option_hint, positive_int, seed
+from orbitmass.exceptions import InputError, RunFolderError
 
 __all__ = ["add_parser", "run"]
 
@@ -73,7 +73,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         metavar="N",
         help="step cap of the refit (default 20000)",
     )
-    p.add_argument("--overwrite", action="store_true", help="replace DIR if it exists and is not empty")
+    p.add_argument("--overwrite", action="store_true",
+                   help="replace DIR if it holds an earlier comparison (and nothing else)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     return p
 
@@ -91,10 +92,13 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"{len(args.label)} --label for {len(args.run_dirs)} run folders; give one per RUN_DIR, "
                          "in order", key="--label")
     refs = [parse_reference(text, key="--reference") for text in args.reference]
-    cmp = compare_folders(args.run_dirs, args.out, references=refs, labels=args.label, refit=args.refit,
-                          same_companion=args.same_companion, priors_from=args.priors_from, seed=args.seed,
-                          max_steps=args.max_steps, overwrite=args.overwrite,
-                          progress=False if args.no_progress else None)
+    try:
+        cmp = compare_folders(args.run_dirs, args.out, references=refs, labels=args.label, refit=args.refit,
+                              same_companion=args.same_companion, priors_from=args.priors_from, seed=args.seed,
+                              max_steps=args.max_steps, overwrite=args.overwrite,
+                              progress=False if args.no_progress else None)
+    except RunFolderError as exc:
+        raise option_hint(exc) from None
     for p in cmp.pairs:
         print(f"{p.a} vs {p.b}: {p.statement}")
     code = EXIT_OK

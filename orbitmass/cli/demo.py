@@ -5,7 +5,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from orbitmass.cli.common import EXIT_OK, fmt_interval, seed
+from orbitmass.cli.common import EXIT_OK, fmt_interval, option_hint, seed
+from orbitmass.exceptions import RunFolderError
 
 __all__ = ["add_parser", "run"]
 
@@ -19,7 +20,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                                           "dwarf galaxy, and a visual binary), fit both and write their reports.")
     p.add_argument("--out", default="orbitmass-demo", metavar="DIR", help="folder to write (default ./orbitmass-demo)")
     p.add_argument("--seed", type=seed, default=1, metavar="N", help="random seed of the fits (default 1)")
-    p.add_argument("--overwrite", action="store_true", help="replace DIR if it exists and is not empty")
+    p.add_argument("--overwrite", action="store_true",
+                   help="write over DIR if it holds an earlier demo (and nothing else)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     return p
 
@@ -30,8 +32,11 @@ def run(args: argparse.Namespace) -> int:
     # astropy.units; about 1.5 s), which `orbitmass --help` and the other commands do not need
     from orbitmass.demo.run import run_demo
 
-    results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
-                       progress=False if args.no_progress else None)
+    try:
+        results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
+                           progress=False if args.no_progress else None)
+    except RunFolderError as exc:
+        raise option_hint(exc) from None
     print(f"demo data and runs written to {Path(args.out).resolve()}")
     for res in results:
         s = res.summary
