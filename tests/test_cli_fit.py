@@ -233,6 +233,7 @@ def test_a_walkers_count_from_the_table_that_is_too_small_names_the_key(target, 
 
 
 # ------------------------------------------------------------------ console summary, --params, --units
+@pytest.mark.slow  # a fit and the figures of `report` (~18 s on a shared machine)
 def test_console_summary_params_and_units(target, tmp_path, capsys, monkeypatch):
     _quick_save(monkeypatch)  # the figures are drawn below by `report`
     out = tmp_path / "run"
