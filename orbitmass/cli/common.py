@@ -17,6 +17,7 @@ from collections.abc import Callable, Iterator, Sequence
 
 from orbitmass.exceptions import InputError, OrbitmassError, OrbitmassWarning, PoorFitWarning, RunFolderError
 from orbitmass.io.target import FIT_LIMITS
+from orbitmass.model.quantities import display_unit, quantity
 
 __all__ = [
     "EXIT_OK",
@@ -129,8 +130,6 @@ def parse_units(text: str | None, companions: Sequence[str] = ()) -> dict[str, s
     InputError
         A pair without ``=``, an unknown quantity or a unit it cannot be shown in.
     """
-    from orbitmass.model.quantities import display_unit, quantity
-
     if text is None:
         return None
     out: dict[str, str] = {}

@@ -17,6 +17,10 @@ user text (target, companion and instrument names) is escaped for each format.
 The number formatting and the table functions once defined here live in
 :mod:`orbitmass.outputs.formatting` and :mod:`orbitmass.outputs.tables`; they
 stay importable from this module.
+
+Longer than 600 lines because the report's block types, every section (goodness of fit,
+diagnostics, method) and both renderers share one document model, which must stay in one
+place so that report.md and report.html can never say different things.
 """
 
 from __future__ import annotations

@@ -80,8 +80,8 @@ def residuals_figure(results: Results, *, fig: Any = None) -> Any:
     matplotlib.figure.Figure
     """
     from matplotlib.figure import Figure  # start-up time: loaded only when needed
-    from matplotlib.lines import Line2D
-    from matplotlib.ticker import FixedLocator, FuncFormatter, NullLocator
+    from matplotlib.lines import Line2D  # start-up time: loaded only when needed
+    from matplotlib.ticker import FixedLocator, FuncFormatter, NullLocator  # start-up time: as above
 
     table = _table(results)
     labels = _labels(results)
