@@ -164,8 +164,8 @@ def run(args: argparse.Namespace) -> int:
     n_fail = int(counts.get(STATUS_FAILED, 0))
     n_kept = int(catalogue["skipped"].sum())
     poor = catalogue[catalogue["fit_status"] == FIT_POOR]
-    print(f"{len(catalogue)} targets: {n_conv} converged, {n_not} not converged, {n_fail} failed, "
-          f"{len(poor)} poor fits ({n_kept} complete runs kept from before)")
+    print(f"{len(catalogue)} targets: {n_conv} converged, {n_not} not converged, {n_fail} failed "
+          f"({n_kept} complete runs kept from before)" + (f"; {len(poor)} poor fits" if len(poor) else ""))
     for row in catalogue[catalogue["status"] == STATUS_FAILED].itertuples():
         print(f"failed: {row.name}: {row.error}", file=sys.stderr)
     for row in poor.itertuples():
