@@ -161,7 +161,7 @@ def run(args: argparse.Namespace) -> int:
                                      "--params ... --units ...") from None
     print_summary(fit.summary, units)
     poor = print_quality(fit.summary)
-    shown = print_warnings(caught)
+    print_warnings(caught)
     if d.get("multimodal") and not any(issubclass(w.category, DegeneracyWarning) for w in caught):
         print("warning: walkers sit in separated period modes; see the report", file=sys.stderr)
     print(f"report: {out / 'report.md'}")
@@ -173,8 +173,7 @@ def run(args: argparse.Namespace) -> int:
               f"continue with: orbitmass fit {args.target} --out {out} --resume", file=sys.stderr)
         return EXIT_INTERRUPTED
     if not d["converged"]:
-        hint = "" if shown else "the fit did not converge; "
-        print(f"warning: {hint}results are provisional (see report.md); continue with --resume and a larger "
-              "--max-steps", file=sys.stderr)
+        print("warning: the fit did not converge (see report.md); results are provisional; "
+              "continue with --resume and a larger --max-steps", file=sys.stderr)
         return EXIT_NOT_CONVERGED
     return EXIT_OK
