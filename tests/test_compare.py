@@ -641,3 +641,36 @@ def test_joint_refit_measures_the_second_teams_offset(tmp_path):
     assert off["q2.5"] <= 30.0 <= off["q97.5"]
     m = joint.summary["derived"]["mass_msun"]
     assert m["q2.5"] <= TRUTH_A.mass_msun <= m["q97.5"]
+
+
+def test_overwrite_replaces_only_a_comparison_folder_orbitmass_wrote(rng, tmp_path, capsys):
+    # the safe-writing rules of orbitmass._atomic (issue "hard edges"): files checked by SHA-256
+    # (hashlib, FIPS 180-4) before and after a refused write
+    import hashlib
+
+    from orbitmass.compare.report import check_out_dir
+
+    def digest(folder):
+        return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(folder.iterdir()) if p.is_file()}
+
+    cmp = _three_way(rng)
+    out = cmp.write(tmp_path / "cmp")
+    (out / "my-notes.txt").write_text("the user's notes", encoding="utf-8")
+    before = digest(out)
+    with pytest.raises(RunFolderError, match="my-notes.txt"):
+        cmp.write(out, overwrite=True)
+    assert digest(out) == before
+    # a plain folder of the user is never replaced, not even with overwrite
+    mine = tmp_path / "mine"
+    mine.mkdir()
+    (mine / "paper.tex").write_text("x", encoding="utf-8")
+    with pytest.raises(RunFolderError, match="paper.tex"):
+        check_out_dir(mine, True)
+    # without overwrite the library says so neutrally, and the command line names its flag
+    (out / "my-notes.txt").unlink()
+    with pytest.raises(RunFolderError) as err:
+        check_out_dir(out, False)
+    assert err.value.remedy == "overwrite" and "--overwrite" not in str(err.value)
+    from orbitmass.cli.common import option_hint
+
+    assert "pass --overwrite" in str(option_hint(err.value))
