@@ -19,6 +19,7 @@ import sys
 import tempfile
 import threading
 import time
+import warnings
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -31,7 +32,7 @@ from orbitmass.batch.catalogue import (
     failed_row,
 )
 from orbitmass.batch.plan import RUN_MATCHES, RUN_OTHER_TARGET, BatchJob, read_summary, run_state
-from orbitmass.exceptions import OrbitmassError, RunFolderError
+from orbitmass.exceptions import OrbitmassError, OrbitmassWarning, RunFolderError
 from orbitmass.fit import Fit
 from orbitmass.io.rundir import save_run
 from orbitmass.io.target import read_target
@@ -78,7 +79,14 @@ def fit_target(job: BatchJob) -> dict[str, Any]:
     note = None
     try:
         target = read_target(job.target_file)
-        fit = Fit(progress=False, **job_fit_options(job, target.fit_options.as_fit_kwargs())).fit(target)
+        with warnings.catch_warnings(record=True) as caught:  # the catalogue and the run folder say it all
+            warnings.simplefilter("always", OrbitmassWarning)
+            fit = Fit(progress=False, **job_fit_options(job, target.fit_options.as_fit_kwargs())).fit(target)
+        for w in caught:
+            if issubclass(w.category, OrbitmassWarning):
+                log.info("%s: %s", job.name, w.message)
+            else:
+                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno, source=w.source)
         kept = kept_row(job)
         if kept is not None:  # finished meanwhile by a duplicate of this task: keep that one
             return kept
