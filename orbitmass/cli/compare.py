@@ -6,8 +6,9 @@ import argparse
 import sys
 from pathlib import Path
 
-from orbitmass.cli.common import EXIT_NOT_CONVERGED, EXIT_OK, fmt_interval, option_hint, positive_int, seed
+from orbitmass.cli.common import EXIT_NOT_CONVERGED, EXIT_OK, option_hint, positive_int, seed
 from orbitmass.exceptions import InputError, RunFolderError
+from orbitmass.outputs.formatting import summary_text
 
 __all__ = ["add_parser", "run"]
 
@@ -103,7 +104,7 @@ def run(args: argparse.Namespace) -> int:
         print(f"{p.a} vs {p.b}: {p.statement}")
     code = EXIT_OK
     if cmp.combined is not None:
-        print(f"joint refit: total mass {fmt_interval(cmp.combined.quantiles())} Msun")
+        print(f"joint refit: total mass {summary_text('mass_msun', cmp.combined.quantiles())}")
         if cmp.combined.converged is False:
             print("warning: the joint refit did not converge; results are provisional", file=sys.stderr)
             code = EXIT_NOT_CONVERGED

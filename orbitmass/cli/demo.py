@@ -5,8 +5,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from orbitmass.cli.common import EXIT_OK, fmt_interval, option_hint, seed
+from orbitmass.cli.common import EXIT_OK, option_hint, seed
 from orbitmass.exceptions import RunFolderError
+from orbitmass.outputs.formatting import summary_text
 
 __all__ = ["add_parser", "run"]
 
@@ -43,9 +44,11 @@ def run(args: argparse.Namespace) -> int:
         d = s["diagnostics"]
         print(f"\n{s['target']}")
         truth = res.truth
-        print(f"  total mass: {fmt_interval(s['derived']['mass_msun'])} Msun   (invented truth {truth.mass_msun:.4g})")
-        print(f"  distance:   {fmt_interval(s['derived']['distance_pc'])} pc   "
-              f"(invented truth {truth.distance_pc:.4g})")
+        comps = list(s.get("companions") or {})
+        print(f"  total mass: {summary_text('mass_msun', s['derived']['mass_msun'], companions=comps)}   "
+              f"(invented truth {truth.mass_msun:.4g} M☉)")
+        print(f"  distance:   {summary_text('distance_pc', s['derived']['distance_pc'], companions=comps)}   "
+              f"(invented truth {truth.distance_pc:.4g} pc)")
         print(f"  converged: {'yes' if d['converged'] else 'NO'}; ESS of the mass {d['ess_mass']:.0f}; "
               f"{d['wall_seconds']:.1f} s")
         print(f"  report: {res.run_dir / 'report.md'}  (also report.html)")
