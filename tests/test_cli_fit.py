@@ -299,3 +299,26 @@ def test_broken_inputs_warn_in_cli_report_and_summary(case, tmp_path, rng, capsy
     html = (out / "report.html").read_text(encoding="utf-8")
     assert html.index("POOR FIT") < html.index("Job: fit of the target file")
     assert (out / "residuals.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (ISO/IEC 15948)
+
+
+def test_figures_failing_after_the_run_is_saved_still_show_the_numbers(target, tmp_path, capsys, monkeypatch):
+    def broken(*a, **k):
+        raise ValueError("simulated plotting failure")
+
+    monkeypatch.setattr("orbitmass.outputs.figures.corner.corner_figure", broken)
+    out = tmp_path / "run"
+    argv = ["fit", str(target), "--no-progress", "--no-fast-path", "--seed", "3", "--max-steps", "60",
+            "--walkers", "24"]
+    assert main([*argv, "--out", str(out)]) == 2
+    std = capsys.readouterr()
+    assert "total mass:" in std.out and "fit quality:" in std.out + std.err  # the numbers are not lost
+    last = std.err.strip().splitlines()[-1]
+    assert last.startswith("orbitmass: error:") and "the run is saved" in last and "simulated plotting" in last
+    assert _summary(out)["provenance"]["seed"] == 3  # published
+    # an unknown --params column: the same, named
+    monkeypatch.undo()
+    out2 = tmp_path / "run2"
+    assert main([*argv, "--out", str(out2), "--params", "mass_msun,no_such_column"]) == 2
+    last = capsys.readouterr().err.strip().splitlines()[-1]
+    assert "no_such_column" in last and "the run is saved" in last and "orbitmass report" in last
+    assert (out2 / "summary.json").is_file()

@@ -15,6 +15,7 @@ import sys
 from pathlib import Path
 
 from orbitmass.cli.common import (
+    EXIT_INPUT,
     EXIT_INTERRUPTED,
     EXIT_NOT_CONVERGED,
     EXIT_OK,
@@ -151,23 +152,33 @@ def run(args: argparse.Namespace) -> int:
         d = fit.summary["diagnostics"]
         keep = (CHECKPOINT_NAME,) if not d["converged"] else ()
         custom = params is not None or units is not None
-        save_run(fit.results, out, keep=keep, lock=lock, products=not custom)
-        if custom:  # the run is published; the products with the chosen columns and units follow
-            try:
-                write_products(fit.results, out, params=params, units=units)
-            except (InputError, ValueError) as exc:
-                raise RunFolderError(f"{out}: the run is saved (summary.json, posterior.h5), but its figures and "
-                                     f"reports were not written: {exc}; write them with: orbitmass report {out} "
-                                     "--params ... --units ...") from None
+        products_error = None
+        try:
+            save_run(fit.results, out, keep=keep, lock=lock, products=not custom)
+            if custom:  # the run is published; the products with the chosen columns and units follow
+                try:
+                    write_products(fit.results, out, params=params, units=units)
+                except (InputError, ValueError) as exc:
+                    raise RunFolderError(f"{out}: the run is saved (summary.json, posterior.h5), but its figures "
+                                         f"and reports were not written: {exc}; write them with: orbitmass report "
+                                         f"{out} --params ... --units ...") from None
+        except RunFolderError as exc:
+            if not lock.published:
+                raise
+            products_error = exc  # the run is saved: its numbers and quality are still shown below
     print_summary(fit.summary, units)
     poor = print_quality(fit.summary)
     print_warnings(caught)
     if d.get("multimodal") and not any(issubclass(w.category, DegeneracyWarning) for w in caught):
         print("warning: walkers sit in separated period modes; see the report", file=sys.stderr)
-    print(f"report: {out / 'report.md'}")
+    if products_error is None:
+        print(f"report: {out / 'report.md'}")
     if poor:
         print(f"warning: the model does not describe the data; see 'Goodness of fit' in {out / 'report.md'} and "
               f"{out / 'residuals.png'}", file=sys.stderr)
+    if products_error is not None:
+        print(f"orbitmass: error: {products_error}", file=sys.stderr)
+        return EXIT_INPUT
     if d.get("interrupted"):
         print(f"interrupted after {d['n_steps']} steps: samples so far are saved, marked not converged; "
               f"continue with: orbitmass fit {args.target} --out {out} --resume", file=sys.stderr)
