@@ -548,3 +548,13 @@ def test_target_name_ignores_a_byte_order_mark(tmp_path):
     bom.write_bytes(b"\xef\xbb\xbf" + plain.read_bytes())  # UTF-8 BOM (Unicode 15, Sect. 23.8)
     assert target_name(plain) == target_name(bom) == "Kesh 4 AB"
     assert target_seed(0, target_name(plain)) == target_seed(0, target_name(bom))
+
+
+@pytest.mark.parametrize("flag, value", [("--walkers", "1000001"), ("--max-steps", "1")])
+def test_batch_option_ranges_are_one_line_before_any_work(tmp_path, capsys, flag, value):
+    from orbitmass.cli import main
+
+    assert main(["batch", str(tmp_path / "t.toml"), "--out", str(tmp_path / "o"), flag, value]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("orbitmass: error:") and f"'{flag}'" in err[0]
+    assert not (tmp_path / "o").exists()
