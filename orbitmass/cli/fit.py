@@ -37,7 +37,7 @@ from orbitmass.io.rundir import prepare_run_folder, save_run, target_paths, writ
 from orbitmass.io.target import read_target
 from orbitmass.outputs.formatting import summary_text
 
-__all__ = ["add_parser", "run", "print_summary", "add_display_options"]
+__all__ = ["add_parser", "run", "print_summary", "print_quality", "add_display_options"]
 
 NAME = "fit"
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 
 from orbitmass.cli.common import EXIT_OK, parse_params, parse_units
-from orbitmass.cli.fit import add_display_options
+from orbitmass.cli.fit import add_display_options, print_quality
 from orbitmass.fit import load
 from orbitmass.io.rundir import check_run_folder_writable, write_products
 
@@ -32,4 +32,5 @@ def run(args: argparse.Namespace) -> int:
     units = parse_units(getattr(args, "units", None), fit.results.companion_names)
     path = write_products(fit.results, args.run_dir, params=params, units=units)
     print(f"report: {path}")
+    print_quality(fit.summary)  # a poor fit is said again on the console (stderr), an ok one in one line
     return EXIT_OK
