@@ -168,7 +168,7 @@ def captured_warnings() -> Iterator[list[warnings.WarningMessage]]:
     """Record every warning of the block; orbitmass's own are kept for :func:`print_warnings`,
     any other is shown again, as Python would, when the block ends."""
     with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
+        warnings.simplefilter("always", OrbitmassWarning)  # others keep the filters in force
         yield caught
     for w in caught:
         if not issubclass(w.category, OrbitmassWarning):
