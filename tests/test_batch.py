@@ -464,3 +464,97 @@ def test_ctrl_c_on_a_batch_exits_130_with_one_line(sample, tmp_path):
     assert [line for line in lines if "dask dashboard" not in line] == ours  # nothing else on stderr
     cat = pd.read_csv(out / "catalogue.csv")
     assert (cat["reason"] == "interrupted").any()
+
+
+# ------------------------------------------------------------------ [fit] table, goodness of fit, notes (no dask)
+def _with_fit_table(path: Path, table: str) -> Path:
+    path.write_text(path.read_text(encoding="utf-8") + "\n[fit]\n" + table, encoding="utf-8")
+    return path
+
+
+def test_fit_table_applies_where_the_batch_gives_nothing(tmp_path):
+    from orbitmass.io.target import read_target
+
+    (target,) = write_example_sample(tmp_path / "data", 1, seed=5)
+    _with_fit_table(target, "walkers = 24\nseed = 7\nmax_steps = 60\n")
+    name = read_target(target).name
+    # batch seed and step cap not given: the target's [fit] table decides
+    (job,) = plan_batch([target], tmp_path / "a", seed=None, fit_options={"linear": False}, products=False)
+    row = fit_target(job)
+    s = _summary(job.run_dir)
+    assert row["seed"] == 7 == s["provenance"]["seed"]
+    assert s["diagnostics"]["n_walkers"] == 24 and s["diagnostics"]["n_steps"] == 60
+    # given, the batch options override it (the seed derived from the batch seed and the name)
+    (job,) = plan_batch([target], tmp_path / "b", seed=3, fit_options={"linear": False, "max_steps": 50},
+                        products=False)
+    row = fit_target(job)
+    s = _summary(job.run_dir)
+    assert row["seed"] == target_seed(3, name) == s["provenance"]["seed"]
+    assert s["diagnostics"]["n_steps"] == 50 and s["diagnostics"]["n_walkers"] == 24
+
+
+def test_cli_batch_defaults_are_none_so_the_table_can_apply():
+    parser = argparse.ArgumentParser()
+    add_batch_parser(parser.add_subparsers())
+    args = parser.parse_args(["batch", "t.toml", "--out", "o"])
+    assert args.seed is None and args.walkers is None and args.max_steps is None
+
+
+def test_catalogue_has_fit_status_beside_convergence():
+    from orbitmass.batch import catalogue_frame, catalogue_row
+    from orbitmass.batch.plan import BatchJob
+
+    job = BatchJob(name="Vell 9 AB", target_file="/x/t.toml", run_dir="/x/runs/v", seed=1)
+    summ = {"diagnostics": {"converged": True}, "fit_quality": {"status": "poor"}, "provenance": {"seed": 1}}
+    poor = catalogue_row(job, summ)
+    ok = catalogue_row(job, {**summ, "fit_quality": {"status": "ok"}, "diagnostics": {"converged": False}})
+    assert poor["status"] == "converged, poor fit" and poor["fit_status"] == "poor"
+    assert ok["status"] == STATUS_NOT_CONVERGED and ok["fit_status"] == "ok"
+    frame = catalogue_frame([poor, ok])
+    cols = list(frame.columns)
+    assert cols.index("fit_status") == cols.index("converged") + 1
+    assert list(frame["fit_status"]) == ["poor", "ok"]
+
+
+def test_a_poor_fit_is_marked_in_the_catalogue(tmp_path, rng):
+    from .test_quality import write_target
+
+    path, _ = write_target(tmp_path / "in", rng, err_scale=1e-3)  # errors 1000x too small (issue 11)
+    (job,) = plan_batch([path], tmp_path / "out", seed=1, fit_options={"max_steps": 200}, products=False)
+    row = fit_target(job)
+    assert row["fit_status"] == "poor" and row["status"].endswith(", poor fit")
+    assert _summary(job.run_dir)["fit_quality"]["status"] == "poor"
+
+
+def test_run_saved_but_figures_failed_is_done_with_a_note(tmp_path, monkeypatch):
+    (target,) = write_example_sample(tmp_path / "data", 1, seed=5)
+
+    def broken(*a, **k):
+        raise ValueError("simulated plotting failure")
+
+    monkeypatch.setattr("orbitmass.outputs.figures.corner.corner_figure", broken)
+    (job,) = plan_batch([target], tmp_path / "out", seed=1, fit_options={"max_steps": 60, "linear": False})
+    row = fit_target(job)
+    assert row["status"] != STATUS_FAILED and row["error"] is None
+    assert "figures and reports not written" in row["note"] and "simulated plotting failure" in row["note"]
+    assert is_complete_run(Path(job.run_dir))
+
+
+def test_target_name_ignores_a_byte_order_mark(tmp_path):
+    from orbitmass.batch.plan import target_name
+
+    plain, bom = tmp_path / "a.toml", tmp_path / "b.toml"
+    plain.write_text('[target]\nname = "Kesh 4 AB"\n', encoding="utf-8")
+    bom.write_bytes(b"\xef\xbb\xbf" + plain.read_bytes())  # UTF-8 BOM (Unicode 15, Sect. 23.8)
+    assert target_name(plain) == target_name(bom) == "Kesh 4 AB"
+    assert target_seed(0, target_name(plain)) == target_seed(0, target_name(bom))
+
+
+@pytest.mark.parametrize("flag, value", [("--walkers", "1000001"), ("--max-steps", "1")])
+def test_batch_option_ranges_are_one_line_before_any_work(tmp_path, capsys, flag, value):
+    from orbitmass.cli import main
+
+    assert main(["batch", str(tmp_path / "t.toml"), "--out", str(tmp_path / "o"), flag, value]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("orbitmass: error:") and f"'{flag}'" in err[0]
+    assert not (tmp_path / "o").exists()

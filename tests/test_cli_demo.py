@@ -83,3 +83,22 @@ def test_every_command_module_has_the_two_functions_and_python_m_works():
     bad = subprocess.run([sys.executable, "-m", "orbitmass", "batch", "x.toml", "--out", "o", "--target-timeout",
                           "-1"], capture_output=True, text=True, timeout=120)
     assert bad.returncode == 2 and "--target-timeout" in bad.stderr and "Traceback" not in bad.stderr
+
+
+def test_demo_folder_checks_come_from_the_shared_safe_writing(tmp_path, capsys):
+    # orbitmass._atomic.check_output_folder: an earlier demo folder (data/, runs/) may be written
+    # over with --overwrite, never one holding a file of the user; nothing is touched when refused
+    from orbitmass.demo.run import run_demo
+    from orbitmass.exceptions import RunFolderError
+
+    out = tmp_path / "demo"
+    (out / "data").mkdir(parents=True)
+    (out / "runs").mkdir()
+    (out / "thesis.tex").write_text("\\chapter{Orbits}", encoding="utf-8")
+    with pytest.raises(RunFolderError, match="thesis.tex"):
+        run_demo(out, overwrite=True)
+    assert sorted(p.name for p in out.iterdir()) == ["data", "runs", "thesis.tex"]
+    (out / "thesis.tex").unlink()
+    assert main(["demo", "--out", str(out)]) == 2  # without the flag: the CLI names it
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "pass --overwrite" in err[0]

@@ -292,8 +292,9 @@ def test_write_produces_every_file_and_refuses_non_empty_folder(rng, tmp_path):
     cmp = _three_way(rng)
     out = cmp.write(tmp_path / "cmp")
     names = sorted(p.name for p in out.iterdir())
-    assert names == ["comparison.json", "comparison.md", "comparison.pdf", "comparison.png", "enclosed_mass.pdf",
-                     "enclosed_mass.png"]
+    # the marker of orbitmass._atomic says orbitmass wrote the folder (so --overwrite may replace it)
+    assert names == [".orbitmass-run", "comparison.json", "comparison.md", "comparison.pdf", "comparison.png",
+                     "enclosed_mass.pdf", "enclosed_mass.png"]
     assert (out / "comparison.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert (out / "enclosed_mass.pdf").read_bytes()[:5] == b"%PDF-"
     md = (out / "comparison.md").read_text(encoding="utf-8")
@@ -336,8 +337,8 @@ def test_plain_samples_over_decades(rng, tmp_path):
     assert cmp.figure().axes[1].get_xscale() == "log"  # masses three decades apart
     out = cmp.write(tmp_path / "c")
     # no companion radii in plain samples: no enclosed-mass figure, and none linked
-    assert sorted(p.name for p in out.iterdir()) == ["comparison.json", "comparison.md", "comparison.pdf",
-                                                     "comparison.png"]
+    assert sorted(p.name for p in out.iterdir()) == [".orbitmass-run", "comparison.json", "comparison.md",
+                                                     "comparison.pdf", "comparison.png"]
     assert "enclosed_mass" not in (out / "comparison.md").read_text(encoding="utf-8")
     assert cmp.pairs[0].verdict == "tension" and cmp.pairs[0].tension_is_lower_bound
 
@@ -640,3 +641,36 @@ def test_joint_refit_measures_the_second_teams_offset(tmp_path):
     assert off["q2.5"] <= 30.0 <= off["q97.5"]
     m = joint.summary["derived"]["mass_msun"]
     assert m["q2.5"] <= TRUTH_A.mass_msun <= m["q97.5"]
+
+
+def test_overwrite_replaces_only_a_comparison_folder_orbitmass_wrote(rng, tmp_path, capsys):
+    # the safe-writing rules of orbitmass._atomic (issue "hard edges"): files checked by SHA-256
+    # (hashlib, FIPS 180-4) before and after a refused write
+    import hashlib
+
+    from orbitmass.compare.report import check_out_dir
+
+    def digest(folder):
+        return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(folder.iterdir()) if p.is_file()}
+
+    cmp = _three_way(rng)
+    out = cmp.write(tmp_path / "cmp")
+    (out / "my-notes.txt").write_text("the user's notes", encoding="utf-8")
+    before = digest(out)
+    with pytest.raises(RunFolderError, match="my-notes.txt"):
+        cmp.write(out, overwrite=True)
+    assert digest(out) == before
+    # a plain folder of the user is never replaced, not even with overwrite
+    mine = tmp_path / "mine"
+    mine.mkdir()
+    (mine / "paper.tex").write_text("x", encoding="utf-8")
+    with pytest.raises(RunFolderError, match="paper.tex"):
+        check_out_dir(mine, True)
+    # without overwrite the library says so neutrally, and the command line names its flag
+    (out / "my-notes.txt").unlink()
+    with pytest.raises(RunFolderError) as err:
+        check_out_dir(out, False)
+    assert err.value.remedy == "overwrite" and "--overwrite" not in str(err.value)
+    from orbitmass.cli.common import option_hint
+
+    assert "pass --overwrite" in str(option_hint(err.value))

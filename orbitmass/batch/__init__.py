@@ -30,7 +30,18 @@ Failures
     its task is rescheduled by dask (up to the scheduler's
     ``distributed.scheduler.allowed-failures``, 3 by default); after that the
     target is recorded as ``failed`` (``KilledWorker``). One failure never
-    stops the other targets.
+    stops the other targets. A run that was saved but whose figures or
+    reports failed counts as done: its row has the results and a ``note``
+    saying what failed (``orbitmass report RUN_DIR`` draws them later).
+Options
+    Each target file's ``[fit]`` table (walkers, seed, max_steps) applies
+    where ``fit_options`` (the command's flags) do not set the option; the
+    batch seed, when given, overrides a ``[fit] seed``.
+Goodness of fit
+    The catalogue's ``fit_status`` column is the run's
+    ``fit_quality.status`` (ok / poor), and ``status`` then reads e.g.
+    ``"converged, poor fit"``: sampling convergence and goodness of fit are
+    separate statements.
 Time limit
     With ``timeout`` (``--target-timeout``) each fit runs in a child process
     of its worker and is killed when the limit passes: the target is recorded

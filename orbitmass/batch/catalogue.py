@@ -9,22 +9,26 @@ when pyarrow is installed).
 
 from __future__ import annotations
 
-import contextlib
 import logging
 import math
 import os
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
+from orbitmass._atomic import atomic_path
 from orbitmass.batch.plan import BatchJob
 
 __all__ = [
     "STATUS_CONVERGED",
     "STATUS_NOT_CONVERGED",
     "STATUS_FAILED",
+    "POOR_FIT_SUFFIX",
+    "FIT_OK",
+    "FIT_POOR",
+    "base_status",
     "REASON_INPUT",
     "REASON_TIMEOUT",
     "REASON_CRASH",
@@ -43,6 +47,11 @@ log = logging.getLogger(__name__)
 STATUS_CONVERGED = "converged"
 STATUS_NOT_CONVERGED = "not converged"
 STATUS_FAILED = "failed"
+#: appended to the status of a run whose goodness of fit is poor, e.g. "converged, poor fit"
+POOR_FIT_SUFFIX = ", poor fit"
+#: the ``fit_status`` column: summary.json ``fit_quality.status``
+FIT_OK = "ok"
+FIT_POOR = "poor"
 
 #: the ``reason`` of a failed row
 REASON_INPUT = "bad input"
@@ -79,6 +88,7 @@ def _base_row(job: BatchJob, status: str, error: str | None, seed: int | None, s
         "status": status,
         "error": error,
         "reason": reason,
+        "note": None,
         "skipped": skipped,
         "seed": seed,
     }
@@ -105,13 +115,19 @@ def catalogue_row(job: BatchJob, summary: Mapping[str, Any], *, skipped: bool = 
     diag = summary.get("diagnostics", {}) or {}
     converged = bool(diag.get("converged", False))
     seed = (summary.get("provenance", {}) or {}).get("seed", job.seed)
+    fq = summary.get("fit_quality")
+    fit_status = fq.get("status") if isinstance(fq, Mapping) else None
+    status = STATUS_CONVERGED if converged else STATUS_NOT_CONVERGED
+    if fit_status == FIT_POOR:
+        status += POOR_FIT_SUFFIX
     row = _base_row(
         job,
-        STATUS_CONVERGED if converged else STATUS_NOT_CONVERGED,
+        status,
         None,
         int(seed) if seed is not None else None,
         skipped,
     )
+    row["fit_status"] = fit_status
     derived = summary.get("derived", {}) or {}
     row.update(_block(derived.get("mass_msun"), "mass_msun", _QUANTILES))
     row.update(_block(derived.get("distance_pc"), "distance_pc", _QUANTILES))
@@ -123,6 +139,11 @@ def catalogue_row(job: BatchJob, summary: Mapping[str, Any], *, skipped: bool = 
         for element in ELEMENTS:
             row.update(_block(elements.get(element), f"c{k}_{element}", _QUANTILES[:3]))
     return row
+
+
+def base_status(status: str) -> str:
+    """The sampling part of a catalogue status: ``"converged, poor fit"`` -> ``"converged"``."""
+    return status[: -len(POOR_FIT_SUFFIX)] if status.endswith(POOR_FIT_SUFFIX) else status
 
 
 def failed_row(job: BatchJob, error: BaseException | str, reason: str = REASON_CRASH) -> dict[str, Any]:
@@ -139,11 +160,15 @@ def catalogue_frame(rows: Sequence[Mapping[str, Any]]) -> pd.DataFrame:
     """The catalogue table from rows, with a fixed column order and types.
 
     Columns: ``name``, ``target_file``, ``run_dir``, ``status`` (converged /
-    not converged / failed), ``error``, ``reason`` (of a failure: bad input,
-    timeout, crash, interrupted, cancelled, run folder taken), ``skipped`` (complete run kept from an
-    earlier batch), ``seed``; ``mass_msun_*`` and ``distance_pc_*``
-    (``median``, ``q16``, ``q84``, ``q2.5``, ``q97.5``; Msun and pc);
-    ``converged``, ``ess_min``, ``ess_mass``, ``tau_max``, ``rhat_max``,
+    not converged / failed; ``", poor fit"`` appended when the goodness of fit
+    is poor, e.g. ``"converged, poor fit"``), ``error``, ``reason`` (of a
+    failure: bad input, timeout, crash, interrupted, cancelled, run folder
+    taken), ``note`` (e.g. a run saved whose figures failed), ``skipped``
+    (complete run kept from an earlier batch), ``seed``; ``mass_msun_*`` and
+    ``distance_pc_*`` (``median``, ``q16``, ``q84``, ``q2.5``, ``q97.5``; Msun
+    and pc); ``converged``, ``fit_status`` (summary.json
+    ``fit_quality.status``: ok / poor; empty for a failed target or a run
+    without it), ``ess_min``, ``ess_mass``, ``tau_max``, ``rhat_max``,
     ``n_steps``, ``wall_seconds``, ``finished_utc`` (UTC, ISO 8601); then per
     companion k (at least one set) ``c<k>_name`` and ``c<k>_<element>_median``
     / ``_q16`` / ``_q84`` for ``period_yr`` (rest frame), ``eccentricity``,
@@ -154,14 +179,14 @@ def catalogue_frame(rows: Sequence[Mapping[str, Any]]) -> pd.DataFrame:
     for row in rows:
         while f"c{n_comp + 1}_name" in row:
             n_comp += 1
-    columns = ["name", "target_file", "run_dir", "status", "error", "reason", "skipped", "seed"]
+    columns = ["name", "target_file", "run_dir", "status", "error", "reason", "note", "skipped", "seed"]
     columns += [f"{q}_{s}" for q in ("mass_msun", "distance_pc") for s in _QUANTILES]
-    columns += ["converged", *_DIAGNOSTICS, "finished_utc"]
+    columns += ["converged", "fit_status", *_DIAGNOSTICS, "finished_utc"]
     for k in range(1, n_comp + 1):
         columns.append(f"c{k}_name")
         columns += [f"c{k}_{e}_{s}" for e in ELEMENTS for s in _QUANTILES[:3]]
     frame = pd.DataFrame([dict(row) for row in rows], columns=columns)
-    text = {"name", "target_file", "run_dir", "status", "error", "reason", "finished_utc"} | {
+    text = {"name", "target_file", "run_dir", "status", "error", "reason", "note", "fit_status", "finished_utc"} | {
         f"c{k}_name" for k in range(1, n_comp + 1)
     }
     for col in columns:
@@ -178,18 +203,6 @@ def catalogue_frame(rows: Sequence[Mapping[str, Any]]) -> pd.DataFrame:
     return frame
 
 
-def _replace_atomic(write: Callable[[str], None], path: Path) -> None:
-    # a fresh name beside the target (not mkstemp, which would make the file private)
-    tmp = str(path.with_name(f".{path.name}.{os.getpid()}-{os.urandom(4).hex()}.tmp"))
-    try:
-        write(tmp)
-        os.replace(tmp, path)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(tmp)
-        raise
-
-
 def write_catalogue(catalogue: pd.DataFrame, out_dir: str | os.PathLike) -> list[Path]:
     """Write ``catalogue.csv`` (and ``catalogue.parquet`` if pyarrow imports) atomically.
 
@@ -204,7 +217,8 @@ def write_catalogue(catalogue: pd.DataFrame, out_dir: str | os.PathLike) -> list
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
     written = [out / "catalogue.csv"]
-    _replace_atomic(lambda tmp: catalogue.to_csv(tmp, index=False), written[0])
+    with atomic_path(written[0]) as tmp:  # orbitmass._atomic: temporary file beside it, then os.replace
+        catalogue.to_csv(tmp, index=False)
     try:
         import pyarrow  # noqa: F401  (optional dependency: Parquet only when it is installed)
     except ImportError:
@@ -215,5 +229,6 @@ def write_catalogue(catalogue: pd.DataFrame, out_dir: str | os.PathLike) -> list
             )
         return written
     written.append(out / "catalogue.parquet")
-    _replace_atomic(lambda tmp: catalogue.to_parquet(tmp, index=False, engine="pyarrow"), written[1])
+    with atomic_path(written[1]) as tmp:
+        catalogue.to_parquet(tmp, index=False, engine="pyarrow")
     return written

@@ -38,7 +38,7 @@ def fit_batch(
     client: Any = None,
     workers: int | None = None,
     scheduler: str | None = None,
-    seed: int = 0,
+    seed: int | None = 0,
     fit_options: Mapping[str, Any] | None = None,
     products: bool = True,
     retries: int = 1,
@@ -64,11 +64,13 @@ def fit_batch(
         Worker processes of a local cluster (default: usable CPU cores).
     scheduler : str, optional
         Address of a running dask scheduler, e.g. ``"tcp://10.0.0.5:8786"``.
-    seed : int
-        Batch seed; target seeds derive from it (:func:`target_seed`).
+    seed : int or None
+        Batch seed; target seeds derive from it (:func:`target_seed`). None:
+        not given, so each target's ``[fit] seed`` is used where it has one
+        (else the seed derived from 0).
     fit_options : mapping, optional
         ``n_walkers``, ``max_steps``, ``min_steps``, ``max_periods``, ``linear`` of
-        :class:`orbitmass.fit.Fit`.
+        :class:`orbitmass.fit.Fit`; they override each target's ``[fit]`` table.
     products : bool
         Write figures, tables and reports into each run folder.
     retries : int

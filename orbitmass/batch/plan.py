@@ -20,7 +20,6 @@ import logging
 import math
 import os
 import re
-import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -30,7 +29,7 @@ import numpy as np
 
 from orbitmass.exceptions import InputError, OrbitmassError
 from orbitmass.io.rundir import is_complete_run
-from orbitmass.io.target import read_target
+from orbitmass.io.target import read_target, read_target_name
 
 __all__ = [
     "BatchJob",
@@ -76,6 +75,10 @@ class BatchJob:
         Absolute path of the run folder to write.
     seed : int
         Seed of this target's fit.
+    seed_given : bool
+        True when the batch seed was given: ``seed`` then overrides a
+        ``[fit] seed`` of the target file; False when it was not, and the
+        target's own ``[fit] seed`` (if any) is used instead.
     fit_options : dict
         Keyword arguments of :class:`orbitmass.fit.Fit` besides ``seed``.
     products : bool
@@ -93,6 +96,7 @@ class BatchJob:
     run_dir: str
     seed: int
     fit_options: dict = field(default_factory=dict)
+    seed_given: bool = True
     products: bool = True
     data_sha256: str | None = None
     timeout: float | None = None
@@ -173,14 +177,15 @@ def expand_targets(patterns: Sequence[str | os.PathLike]) -> list[Path]:
 
 
 def target_name(path: Path) -> str:
-    """``target.name`` of a target file, or its stem when it has none or cannot be read."""
+    """``target.name`` of a target file (:func:`orbitmass.io.target.read_target_name`, so a
+    byte-order mark does not change it), or its stem when it has none or cannot be read."""
+    if not Path(path).is_file():  # only regular files (a FIFO would block); the fit records why
+        return Path(path).stem
     try:
-        # only regular files (a FIFO would block); a byte-order mark does not change the name
-        text = path.read_bytes().decode("utf-8-sig") if path.is_file() else ""
-        name = tomllib.loads(text).get("target", {}).get("name")
-    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError, AttributeError):
-        name = None
-    return name.strip() if isinstance(name, str) and name.strip() else path.stem
+        name = read_target_name(path)
+    except OrbitmassError:
+        return Path(path).stem
+    return name if name else Path(path).stem
 
 
 def folder_name(name: str) -> str:
@@ -278,7 +283,7 @@ def plan_batch(
     targets: Sequence[str | os.PathLike],
     out_dir: str | os.PathLike,
     *,
-    seed: int = 0,
+    seed: int | None = 0,
     fit_options: Mapping[str, Any] | None = None,
     products: bool = True,
     timeout: float | None = None,
@@ -298,11 +303,14 @@ def plan_batch(
         Target files or glob patterns (see :func:`expand_targets`).
     out_dir : str or path
         Batch folder.
-    seed : int
-        Batch seed (see :func:`target_seed`).
+    seed : int or None
+        Batch seed (see :func:`target_seed`); None: not given, so a target's
+        ``[fit] seed`` is used where it has one, and otherwise the seed
+        derived from batch seed 0.
     fit_options : mapping, optional
         Options of :class:`orbitmass.fit.Fit`: ``n_walkers``, ``max_steps``,
-        ``min_steps``, ``max_periods``, ``linear``.
+        ``min_steps``, ``max_periods``, ``linear``. They override the
+        ``[fit]`` table of each target file (which applies where they are not given).
     products : bool
         Write figures, tables and reports into each run folder.
     timeout : float, optional
@@ -355,7 +363,8 @@ def plan_batch(
             name=name,
             target_file=str(path),
             run_dir=str(runs / folder),
-            seed=target_seed(seed, name),
+            seed=target_seed(0 if seed is None else seed, name),
+            seed_given=seed is not None,
             fit_options=options,
             products=products,
             data_sha256=target_checksum(path),

@@ -19,6 +19,7 @@ import sys
 import tempfile
 import threading
 import time
+import warnings
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -31,11 +32,12 @@ from orbitmass.batch.catalogue import (
     failed_row,
 )
 from orbitmass.batch.plan import RUN_MATCHES, RUN_OTHER_TARGET, BatchJob, read_summary, run_state
-from orbitmass.exceptions import OrbitmassError
+from orbitmass.exceptions import OrbitmassError, OrbitmassWarning, RunFolderError
 from orbitmass.fit import Fit
 from orbitmass.io.rundir import save_run
+from orbitmass.io.target import read_target
 
-__all__ = ["fit_target", "run_task", "remove_staging_leftovers", "kept_row"]
+__all__ = ["fit_target", "job_fit_options", "run_task", "remove_staging_leftovers", "kept_row"]
 
 log = logging.getLogger(__name__)
 
@@ -74,16 +76,45 @@ def fit_target(job: BatchJob) -> dict[str, Any]:
     if run_state(job) == RUN_OTHER_TARGET:
         return failed_row(job, f"{job.run_dir} holds the run of another target file; it is not overwritten",
                           REASON_FOLDER)
+    note = None
     try:
-        fit = Fit(seed=job.seed, progress=False, **job.fit_options).fit(job.target_file)
+        target = read_target(job.target_file)
+        with warnings.catch_warnings(record=True) as caught:  # the catalogue and the run folder say it all
+            warnings.simplefilter("always", OrbitmassWarning)
+            fit = Fit(progress=False, **job_fit_options(job, target.fit_options.as_fit_kwargs())).fit(target)
+        for w in caught:
+            if issubclass(w.category, OrbitmassWarning):
+                log.info("%s: %s", job.name, w.message)
+            else:
+                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno, source=w.source)
         kept = kept_row(job)
         if kept is not None:  # finished meanwhile by a duplicate of this task: keep that one
             return kept
-        save_run(fit.results, Path(job.run_dir), overwrite=True, products=job.products)
+        try:
+            save_run(fit.results, Path(job.run_dir), overwrite=True, products=job.products)
+        except RunFolderError as exc:
+            if kept_row(job) is None:  # not published: a real failure
+                raise
+            # the run is saved; only its figures or reports failed: done, with a note
+            log.warning("%s: %s", job.name, exc)
+            note = f"figures and reports not written: {exc}"
     except OrbitmassError as exc:
         log.warning("%s: %s", job.name, exc)
         return failed_row(job, exc, REASON_INPUT)
-    return catalogue_row(job, fit.summary)
+    row = catalogue_row(job, fit.summary)
+    row["note"] = note
+    return row
+
+
+def job_fit_options(job: BatchJob, file_options: dict[str, Any]) -> dict[str, Any]:
+    """Keyword arguments of :class:`orbitmass.fit.Fit` for ``job``: the target's ``[fit]`` table
+    (``file_options``, from ``FitOptions.as_fit_kwargs()``), overridden by the batch's options;
+    the seed is the job's, unless the batch seed was not given and the table names one."""
+    options = dict(file_options)
+    if job.seed_given or "seed" not in options:
+        options["seed"] = job.seed
+    options.update(job.fit_options)
+    return options
 
 
 def remove_staging_leftovers(job: BatchJob) -> None:

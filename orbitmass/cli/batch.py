@@ -10,13 +10,17 @@ from pathlib import Path
 from typing import Any
 
 from orbitmass.batch import INSTALL_HINT, STATUS_CONVERGED, STATUS_FAILED, STATUS_NOT_CONVERGED, fit_batch
+from orbitmass.batch.catalogue import FIT_POOR, base_status
 from orbitmass.cli.common import (
     EXIT_INTERRUPTED,
     EXIT_NOT_CONVERGED,
     EXIT_OK,
+    fit_settings,
     positive_float,
     positive_int,
     seed,
+    step_cap,
+    walkers_count,
     whole_number,
 )
 
@@ -45,7 +49,9 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         "cluster of N worker processes, or a running cluster at --scheduler. Each target gets "
         "the run folder DIR/runs/<name>, as 'orbitmass fit' writes it; DIR/catalogue.csv (and "
         ".parquet with pyarrow) lists every target's mass, distance, elements, diagnostics "
-        "and status. Rerunning the same command skips finished targets. Needs "
+        "and status (with ', poor fit' when the goodness of fit is poor; column fit_status). Rerunning the "
+        "same command skips finished targets. Each target file's [fit] table (walkers, seed, max_steps) "
+        "applies where the flags below are not given; a flag given overrides it. Needs "
         f"{INSTALL_HINT}.",
     )
     p.add_argument("targets", nargs="+", metavar="TARGET_OR_GLOB", help="target files or glob patterns")
@@ -67,23 +73,24 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument(
         "--seed",
         type=seed,
-        default=0,
+        default=None,
         metavar="N",
-        help="batch seed; each target's seed derives from it and the target name (default 0)",
+        help="batch seed; each target's seed derives from it and the target name (given, it overrides "
+        "[fit] seed; default: a target's [fit] seed, else the seed derived from 0)",
     )
     p.add_argument(
         "--walkers",
-        type=positive_int,
+        type=walkers_count,
         default=None,
         metavar="N",
-        help="ensemble size (default max(64, 4 x parameters))",
+        help="ensemble size, 2 to 100000 (default: [fit] walkers, else max(64, 4 x parameters))",
     )
     p.add_argument(
         "--max-steps",
-        type=positive_int,
-        default=20000,
+        type=step_cap,
+        default=None,
         metavar="N",
-        help="step cap of each fit (default 20000)",
+        help="step cap of each fit, 10 to 100000000 (default: [fit] max_steps, else 20000)",
     )
     p.add_argument(
         "--retries",
@@ -128,11 +135,10 @@ def run(args: argparse.Namespace) -> int:
     # dask logs every connection at INFO level, in this process and in local workers (which take
     # the environment along): only its warnings unless --verbose
     os.environ.setdefault("DASK_LOGGING__DISTRIBUTED", "info" if getattr(args, "verbose", False) else "warning")
-    options: dict[str, Any] = {"max_steps": args.max_steps}
+    given = fit_settings(args, {}, default_max_steps=None)  # range checks; only the flags given are passed
+    options: dict[str, Any] = {k: v for k, v in given.items() if k != "seed" and v is not None}
     if args.no_fast_path:
         options["linear"] = False
-    if args.walkers is not None:
-        options["n_walkers"] = args.walkers
     catalogue_path = Path(args.out) / "catalogue.csv"
     try:
         catalogue = fit_batch(
@@ -152,14 +158,20 @@ def run(args: argparse.Namespace) -> int:
         print(f"orbitmass: interrupted; {catalogue_path} marks unfinished targets; rerun the same command "
               "to resume", file=sys.stderr)
         return EXIT_INTERRUPTED
-    counts = catalogue["status"].value_counts()
+    counts = catalogue["status"].map(lambda s: base_status(str(s))).value_counts()
     n_conv = int(counts.get(STATUS_CONVERGED, 0))
     n_not = int(counts.get(STATUS_NOT_CONVERGED, 0))
     n_fail = int(counts.get(STATUS_FAILED, 0))
     n_kept = int(catalogue["skipped"].sum())
+    poor = catalogue[catalogue["fit_status"] == FIT_POOR]
     print(f"{len(catalogue)} targets: {n_conv} converged, {n_not} not converged, {n_fail} failed "
-          f"({n_kept} complete runs kept from before)")
+          f"({n_kept} complete runs kept from before)" + (f"; {len(poor)} poor fits" if len(poor) else ""))
     for row in catalogue[catalogue["status"] == STATUS_FAILED].itertuples():
         print(f"failed: {row.name}: {row.error}", file=sys.stderr)
+    for row in poor.itertuples():
+        print(f"warning: poor fit: {row.name}: the model does not describe its data; see "
+              f"{Path(row.run_dir) / 'report.md'}", file=sys.stderr)
+    for row in catalogue[catalogue["note"].notna()].itertuples():
+        print(f"note: {row.name}: {row.note}", file=sys.stderr)
     print(f"catalogue: {catalogue_path}")
     return EXIT_OK if n_conv == len(catalogue) else EXIT_NOT_CONVERGED

@@ -6,8 +6,9 @@ import argparse
 import sys
 from pathlib import Path
 
-from orbitmass.cli.common import EXIT_NOT_CONVERGED, EXIT_OK, fmt_interval, positive_int, seed
-from orbitmass.exceptions import InputError
+from orbitmass.cli.common import EXIT_NOT_CONVERGED, EXIT_OK, option_hint, positive_int, seed
+from orbitmass.exceptions import InputError, RunFolderError
+from orbitmass.outputs.formatting import summary_text
 
 __all__ = ["add_parser", "run"]
 
@@ -73,7 +74,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         metavar="N",
         help="step cap of the refit (default 20000)",
     )
-    p.add_argument("--overwrite", action="store_true", help="replace DIR if it exists and is not empty")
+    p.add_argument("--overwrite", action="store_true",
+                   help="replace DIR if it holds an earlier comparison (and nothing else)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     return p
 
@@ -91,15 +93,18 @@ def run(args: argparse.Namespace) -> int:
         raise InputError(f"{len(args.label)} --label for {len(args.run_dirs)} run folders; give one per RUN_DIR, "
                          "in order", key="--label")
     refs = [parse_reference(text, key="--reference") for text in args.reference]
-    cmp = compare_folders(args.run_dirs, args.out, references=refs, labels=args.label, refit=args.refit,
-                          same_companion=args.same_companion, priors_from=args.priors_from, seed=args.seed,
-                          max_steps=args.max_steps, overwrite=args.overwrite,
-                          progress=False if args.no_progress else None)
+    try:
+        cmp = compare_folders(args.run_dirs, args.out, references=refs, labels=args.label, refit=args.refit,
+                              same_companion=args.same_companion, priors_from=args.priors_from, seed=args.seed,
+                              max_steps=args.max_steps, overwrite=args.overwrite,
+                              progress=False if args.no_progress else None)
+    except RunFolderError as exc:
+        raise option_hint(exc) from None
     for p in cmp.pairs:
         print(f"{p.a} vs {p.b}: {p.statement}")
     code = EXIT_OK
     if cmp.combined is not None:
-        print(f"joint refit: total mass {fmt_interval(cmp.combined.quantiles())} Msun")
+        print(f"joint refit: total mass {summary_text('mass_msun', cmp.combined.quantiles())}")
         if cmp.combined.converged is False:
             print("warning: the joint refit did not converge; results are provisional", file=sys.stderr)
             code = EXIT_NOT_CONVERGED

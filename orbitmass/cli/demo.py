@@ -5,7 +5,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from orbitmass.cli.common import EXIT_OK, fmt_interval, seed
+from orbitmass.cli.common import EXIT_OK, option_hint, seed
+from orbitmass.exceptions import RunFolderError
+from orbitmass.outputs.formatting import summary_text
 
 __all__ = ["add_parser", "run"]
 
@@ -19,7 +21,8 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
                                           "dwarf galaxy, and a visual binary), fit both and write their reports.")
     p.add_argument("--out", default="orbitmass-demo", metavar="DIR", help="folder to write (default ./orbitmass-demo)")
     p.add_argument("--seed", type=seed, default=1, metavar="N", help="random seed of the fits (default 1)")
-    p.add_argument("--overwrite", action="store_true", help="replace DIR if it exists and is not empty")
+    p.add_argument("--overwrite", action="store_true",
+                   help="write over DIR if it holds an earlier demo (and nothing else)")
     p.add_argument("--no-progress", action="store_true", help="no progress bar")
     return p
 
@@ -30,17 +33,22 @@ def run(args: argparse.Namespace) -> int:
     # astropy.units; about 1.5 s), which `orbitmass --help` and the other commands do not need
     from orbitmass.demo.run import run_demo
 
-    results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
-                       progress=False if args.no_progress else None)
+    try:
+        results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
+                           progress=False if args.no_progress else None)
+    except RunFolderError as exc:
+        raise option_hint(exc) from None
     print(f"demo data and runs written to {Path(args.out).resolve()}")
     for res in results:
         s = res.summary
         d = s["diagnostics"]
         print(f"\n{s['target']}")
         truth = res.truth
-        print(f"  total mass: {fmt_interval(s['derived']['mass_msun'])} Msun   (invented truth {truth.mass_msun:.4g})")
-        print(f"  distance:   {fmt_interval(s['derived']['distance_pc'])} pc   "
-              f"(invented truth {truth.distance_pc:.4g})")
+        comps = list(s.get("companions") or {})
+        print(f"  total mass: {summary_text('mass_msun', s['derived']['mass_msun'], companions=comps)}   "
+              f"(invented truth {truth.mass_msun:.4g} M☉)")
+        print(f"  distance:   {summary_text('distance_pc', s['derived']['distance_pc'], companions=comps)}   "
+              f"(invented truth {truth.distance_pc:.4g} pc)")
         print(f"  converged: {'yes' if d['converged'] else 'NO'}; ESS of the mass {d['ess_mass']:.0f}; "
               f"{d['wall_seconds']:.1f} s")
         print(f"  report: {res.run_dir / 'report.md'}  (also report.html)")
@@ -48,9 +56,9 @@ def run(args: argparse.Namespace) -> int:
         if rel:  # the black-hole star: relativistic data fitted with and without the terms
             for key, name in (("redshift_factor", "redshift factor"), ("precession_factor", "precession factor")):
                 if key in rel["factors"]:
-                    print(f"  {name}: {fmt_interval(rel['factors'][key])}   (general relativity 1, Newton 0)")
+                    print(f"  {name}: {summary_text(key, rel['factors'][key])}   (general relativity 1, Newton 0)")
             m = rel["mass_msun"]
-            print(f"  Keplerian fit of the same data: total mass {fmt_interval(m['keplerian'])} Msun, "
+            print(f"  Keplerian fit of the same data: total mass {summary_text('mass_msun', m['keplerian'])}, "
                   f"shifted by {m['shift']:+.3g} Msun ({m['shift_sigma']:+.1f} sigma); distance shifted by "
                   f"{rel['distance_pc']['shift']:+.3g} pc ({rel['distance_pc']['shift_sigma']:+.1f} sigma)")
             print(f"  velocity residuals of both models around periastron: {rel['figure'][0]}")

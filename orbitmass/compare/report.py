@@ -1,8 +1,9 @@
 """Files of a comparison: ``comparison.md`` and the folder holding everything.
 
 :func:`write_comparison` assembles ``comparison.json``, ``comparison.md``, the
-figures and optionally the joint run folder beside the destination and renames
-the whole folder into place.
+figures and optionally the joint run folder in a staging folder beside the
+destination and swaps the whole folder into place; the folder checks, the
+staging and the marker are those of :mod:`orbitmass._atomic`, like a run folder's.
 """
 
 from __future__ import annotations
@@ -10,23 +11,27 @@ from __future__ import annotations
 import json
 import logging
 import os
-import shutil
-import tempfile
 from collections.abc import Mapping
 from pathlib import Path
 
+from orbitmass._atomic import check_output_folder, folder_entries, staged_folder, write_atomic, write_marker
 from orbitmass.compare.figures import comparison_figure, enclosed_mass_figure
 from orbitmass.compare.tension import METHOD
-from orbitmass.exceptions import RunFolderError
 from orbitmass.io.rundir import save_run
 from orbitmass.outputs.reports import markdown_escape as esc
 from orbitmass.outputs.reports import measurement
-from orbitmass.outputs.style import save_figure, write_atomic
+from orbitmass.outputs.style import save_figure
 from orbitmass.results import quantile_block
 
-__all__ = ["markdown", "write_comparison", "check_out_dir"]
+__all__ = ["markdown", "write_comparison", "check_out_dir", "COMPARISON_KIND", "COMPARISON_FILES"]
 
 log = logging.getLogger(__name__)
+
+#: marker kind of a comparison folder
+COMPARISON_KIND = "comparison"
+#: top-level files a comparison folder may hold (its joint run folder is ``combined/``)
+COMPARISON_FILES = ("comparison.json", "comparison.md", *(f"{n}.{e}" for n in ("comparison", "enclosed_mass")
+                                                             for e in ("png", "pdf")))
 
 
 def markdown(cmp, *, figures: Mapping[str, str] | None = None, run_folder: str | None = None) -> str:
@@ -160,10 +165,8 @@ def write_comparison(
     """
     out_dir = Path(out_dir)
     check_out_dir(out_dir, overwrite)
-    parent = out_dir.resolve().parent
-    parent.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(dir=parent, prefix=f".{out_dir.name}.staging-"))
-    try:
+    out_dir.absolute().parent.mkdir(parents=True, exist_ok=True)
+    with staged_folder(out_dir) as staging:
         run_folder = None
         if save_combined and cmp.combined is not None and cmp.combined.results is not None:
             save_run(cmp.combined.results, staging / "combined")
@@ -180,10 +183,7 @@ def write_comparison(
             json.dumps(cmp.to_dict(run_folder=run_folder), indent=2, allow_nan=False) + "\n",
         )
         write_atomic(staging / "comparison.md", markdown(cmp, figures=figures, run_folder=run_folder))
-        _move_into_place(staging, out_dir)
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
+        write_marker(staging, COMPARISON_KIND, files=[e for e in folder_entries(staging) if not e.endswith("/")])
     log.info("comparison written to %s", out_dir)
     return out_dir
 
@@ -198,23 +198,13 @@ def _short(x: float) -> str:
 
 
 
-def check_out_dir(out_dir: Path, overwrite: bool) -> None:
-    """Refuse a file, or a non-empty folder without ``overwrite`` (nothing is touched)."""
-    if out_dir.exists() and not out_dir.is_dir():
-        raise RunFolderError(f"{out_dir}: exists and is not a folder; choose another --out")
-    if out_dir.is_dir() and any(out_dir.iterdir()) and not overwrite:
-        raise RunFolderError(
-            f"{out_dir}: folder exists and is not empty; choose another --out or pass "
-            "--overwrite (overwrite=True) to replace it"
-        )
+def check_out_dir(out_dir: Path, overwrite: bool) -> Path:
+    """Check the comparison folder before any work (:func:`orbitmass._atomic.check_output_folder`).
 
-
-def _move_into_place(staging: Path, out_dir: Path) -> None:
-    if not out_dir.exists():
-        os.replace(staging, out_dir)
-        return
-    aside = Path(tempfile.mkdtemp(dir=staging.parent, prefix=f".{out_dir.name}.old-"))
-    os.rmdir(aside)
-    os.replace(out_dir, aside)
-    os.replace(staging, out_dir)
-    shutil.rmtree(aside, ignore_errors=True)
+    Refused: a file or a path under one, an unwritable place, the working or
+    home folder; a non-empty folder without ``overwrite`` (the error's
+    ``remedy`` is ``"overwrite"`` when passing it would help), and with it any
+    folder holding files orbitmass did not write. Nothing is touched.
+    """
+    return check_output_folder(out_dir, overwrite=overwrite, kind=COMPARISON_KIND, known_names=COMPARISON_FILES,
+                               known_dirs=("combined",), core_names=("comparison.json",))

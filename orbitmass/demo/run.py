@@ -14,17 +14,19 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
+from orbitmass._atomic import check_output_folder
 from orbitmass.compare import MassPosterior, combined_refit, compare
-from orbitmass.compare.report import check_out_dir
 from orbitmass.demo.beyond_kepler import relativity_comparison, residual_figure
 from orbitmass.demo.scenarios import DEMO_REFERENCE, SCENARIOS, write_comparison_datasets, write_scenarios
 from orbitmass.demo.simulate import TrueOrbit
-from orbitmass.exceptions import RunFolderError
 from orbitmass.fit import Fit
 
 __all__ = ["SCENARIOS", "write_scenarios", "run_demo", "DemoResult", "demo_comparison"]
 
 log = logging.getLogger(__name__)
+
+#: folders of a demo folder (and of its comparison demo): recognised as the demo's own on --overwrite
+DEMO_DIRS = ("data", "runs", "comparison-demo", "comparison")
 
 
 @dataclass
@@ -58,8 +60,7 @@ def run_demo(out_dir: Path, *, seed: int = 1, overwrite: bool = False, progress:
     ``out_dir/comparison-demo``.
     """
     out_dir = Path(out_dir)
-    if out_dir.exists() and any(out_dir.iterdir()) and not overwrite:
-        raise RunFolderError(f"{out_dir}: folder exists and is not empty; choose another --out or pass --overwrite")
+    check_output_folder(out_dir, overwrite=overwrite, kind="demo", known_dirs=DEMO_DIRS, core_names=DEMO_DIRS)
     targets = write_scenarios(out_dir / "data")
     results = []
     for name, path in targets.items():
@@ -129,7 +130,7 @@ def demo_comparison(
         The comparison folder ``out_dir/comparison``.
     """
     out_dir = Path(out_dir)
-    check_out_dir(out_dir, overwrite)
+    check_output_folder(out_dir, overwrite=overwrite, kind="demo", known_dirs=DEMO_DIRS, core_names=DEMO_DIRS)
     t0 = time.perf_counter()
     datasets = write_comparison_datasets(out_dir / "data")
     labels, paths = list(datasets), list(datasets.values())

@@ -5,7 +5,7 @@ Layout (output contract, extended)::
     summary.json        machine-readable results (schema in the output contract)
     posterior.h5        HDF5: every retained sample (see below), chain, target data
     report.md, report.html, table.tex, table.csv, table.md
-    corner.png/.pdf, orbit.png/.pdf, trace.png/.pdf
+    corner.png/.pdf, orbit.png/.pdf, trace.png/.pdf, residuals.png/.pdf
     input/              verbatim copies of the target file and its tables
     .orbitmass-run      marker: orbitmass wrote this folder (JSON: kind, version,
                         creation time, the files of the run)
@@ -108,7 +108,7 @@ RUN_KIND = "run"
 RUN_FILES = frozenset({
     "summary.json", "posterior.h5", CHECKPOINT_NAME, "report.md", "report.html", "table.tex", "table.csv",
     "table.md", "table.ecsv", "residuals.csv",
-    *(f"{n}.{ext}" for n in ("corner", "orbit", "trace") for ext in ("png", "pdf")),
+    *(f"{n}.{ext}" for n in ("corner", "orbit", "trace", "residuals") for ext in ("png", "pdf")),
 })
 #: Folders a run folder may hold.
 RUN_DIRS = frozenset({"input"})

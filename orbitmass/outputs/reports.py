@@ -5,7 +5,9 @@ The report reads a :class:`~orbitmass.results.Results` only: the quantiles of
 provenance recorded by the fit, and the data of the target. It states the
 method used (full ensemble sampling, or the astrometry-only fast path with
 importance sampling or a 3-D chain, with its diagnostic), every prior in
-force, and a caption under each figure.
+force, the goodness of fit (``fit_quality``: a "Goodness of fit" section
+always, and a warning at the very top when the fit is poor) and a caption
+under each figure.
 
 :func:`write_report` writes ``report.md`` and ``report.html``, one
 self-contained page (CSS inline, figures embedded as base64 data, no external
@@ -15,6 +17,10 @@ user text (target, companion and instrument names) is escaped for each format.
 The number formatting and the table functions once defined here live in
 :mod:`orbitmass.outputs.formatting` and :mod:`orbitmass.outputs.tables`; they
 stay importable from this module.
+
+Longer than 600 lines because the report's block types, every section (goodness of fit,
+diagnostics, method) and both renderers share one document model, which must stay in one
+place so that report.md and report.html can never say different things.
 """
 
 from __future__ import annotations
@@ -100,6 +106,11 @@ class _Para:
 @dataclass(frozen=True)
 class _Warning:
     text: str
+
+
+@dataclass(frozen=True)
+class _List:
+    items: tuple[str, ...]
 
 
 @dataclass(frozen=True)
@@ -250,6 +261,76 @@ def _diagnostic_blocks(results: Results) -> list[Any]:
     return blocks
 
 
+def _fmt_p(p: Any) -> str:
+    if p is None:
+        return "n/a"
+    try:
+        v = float(p)
+    except (TypeError, ValueError):
+        return "n/a"
+    return "< 1e-300" if v == 0 else _fmt_num(v, ".2g")
+
+
+def _quality_head(fq: Mapping[str, Any]) -> str:
+    return (f"chi-square {_fmt_num(fq.get('chi2'), '.4g')} for {_fmt_num(fq.get('dof'), '.0f')} degrees of "
+            f"freedom, reduced {_fmt_num(fq.get('reduced_chi2'), '.3g')}, p = {_fmt_p(fq.get('p_value'))}")
+
+
+def _quality_alert(results: Results) -> list[Any]:
+    """The goodness-of-fit warning for the top of the report (empty unless the fit is poor)."""
+    fq = (results.summary or {}).get("fit_quality")
+    if not isinstance(fq, Mapping) or fq.get("status") != "poor":
+        return []
+    if fq.get("chi2") is None:
+        text = "GOODNESS OF FIT UNKNOWN: it could not be computed; treat this fit as unchecked."
+    else:
+        text = (f"POOR FIT: the model is implausible for these data ({_quality_head(fq)}). The numbers below are "
+                "not trustworthy until this is resolved; see Goodness of fit and the residuals figure.")
+    blocks: list[Any] = [_Warning(text)]
+    reasons = [str(r) for r in fq.get("reasons") or []]
+    if reasons:
+        blocks.append(_List(tuple(reasons)))
+    causes = [str(c.get("message", c)) if isinstance(c, Mapping) else str(c) for c in fq.get("likely_causes") or []]
+    if causes:
+        blocks.append(_Para("Likely causes:"))
+        blocks.append(_List(tuple(causes)))
+    return blocks
+
+
+def _quality_blocks(results: Results) -> list[Any]:
+    """The "Goodness of fit" section: per-dataset chi-square table and the posterior check."""
+    blocks: list[Any] = [_Heading(2, "Goodness of fit")]
+    fq = (results.summary or {}).get("fit_quality")
+    if not isinstance(fq, Mapping):
+        return blocks + [_Para("This run recorded no goodness of fit (written by an earlier version).")]
+    status = str(fq.get("status", "n/a"))
+    blocks.append(_Para(f"Status: {status} ({_quality_head(fq)}). A fit is poor when the overall p-value is "
+                        "below 1e-3, a dataset's reduced chi-square lies outside its band, or a row lies "
+                        "beyond 5 sigma; this is separate from sampling convergence (Diagnostics)."))
+    rows = []
+    for d in (fq.get("datasets") or {}).values():
+        if not isinstance(d, Mapping):
+            continue
+        rows.append((str(d.get("label", "")), str(d.get("n_values", "n/a")), _fmt_num(d.get("dof"), ".1f"),
+                     _fmt_num(d.get("chi2"), ".4g"), _fmt_num(d.get("reduced_chi2"), ".3g"),
+                     _fmt_p(d.get("p_value")), _fmt_num(d.get("max_abs_normalised"), ".2f"),
+                     str(d.get("status", "n/a"))))
+    rows.append(("all", str(fq.get("n_values", "n/a")), _fmt_num(fq.get("dof"), ".0f"), _fmt_num(fq.get("chi2"), ".4g"),
+                 _fmt_num(fq.get("reduced_chi2"), ".3g"), _fmt_p(fq.get("p_value")), "", status))
+    blocks.append(_Table(("Dataset", "values", "dof", "chi-square", "reduced chi-square", "p-value",
+                          "max |O−C|/σ", "status"), tuple(rows)))
+    post = fq.get("posterior") or {}
+    if isinstance(post, Mapping) and post.get("ppc_p_value") is not None:
+        how = (fq.get("point") or {}).get("how", "")
+        blocks.append(_Para(
+            f"The table is at the maximum-posterior point{f' ({how})' if how else ''}. Over "
+            f"{post.get('n_draws', 'n/a')} posterior draws the chi-square is "
+            f"{_fmt_num(post.get('chi2_median'), '.4g')} "
+            f"(16–84 %: {_fmt_num(post.get('chi2_q16'), '.4g')}–{_fmt_num(post.get('chi2_q84'), '.4g')}); "
+            f"posterior predictive p-value {_fmt_num(post.get('ppc_p_value'), '.2f')}."))
+    return blocks
+
+
 def method_text(results: Results) -> str:
     """One paragraph stating how this posterior was sampled, with its diagnostic.
 
@@ -289,6 +370,7 @@ def _report_blocks(results: Results, out_dir: Path, figures: Mapping[str, str], 
     prov = summ.get("provenance") or {}
     name = results.target.name
     blocks: list[Any] = [_Heading(1, f"orbitmass report: {name}")]
+    blocks += _quality_alert(results)  # a poor fit is said first, before any number
     job = f"Job: fit of the target file {prov.get('target_file') or results.target.source or 'n/a'}"
     job += f" with seed {prov.get('seed', 'n/a')}"
     job += f", orbitmass {summ.get('orbitmass_version', 'n/a')}"
@@ -354,6 +436,7 @@ def _report_blocks(results: Results, out_dir: Path, figures: Mapping[str, str], 
             )
         )
 
+    blocks += _quality_blocks(results)
     blocks += _diagnostic_blocks(results)
 
     blocks.append(_Heading(2, "Figures"))
@@ -396,6 +479,8 @@ def _render_markdown(blocks: Sequence[Any], groups: Sequence[str]) -> str:
             out.append(markdown_escape(b.text))
         elif isinstance(b, _Warning):
             out.append("> **WARNING:** " + markdown_escape(b.text))
+        elif isinstance(b, _List):
+            out.append("\n".join(f"- {markdown_escape(item)}" for item in b.items))
         elif isinstance(b, _Table):
             out.append(
                 md_table(
@@ -462,6 +547,8 @@ def _render_html(blocks: Sequence[Any], groups: Sequence[str], title: str) -> st
             body.append(f"<p>{html.escape(b.text)}</p>")
         elif isinstance(b, _Warning):
             body.append(f'<div class="warn" role="alert">WARNING: {html.escape(b.text)}</div>')
+        elif isinstance(b, _List):
+            body.append("<ul>" + "".join(f"<li>{html.escape(item)}</li>" for item in b.items) + "</ul>")
         elif isinstance(b, _Table):
             head = "".join(f"<th>{html.escape(h)}</th>" for h in b.header)
             rows = "".join(

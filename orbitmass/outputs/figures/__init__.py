@@ -1,4 +1,4 @@
-"""Figures of a fit, one module each: :mod:`.corner`, :mod:`.orbit`, :mod:`.trace`.
+"""Figures of a fit, one module each: :mod:`.corner`, :mod:`.orbit`, :mod:`.trace`, :mod:`.residuals`.
 
 Every function takes a :class:`~orbitmass.results.Results` first, every option
 keyword-only, draws into ``fig`` when given (an empty
@@ -12,6 +12,7 @@ Importing a figure module registers its renderer (:mod:`orbitmass.outputs.regist
 from orbitmass.outputs.figures.common import axis_label
 from orbitmass.outputs.figures.corner import corner_figure, default_corner_columns
 from orbitmass.outputs.figures.orbit import orbit_figure
+from orbitmass.outputs.figures.residuals import residuals_figure
 from orbitmass.outputs.figures.trace import trace_figure
 
-__all__ = ["corner_figure", "orbit_figure", "trace_figure", "axis_label", "default_corner_columns"]
+__all__ = ["corner_figure", "orbit_figure", "trace_figure", "residuals_figure", "axis_label", "default_corner_columns"]

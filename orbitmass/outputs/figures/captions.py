@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
-from orbitmass.outputs.figures import corner, orbit, trace
+from orbitmass.outputs.figures import corner, orbit, residuals, trace
 from orbitmass.results import Results
 
 __all__ = ["figure_caption", "CAPTIONS"]
 
 #: figure name -> caption function taking the Results
-CAPTIONS = {"corner": corner.caption, "orbit": orbit.caption, "trace": trace.caption}
+CAPTIONS = {"corner": corner.caption, "orbit": orbit.caption, "trace": trace.caption,
+            "residuals": residuals.caption}
 
 
 def figure_caption(name: str, results: Results) -> str:
