@@ -190,7 +190,10 @@ def _comparison_numbers(cmp: dict) -> dict:
         pairs.append({"a": p["a"], "b": p["b"], "kind": p["kind"], "verdict": p["verdict"],
                       "sigma": None if sigma is None else f"{'> ' if p['tension_is_lower_bound'] else ''}{sigma:.1f}",
                       "sigma_normal": None if p["sigma_normal_approx"] is None else f"{p['sigma_normal_approx']:.1f}"})
-    return {"runs": runs, "joint": joint, "joint_narrower": joint_width is not None and joint_width < min(widths),
+    narrower = comb.get("narrower_than_every_part")
+    if narrower is None:
+        narrower = joint_width is not None and joint_width < min(widths)
+    return {"runs": runs, "joint": joint, "joint_narrower": bool(narrower),
             "references": [r["text"] for r in cmp["references"]], "pairs": pairs}
 
 
