@@ -104,6 +104,7 @@ def run_demo_into(folder: Path, *, quick: bool) -> dict:
         "loadavg_after": os.getloadavg()[0],
         "max_steps": 3000 if quick else 20000,
         "seed": 1,
+        **{f"{k}_at_run": v for k, v in git_state().items()},
     }
 
 
@@ -172,6 +173,13 @@ def collect_demo(folder: Path) -> dict:
                 "converged": bool(s["diagnostics"]["converged"])}
     cmp_path = folder / "comparison-demo" / "comparison" / "comparison.json"
     comparison = _comparison_numbers(_read_json(cmp_path)) if cmp_path.is_file() else None
+    joint_summary = cmp_path.parent / "combined" / "summary.json"
+    if comparison is not None and joint_summary.is_file():
+        s = _read_json(joint_summary)
+        fq, diag = s.get("fit_quality") or {}, s["diagnostics"]
+        comparison["joint_run"] = {"reduced_chi2": fq.get("reduced_chi2"), "dof": fq.get("dof"),
+                                   "status": fq.get("status"), "ess_mass": diag.get("ess_mass"),
+                                   "wall_seconds": diag.get("wall_seconds"), "converged": bool(diag["converged"])}
     return {"runs": runs, "extra_runs": extra, "comparison": comparison}
 
 
@@ -253,6 +261,13 @@ def _count(n: int, word: str) -> str:
     return f"{n} {word}{'' if n == 1 else 's'}"
 
 
+def _quality(r: dict) -> str:
+    """``fit_quality`` in a table cell."""
+    if r.get("reduced_chi2") is None:
+        return "not computed"
+    return f"χ²/dof = {r['reduced_chi2']:.2f} ({r['dof']:.0f} dof), {r['status']}"
+
+
 def sentences(nums: dict) -> dict[str, str]:
     """The placeholder values of the template, from the recorded numbers."""
     from orbitmass.demo.scenarios import DEMO_MASS_MSUN
@@ -271,17 +286,19 @@ def sentences(nums: dict) -> dict[str, str]:
         if name == "quillon":  # the distance is fitted here
             truth += f", D = {_number(r['truth_distance_pc'], 3, 'distance_pc')}"
             post += f", D = {r['distance']}"
-        quality = (f"χ²/dof = {r['reduced_chi2']:.2f} ({r['dof']:.0f} dof), {r['status']}"
-                   if r["reduced_chi2"] is not None else "not computed")
+        quality = _quality(r)
         conv = "" if r["converged"] else " (**not converged**)"
         rows.append(f"| {text} | {data} | {truth} | {post}{conv} | {quality} | {r['ess_mass']:.0f} | "
                     f"{_seconds(r['wall_seconds'])} |")
     cmp = demo["comparison"]
     if cmp is not None and cmp["joint"]:
         parts = " and ".join(f"{r['label']}: {r['mass']}" for r in cmp["runs"])
+        jr = cmp.get("joint_run")
+        tail = (f"{_quality(jr)} | {jr['ess_mass']:.0f} | {_seconds(jr['wall_seconds'])} |" if jr else "| | |")
+        conv = "" if not jr or jr["converged"] else " (**not converged**)"
         rows.append(f"| two teams' datasets of one black hole, compared and fitted jointly | QD-S4 (north team) "
                     f"and QD-S9 (south team) | M = {_number(DEMO_MASS_MSUN, 3, 'mass_msun')} | "
-                    f"joint refit M = {cmp['joint']} | | | |")
+                    f"joint refit M = {cmp['joint']}{conv} | {tail}")
         narrower = ", narrower than either part" if cmp["joint_narrower"] else ""
         verdicts = "\n".join(
             f"- {p['a']} against {p['b']}: {p['verdict']}, {p['sigma']} σ from the samples"
@@ -300,7 +317,8 @@ def sentences(nums: dict) -> dict[str, str]:
     else:
         timing = " from an earlier demo folder (the time of the whole demo was not recorded)"
     demo_run_sentence = (
-        f"Numbers from one run of the demo (fit seed {run['seed']}{quick}) at commit {nums['git']['commit']}, "
+        f"Numbers from one run of the demo (fit seed {run['seed']}{quick}) at commit "
+        f"{run.get('commit_at_run', nums['git']['commit'])}, "
         f"read by `python docs/build_readme.py` on {nums['date']}{timing}. Wall times move with the load; the "
         "posteriors do not. \"Goodness of fit\" is `fit_quality` at the maximum-posterior point.")
     tests = nums.get("tests")
@@ -312,7 +330,7 @@ def sentences(nums: dict) -> dict[str, str]:
                                                                                 factors.items())
                                + ("" if conv else " (not converged)") + ".")
     else:
-        relativity_sentence = "The demo of this version does not fit a relativistic orbit."
+        relativity_sentence = "The demo of this version includes no relativistic fit."
     bench = nums.get("benchmarks")
     if bench:
         perf = (f"`python -m benchmarks` measures each figure beside a baseline written as a careful user would "
@@ -320,8 +338,8 @@ def sentences(nums: dict) -> dict[str, str]:
                 f"latest recorded {bench['mode']} run (`benchmarks/results.json`, commit {bench['commit']}, "
                 f"load average {bench['loadavg_start']:.1f} on "
                 f"{bench['cpu_count']} cores): Kepler's equation solved "
-                f"{bench['kepler_speedup_1e4']:.1f}× faster than a vectorised Newton iteration at "
-                f"{_number(bench['kepler_error_rad'], 2)} rad at most; model + log posterior "
+                f"{bench['kepler_speedup_1e4']:.1f}× faster than by a vectorised Newton iteration, with errors of "
+                f"at most {_number(bench['kepler_error_rad'], 2)} rad; model + log posterior "
                 f"{bench['likelihood_us']:.1f} µs per parameter set at 90 epochs "
                 f"({bench['likelihood_loop_ratio']:.0f}× a per-set loop); "
                 f"{bench['ess_ratio_covered']:.1f}× (covered orbit) and {bench['ess_ratio_arc']:.1f}× "
