@@ -57,6 +57,8 @@ SCENARIO_TEXT = {
     "quillon": "QD-S4 around the Quillon black hole, distance left free (orbital parallax)",
     "tessaly": "Tessaly 41 AB, astrometry only, 1 % parallax",
 }
+#: sampled model-term parameters reported under ``derived`` (input format, "Beyond Kepler")
+_BEYOND_KEPLER = ("redshift_factor", "precession_factor", "extended_mass_fraction")
 _SUP = str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻")
 
 
@@ -164,13 +166,24 @@ def collect_demo(folder: Path) -> dict:
         runs[name] = _run_numbers(name, _read_json(path))
     # runs the template does not know yet (a relativity scenario, say): kept for the sentences
     extra = {}
-    for path in sorted((folder / "runs").glob("*/summary.json")):
-        if path.parent.name not in runs:
-            s = _read_json(path)
-            extra[path.parent.name] = {"target": s["target"], "beyond_kepler": {
-                k: _interval(k, s["derived"][k]) for k in ("redshift_factor", "precession_factor",
-                                                           "extended_mass_fraction") if k in s["derived"]},
-                "converged": bool(s["diagnostics"]["converged"])}
+    known = {(folder / "runs" / name / "summary.json").resolve() for name in runs}
+    for path in sorted(folder.rglob("summary.json")):
+        if path.resolve() in known:
+            continue
+        s = _read_json(path)
+        factors = {k: _interval(k, s["derived"][k]) for k in _BEYOND_KEPLER if k in s.get("derived", {})}
+        if not factors:
+            continue  # a Keplerian run (a team's fit, the joint refit): described elsewhere
+        names = list(s.get("companions", {}))
+        per_companion = {}
+        for c in names:
+            block = s["companions"][c]
+            per_companion[c] = {k: _interval(f"{c}.{k}", block[k], companions=names)
+                                for k in ("precession_arcmin_per_orbit", "redshift_periastron_kms",
+                                          "periastron_rs") if k in block}
+        extra[str(path.parent.relative_to(folder))] = {
+            "target": s["target"], "beyond_kepler": factors, "companions": per_companion,
+            "converged": bool(s["diagnostics"]["converged"]), "status": (s.get("fit_quality") or {}).get("status")}
     cmp_path = folder / "comparison-demo" / "comparison" / "comparison.json"
     comparison = _comparison_numbers(_read_json(cmp_path)) if cmp_path.is_file() else None
     joint_summary = cmp_path.parent / "combined" / "summary.json"
@@ -261,6 +274,12 @@ def _count(n: int, word: str) -> str:
     return f"{n} {word}{'' if n == 1 else 's'}"
 
 
+def _with_unit(text: str, unit: str) -> str:
+    """``text`` with ``unit`` appended unless the formatter already wrote a unit after the number."""
+    last = text.split()[-1]
+    return text if not re.fullmatch(r"[−+\-]?[\d.]+\)?|\(fixed\)|10[⁰¹²³⁴⁵⁶⁷⁸⁹⁻]+", last) else f"{text} {unit}"
+
+
 def _quality(r: dict) -> str:
     """``fit_quality`` in a table cell."""
     if r.get("reduced_chi2") is None:
@@ -323,12 +342,24 @@ def sentences(nums: dict) -> dict[str, str]:
         "posteriors do not. \"Goodness of fit\" is `fit_quality` at the maximum-posterior point.")
     tests = nums.get("tests")
     tests_sentence = (f" ({tests['n_tests']} tests collected at commit {tests['commit']})" if tests else "")
-    rel = [(r["target"], r["beyond_kepler"], r["converged"]) for r in demo["extra_runs"].values() if r["beyond_kepler"]]
+    rel = [r for r in demo["extra_runs"].values() if r["beyond_kepler"]]
     if rel:
-        target, factors, conv = rel[0]
-        relativity_sentence = (f"The demo's run of {target} measured " + ", ".join(f"`{k}` = {v}" for k, v in
-                                                                                factors.items())
-                               + ("" if conv else " (not converged)") + ".")
+        r = rel[0]
+        relativity_sentence = (f"The demo's relativistic fit ({r['target']}) measured "
+                               + ", ".join(f"`{k}` = {v}" for k, v in r["beyond_kepler"].items())
+                               + ("" if r["converged"] else " (**not converged**)") + ".")
+        for c, q in r.get("companions", {}).items():
+            parts = []
+            if "periastron_rs" in q:
+                rs = _with_unit(q["periastron_rs"], "R_S").replace(" R_S", " Schwarzschild radii")
+                parts.append(f"periastron at {rs}")
+            if "precession_arcmin_per_orbit" in q:
+                parts.append(f"general relativity predicts {_with_unit(q['precession_arcmin_per_orbit'], 'arcmin')} "
+                             "of precession per orbit")
+            if "redshift_periastron_kms" in q:
+                parts.append(f"a redshift of {_with_unit(q['redshift_periastron_kms'], 'km/s')} at periastron")
+            if parts:
+                relativity_sentence += f" For {c}: " + "; ".join(parts) + "."
     else:
         relativity_sentence = "The demo of this version includes no relativistic fit."
     bench = nums.get("benchmarks")
