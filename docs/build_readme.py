@@ -328,7 +328,7 @@ def sentences(nums: dict) -> dict[str, str]:
                                f"`{cmp['references'][0]}`. Tensions (Gaussian-equivalent):\n\n{verdicts}")
     else:
         comparison_sentence = "the comparison was not run in this build."
-    quick = f" with the step cap lowered to {run['max_steps']} (a quick build)" if run["max_steps"] < 20000 else ""
+    quick = f"; a quick build, step cap {run['max_steps']}" if run["max_steps"] < 20000 else ""
     if "wall_seconds" in run:
         timing = (f" on a {run.get('cpu_count', '?')}-core machine shared with other jobs (load average "
                   f"{run['loadavg_before']:.1f} before, {run['loadavg_after']:.1f} after): the whole demo took "
