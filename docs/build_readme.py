@@ -260,6 +260,36 @@ def benchmark_numbers() -> dict | None:
     }
 
 
+def error_example() -> str:
+    """The message ``orbitmass fit`` prints for a distance prior given without a unit (read with the current reader).
+
+    A copy of ``examples/quillon`` with ``mean = 8`` in place of a quantity string is read with
+    :func:`orbitmass.read_target` in a temporary folder; the command line prints the error as
+    ``orbitmass: error: <message>`` (:func:`orbitmass.cli.common.run_command`).
+    """
+    import orbitmass
+
+    src = ROOT / "examples" / "quillon"
+    text = (src / "target.toml").read_text(encoding="utf-8")
+    bad = re.sub(r'^prior = .*$', 'prior = { dist = "normal", mean = 8, sd = "1 kpc" }', text, count=1,
+                 flags=re.MULTILINE)
+    if bad == text:
+        raise BuildError(f"{src / 'target.toml'}: no 'prior = ...' line to spoil for the error example")
+    with tempfile.TemporaryDirectory(prefix="orbitmass-readme-error-") as tmp:
+        for table in src.glob("*.csv"):
+            (Path(tmp) / table.name).write_bytes(table.read_bytes())
+        (Path(tmp) / "target.toml").write_text(bad, encoding="utf-8")
+        cwd = Path.cwd()
+        os.chdir(tmp)
+        try:
+            orbitmass.read_target("target.toml")
+        except orbitmass.OrbitmassError as exc:
+            return f"orbitmass: error: {exc}"
+        finally:
+            os.chdir(cwd)
+    raise BuildError("the reader accepted a distance prior without a unit; the README's error example needs another")
+
+
 def git_state() -> dict:
     def git(*args):
         proc = subprocess.run(["git", *args], cwd=ROOT, capture_output=True, text=True, check=False)
@@ -398,6 +428,7 @@ def sentences(nums: dict) -> dict[str, str]:
         "performance_sentence": perf,
         "calibration_sentence": calibration_sentence,
         "provenance": provenance,
+        "error_example": nums.get("error_example", ""),
     }
 
 
@@ -518,6 +549,7 @@ def main(argv: list[str] | None = None) -> int:
             nums["tests"] = old["tests"]  # the last count, with the commit it was made at
         nums["benchmarks"] = benchmark_numbers()
         nums["calibration"] = calibration_numbers()
+        nums["error_example"] = error_example()
         text = render(template, sentences(nums))
         figures = copy_figures(folder)
         from orbitmass.outputs.style import write_atomic
