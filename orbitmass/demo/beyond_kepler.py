@@ -90,8 +90,8 @@ def residual_figure(rel_results, kepler_results, companion: str, dest_without_su
     the Keplerian fit absorbs most of that term by changing the orbit, which is
     what biases its mass and distance.
     """
-    import matplotlib.pyplot as plt
-    from matplotlib.ticker import MaxNLocator
+    from matplotlib.figure import Figure  # start-up time: matplotlib only when the figure is drawn
+    from matplotlib.ticker import MaxNLocator  # start-up time
 
     t_grid = np.linspace(periastron_jyr - half_width_yr, periastron_jyr + half_width_yr, 400)
     vel, res_rel, curve_rel = _velocity_residuals(rel_results, companion, t_grid)
@@ -100,8 +100,8 @@ def residual_figure(rel_results, kepler_results, companion: str, dest_without_su
     err = np.asarray(vel.rv_err_kms)
     near = np.abs(t - periastron_jyr) <= half_width_yr
     with style_context():
-        fig, (ax, ax2) = plt.subplots(2, 1, figsize=figure_size(1, aspect=1.05), sharex=True,
-                                      gridspec_kw={"height_ratios": [1.6, 1.0], "hspace": 0.08})
+        fig = Figure(figsize=figure_size(1, aspect=1.05))
+        ax, ax2 = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [1.6, 1.0], "hspace": 0.08})
         ax.axhline(0.0, color=PALETTE["black"], lw=0.6)
         ax.errorbar(t[near] - 0.02, res_kep[near], yerr=err[near], fmt="s", color=PALETTE["vermillion"],
                     ms=3.5, lw=0.8, label="Keplerian orbit")
@@ -124,6 +124,5 @@ def residual_figure(rel_results, kepler_results, companion: str, dest_without_su
         ax2.set_xlim(t_grid[0], t_grid[-1])
         ax2.xaxis.set_major_locator(MaxNLocator(5))
         written = save_figure(fig, dest_without_suffix)
-        plt.close(fig)
     log.info("wrote %s", ", ".join(str(p) for p in written))
     return written
