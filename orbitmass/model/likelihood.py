@@ -344,7 +344,7 @@ class LogPosterior:
             return self.log_likelihood_reference(theta)
         theta = np.atleast_2d(theta)
         self.n_sets += theta.shape[0]
-        return self._plan.log_likelihood(self.space.unpack(theta))
+        return self._plan.evaluate(self.space.unpack(theta))
 
     def log_likelihood_reference(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
         """Log-likelihood by the plain path (:func:`predict_system`), the reference of the fused one."""
@@ -458,7 +458,7 @@ class _FusedPlan:
             self._work[n] = work
         return work
 
-    def log_likelihood(self, phys: Mapping[str, NDArray[np.float64]]) -> NDArray[np.float64]:
+    def evaluate(self, phys: Mapping[str, NDArray[np.float64]]) -> NDArray[np.float64]:
         """Log-likelihood of unpacked quantities ``phys`` (arrays of shape (n_sets,))."""
         n = phys["mass_msun"].shape[0]
         work = self._buffers(n)
