@@ -160,7 +160,7 @@ def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
     ----------
     quick : bool
         Companions 1 and 2 only, one fit each, three timing repeats; otherwise
-        1, 2, 4 and 8 companions, three fits each for 1 and 2 and one for 4 and
+        1, 2, 4 and 8 companions, three fits for 1, two for 2 and one for 4 and
         8 (they take minutes; the median is reported), seven timing repeats.
     sizes, counts, repeats, fit_repeats, n_pos, n_rv, max_steps
         Override the settings (for smoke tests).
@@ -175,7 +175,7 @@ def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
     """
     counts = counts or ((1, 2) if quick else (1, 2, 4, 8))
     repeats = repeats or (3 if quick else 7)
-    fit_repeats = fit_repeats or (1 if quick else {1: 3, 2: 3, 4: 1, 8: 1})
+    fit_repeats = fit_repeats or (1 if quick else {1: 3, 2: 2, 4: 1, 8: 1})
     rows = companion_scaling(counts, fit_repeats, n_pos=n_pos, n_rv=n_rv, max_steps=max_steps)
     return {
         "epochs": epoch_scaling(sizes, repeats),
