@@ -273,6 +273,11 @@ class LogPosterior:
     space : ParameterSpace
         Layout of the sampled vector; its model terms (``space.terms``) enter
         every orbit.
+    blocks : tuple, optional
+        ``(astrometry, velocities)`` blocks to reuse (see :meth:`with_space`).
+    fused : bool
+        Use the fused Keplerian path when the space has no model terms
+        (default); False always takes :meth:`log_likelihood_reference`.
 
     Attributes
     ----------
@@ -282,7 +287,9 @@ class LogPosterior:
     Notes
     -----
     ``n_sets`` counts parameter sets evaluated (likelihood evaluations);
-    instances pickle, so they can go to worker processes.
+    instances pickle, so they can go to worker processes (the fused path's
+    work arrays are not pickled; a copy makes its own). One instance must not
+    be called from several threads at once (the work arrays are shared).
     """
 
     def __init__(self, space: ParameterSpace, *, blocks=None, fused: bool = True):
