@@ -3,11 +3,15 @@
 1. Time per likelihood evaluation (one parameter set, in a block of 64 as
    emcee passes them) for 10, 100, 1000 and 10000 epochs, each epoch with a
    position and a velocity (:func:`benchmarks.bench_likelihood.simulated_problem`).
-2. Wall time to a converged posterior of a joint fit of 1, 2 and 4 companions
-   around one central mass (several ``[[companion]]`` blocks in one target:
-   they share the mass and the distance), 25 epochs of astrometry and 12 of
-   velocities per companion, distance with a 3 % prior. ``--quick`` fits only 1
-   and 2 companions.
+2. Wall time to a converged posterior of a joint fit of 1, 2, 4 and 8
+   companions around one central mass (several ``[[companion]]`` blocks in one
+   target: they share the mass and the distance; relative frame), 25 epochs of
+   astrometry and 12 of velocities per companion, distance with a 3 % prior.
+   ``--quick`` fits only 1 and 2 companions. The growth is summarised by the
+   exponent ``b`` of ``wall ~ n_companions^b`` (least-squares slope of log wall
+   time against log companions), and split into its factors: steps to
+   convergence, walkers, and the cost of one evaluation (wall = steps x
+   walkers x seconds per evaluation, up to the initialisation and the checks).
 
 Usage::
 
@@ -33,7 +37,7 @@ from benchmarks.bench_problems import CompanionData, Problem, baseline_to_theta,
 from orbitmass.demo.simulate import TrueOrbit
 
 __all__ = ["JOINT_MASS_MSUN", "JOINT_DISTANCE_PC", "JOINT_ORBITS", "joint_problem", "epoch_scaling",
-           "companion_scaling", "run"]
+           "companion_scaling", "growth_exponent", "run"]
 
 JOINT_MASS_MSUN = 3.1e6
 JOINT_DISTANCE_PC = 9800.0
@@ -43,6 +47,10 @@ JOINT_ORBITS = [
     (17.5, 0.35, 128.0, 300.0, 95.0, 2019.6),
     (9.0, 0.7, 40.0, 150.0, 330.0, 2011.9),
     (24.0, 0.25, 101.0, 75.0, 20.0, 2008.4),
+    (6.5, 0.45, 75.0, 250.0, 160.0, 2013.1),
+    (30.0, 0.6, 145.0, 110.0, 270.0, 2020.3),
+    (14.5, 0.15, 55.0, 200.0, 45.0, 2017.7),
+    (20.0, 0.8, 88.0, 340.0, 120.0, 2010.6),
 ]
 
 
@@ -98,6 +106,7 @@ def companion_scaling(counts: tuple[int, ...], repeats: int | dict[int, int], *,
                 fit = Fit(seed=301 + k, progress=False, max_steps=max_steps).fit(prob.target)
                 d = fit.summary["diagnostics"]
                 runs.append({"wall_seconds": float(d["wall_seconds"]), "converged": bool(d["converged"]),
+                             "sampling_seconds": float(d["sampling_seconds"]),
                              "n_steps": int(d["n_steps"]), "n_walkers": int(d["n_walkers"]),
                              "n_evaluations": int(d["n_evaluations"]), "ess_mass": float(d["ess_mass"]),
                              "mass_median_msun": float(fit.summary["derived"]["mass_msun"]["median"])})
@@ -111,6 +120,10 @@ def companion_scaling(counts: tuple[int, ...], repeats: int | dict[int, int], *,
                 "converged": all(r["converged"] for r in runs),
                 "hit_cap": not all(r["converged"] for r in runs),
                 "n_steps": float(np.median([r["n_steps"] for r in runs])),
+                "n_walkers": int(runs[0]["n_walkers"]),
+                "sampling_seconds": float(np.median([r["sampling_seconds"] for r in runs])),
+                "us_per_evaluation": float(np.median([r["sampling_seconds"] / r["n_evaluations"] * 1e6
+                                                      for r in runs])),
                 "ess_mass": float(np.median([r["ess_mass"] for r in runs])),
                 "ess_mass_per_s": float(np.median([r["ess_mass"] / r["wall_seconds"] for r in runs])),
                 "true_mass_msun": JOINT_MASS_MSUN,
@@ -118,6 +131,23 @@ def companion_scaling(counts: tuple[int, ...], repeats: int | dict[int, int], *,
                 "runs": runs,
             })
     return out
+
+
+def growth_exponent(counts, values) -> float | None:
+    """Least-squares slope of log ``values`` against log ``counts`` (None with fewer than two points)."""
+    x = np.log(np.asarray(counts, dtype=float))
+    y = np.log(np.asarray(values, dtype=float))
+    if x.size < 2:
+        return None
+    return float(np.polyfit(x, y, 1)[0])
+
+
+def exponents(rows: list[dict]) -> dict:
+    """Growth exponents of the wall time and of its factors over the companion counts measured."""
+    counts = [r["n_companions"] for r in rows]
+    keys = {"wall_seconds": "wall_seconds", "n_steps": "n_steps", "n_walkers": "n_walkers",
+            "us_per_evaluation": "us_per_evaluation", "sampling_seconds": "sampling_seconds"}
+    return {name: growth_exponent(counts, [r[key] for r in rows]) for name, key in keys.items()}
 
 
 def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
@@ -130,8 +160,8 @@ def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
     ----------
     quick : bool
         Companions 1 and 2 only, one fit each, three timing repeats; otherwise
-        1, 2 and 4 companions, three fits each for 1 and 2 and one for 4 (it
-        takes minutes; the median is reported), seven timing repeats.
+        1, 2, 4 and 8 companions, three fits for 1, two for 2 and one for 4 and
+        8 (they take minutes; the median is reported), seven timing repeats.
     sizes, counts, repeats, fit_repeats, n_pos, n_rv, max_steps
         Override the settings (for smoke tests).
 
@@ -139,14 +169,18 @@ def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
     -------
     dict
         ``"epochs"`` (list of per-size figures), ``"companions"`` (list of
-        per-count figures), ``"settings"``.
+        per-count figures), ``"exponents"`` (growth exponents of the wall time
+        and its factors with the number of companions; target: wall <= 1),
+        ``"settings"``.
     """
-    counts = counts or ((1, 2) if quick else (1, 2, 4))
+    counts = counts or ((1, 2) if quick else (1, 2, 4, 8))
     repeats = repeats or (3 if quick else 7)
-    fit_repeats = fit_repeats or (1 if quick else {1: 3, 2: 3, 4: 1})
+    fit_repeats = fit_repeats or (1 if quick else {1: 3, 2: 2, 4: 1, 8: 1})
+    rows = companion_scaling(counts, fit_repeats, n_pos=n_pos, n_rv=n_rv, max_steps=max_steps)
     return {
         "epochs": epoch_scaling(sizes, repeats),
-        "companions": companion_scaling(counts, fit_repeats, n_pos=n_pos, n_rv=n_rv, max_steps=max_steps),
+        "companions": rows,
+        "exponents": exponents(rows),
         "settings": {"timing_repeats": repeats, "n_sets": N_SETS,
                      "epochs": "each epoch has a position and a velocity",
                      "joint": f"{n_pos} positions and {n_rv} velocities per companion, 3 % distance prior",
@@ -161,11 +195,20 @@ def table(result: dict) -> str:
     for r in result["epochs"]:
         lines.append(f"{r['n_epochs']:>7d} {r['us_per_set']:>10.2f} {r['ns_per_set_epoch']:>13.1f}")
     lines.append(f"Joint fits ({result['settings']['joint']}; median of the runs)")
-    lines.append(f"{'companions':>10} {'n_dim':>6} {'runs':>5} {'wall s':>8} {'steps':>7} {'ESS(M)':>8} "
-                 f"{'conv':>5}")
+    lines.append(f"{'companions':>10} {'n_dim':>6} {'runs':>5} {'wall s':>8} {'steps':>7} {'walkers':>8} "
+                 f"{'us/eval':>8} {'ESS(M)':>8} {'conv':>5}")
     for r in result["companions"]:
         lines.append(f"{r['n_companions']:>10d} {r['n_dim']:>6d} {r['repeats']:>5d} {r['wall_seconds']:>8.1f} "
-                     f"{r['n_steps']:>7.0f} {r['ess_mass']:>8.0f} {'yes' if r['converged'] else 'no':>5}")
+                     f"{r['n_steps']:>7.0f} {r.get('n_walkers', 0):>8d} {r.get('us_per_evaluation', 0.0):>8.1f} "
+                     f"{r['ess_mass']:>8.0f} {'yes' if r['converged'] else 'no':>5}")
+    ex = result.get("exponents") or {}
+    if ex.get("wall_seconds") is not None:
+        def fmt(key):
+            return "n/a" if ex.get(key) is None else f"{ex[key]:.2f}"
+        verdict = "met" if ex["wall_seconds"] <= 1.0 else "NOT met"
+        lines.append(f"growth exponent b (wall ~ companions^b): {fmt('wall_seconds')} (target <= 1: {verdict}); "
+                     f"factors: steps {fmt('n_steps')}, walkers {fmt('n_walkers')}, "
+                     f"us per evaluation {fmt('us_per_evaluation')}")
     return "\n".join(lines)
 
 

@@ -154,6 +154,12 @@ def targets(sections: dict) -> list[dict]:
             need = 25.0 if name == "astrometry" else 10.0
             out.append({"figure": f"ESS(mass)/s orbitmass / baseline, {name}", "value": res["ratio_ess_per_s"],
                         "target": f">= {need:.0f}x", "met": bool(res["ratio_ess_per_s"] >= need)})
+    sca = sections.get("scaling")
+    if isinstance(sca, dict) and (sca.get("exponents") or {}).get("wall_seconds") is not None:
+        b = sca["exponents"]["wall_seconds"]
+        counts = ", ".join(str(r["n_companions"]) for r in sca["companions"])
+        out.append({"figure": f"joint fit wall time ~ companions^b, b over {counts}", "value": b,
+                    "target": "<= 1", "met": bool(b <= 1.0)})
     demo = sections.get("demo")
     if isinstance(demo, dict) and "fits" in demo:
         for name, r in demo["fits"].items():

@@ -59,6 +59,7 @@ from numpy.typing import ArrayLike, NDArray
 __all__ = [
     "solve_kepler",
     "kepler_cos_sin",
+    "kepler_cos_sin_rows",
     "eccentric_to_true",
     "true_anomaly",
     "mean_to_true",
@@ -72,6 +73,8 @@ _ALPHA_1 = 1.6 * math.pi / (math.pi**2 - 6.0)
 #: Elements per block: the ten work arrays of this length stay in the CPU cache.
 _BLOCK = 4096
 _N_WORK = 10
+#: Elements per block of :func:`kepler_cos_sin_rows` (whole rows; 64 sets x 90 epochs is one block).
+_ROWS_BLOCK = 8192
 
 
 # Hot path: numpy ufuncs with positional output arrays and 0-d array constants.
@@ -327,6 +330,57 @@ def kepler_cos_sin(
     """
     cos_e, sin_e = _solve(mean_anomaly, eccentricity, cos_sin=True)
     return cos_e, sin_e
+
+
+def kepler_cos_sin_rows(
+    mean_anomaly: NDArray[np.float64],
+    eccentricity: NDArray[np.float64],
+    out_cos: NDArray[np.float64],
+    out_sin: NDArray[np.float64],
+    work: NDArray[np.float64] | None = None,
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """:func:`kepler_cos_sin` for a 2-D block with one eccentricity per row, into given arrays.
+
+    The hot path of the likelihood: ``mean_anomaly`` has shape ``(n_sets,
+    n_epochs)`` and ``eccentricity`` shape ``(n_sets, 1)``; the eccentricity
+    is broadcast inside every ufunc instead of being copied to the full shape,
+    and whole rows are processed in blocks of about :data:`_ROWS_BLOCK` elements.
+    The same arithmetic as :func:`kepler_cos_sin` in the same order, so the
+    results are identical element for element.
+
+    Parameters
+    ----------
+    mean_anomaly : ndarray, shape (n_sets, n_epochs), C-contiguous
+        Mean anomaly (rad).
+    eccentricity : ndarray, shape (n_sets, 1)
+        Eccentricity in ``[0, 1)`` (not validated).
+    out_cos, out_sin : ndarray, shape (n_sets, n_epochs)
+        Receive ``cos E`` and ``sin E`` (must not overlap ``mean_anomaly``).
+    work : ndarray, shape (_N_WORK, rows * n_epochs) or larger, optional
+        Scratch space kept by the caller between calls (see :func:`rows_work`);
+        allocated when not given.
+
+    Returns
+    -------
+    (out_cos, out_sin)
+    """
+    n_rows, n_cols = mean_anomaly.shape
+    rows = max(1, min(n_rows, _ROWS_BLOCK // max(n_cols, 1)))
+    if work is None:
+        work = rows_work(n_rows, n_cols)
+    for start in range(0, n_rows, rows):
+        stop = min(start + rows, n_rows)
+        k = stop - start
+        scratch = work[:, : k * n_cols].reshape(_N_WORK, k, n_cols)
+        _solve_block(mean_anomaly[start:stop], eccentricity[start:stop], scratch,
+                     out_cos_sin=(out_cos[start:stop], out_sin[start:stop]))
+    return out_cos, out_sin
+
+
+def rows_work(n_rows: int, n_cols: int) -> NDArray[np.float64]:
+    """Scratch space for :func:`kepler_cos_sin_rows` of an ``(n_rows, n_cols)`` block."""
+    rows = max(1, min(n_rows, _ROWS_BLOCK // max(n_cols, 1)))
+    return np.empty((_N_WORK, rows * n_cols))
 
 
 def eccentric_to_true(eccentric_anomaly: ArrayLike, eccentricity: ArrayLike) -> NDArray[np.float64]:

@@ -51,7 +51,8 @@ from __future__ import annotations
 
 import logging
 import math
-from dataclasses import dataclass
+import time
+from dataclasses import dataclass, field
 
 import numpy as np
 from numpy.typing import NDArray
@@ -90,6 +91,7 @@ class InitialSolution:
     n_grid: int
     windows: AngleWindows | None = None
     interrupted: bool = False
+    seconds: dict[str, float] = field(default_factory=dict)
 
 
 class Interrupted(Exception):
@@ -503,6 +505,7 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
     searches = []
     n_grid = 0
     interrupted = False
+    clock = [time.perf_counter()]
     for comp in space.target.companions if start is None else ():
         cands, ng = _companion_search(post, comp, max_periods, stop_flag)
         n_grid += ng
@@ -525,6 +528,7 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
         if interrupted:
             break
     results = []
+    clock.append(time.perf_counter())
     if start is not None and not _stopped(stop_flag):
         post_c = post.with_space(space.with_windows(space.windows_from(start[None, :])))
         best, val = polish(post_c, post_c.space.wrap_angles(start[None, :])[0], max_evals, stop_flag)
@@ -573,16 +577,21 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
             if all(abs(math.log(periods[n] / float(there[f"{n}.period_yr"][0]))) < 0.02 for n in names):
                 continue
             others.append({"delta_log_posterior": float(best_val - val), "period_yr": periods})
+    clock.append(time.perf_counter())
     if interrupted:  # keep the stop prompt: no Hessian, one round of draws about the best point
         cov = np.diag((0.01 * np.maximum(1.0, np.abs(best))) ** 2)
         walkers = _scatter(final, best, cov, n_walkers, rng, max_tries=1)
     else:
         cov = hessian_covariance(final, best)
         walkers = _scatter(final, best, cov, n_walkers, rng)
-    log.info("initialised at log posterior %.3f (%d grid points, %d competing modes%s)",
-             best_val, n_grid, len(others), ", interrupted" if interrupted else "")
+    clock.append(time.perf_counter())
+    seconds = dict(zip(("search", "polish", "walkers"), np.diff(clock).tolist()))
+    log.info("initialised at log posterior %.3f (%d grid points, %d competing modes%s); search %.2f s, "
+             "polish %.2f s, walkers %.2f s", best_val, n_grid, len(others), ", interrupted" if interrupted else "",
+             seconds["search"], seconds["polish"], seconds["walkers"])
     return InitialSolution(walkers=walkers, best=best, best_log_post=float(best_val),
-                           other_modes=others, n_grid=n_grid, windows=windows, interrupted=interrupted)
+                           other_modes=others, n_grid=n_grid, windows=windows, interrupted=interrupted,
+                           seconds=seconds)
 
 
 def _combo_values(space, searches, combo) -> dict:

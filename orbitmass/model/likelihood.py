@@ -21,6 +21,25 @@ Model of what is observed (angles in mas, velocities in km/s):
 The data of every companion are held in public blocks
 (:class:`AstrometryBlock`, :class:`VelocityBlock`; :func:`data_blocks` builds
 them) that the initial search reads too.
+
+Two evaluation paths
+--------------------
+:meth:`LogPosterior.log_likelihood_reference` is the plain path: every orbit
+through :func:`~orbitmass.core.orbit.evaluate` and :func:`predict_system`,
+the same code predictions and figures use. It is the reference, and it is
+what runs whenever the space has model terms.
+
+Without model terms :meth:`LogPosterior.log_likelihood` takes the fused path
+(:class:`_FusedPlan`): the same model, evaluated with the Keplerian formulas
+of :mod:`orbitmass.core.orbit` written out so that each companion's Kepler
+equation is solved once on the union of all epochs where its orbit is needed
+(positions and velocities taken at the same epoch share one solve), positions,
+velocities and residuals are computed in place in work arrays kept between
+calls (one set per block size; they are dropped when the posterior is
+pickled and are never returned), and the weighted sums of squares are
+matrix-vector products. Constant parts (the normalisation of rows whose
+jitter is fixed, their inverse variances) are computed once. The two paths
+agree to round-off (``tests/test_likelihood_fast.py``: 1e-12 relative).
 """
 
 from __future__ import annotations
@@ -31,9 +50,11 @@ from typing import Mapping
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.core.orbit import OrbitState, evaluate, thiele_innes
+from orbitmass.core.kepler import kepler_cos_sin_rows, rows_work
+from orbitmass.core.orbit import TWO_PI, OrbitState, evaluate, thiele_innes
 from orbitmass.core.physics import semimajor_axis_au
 from orbitmass.model.parameters import ParameterSpace
+from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["LogPosterior", "AstrometryBlock", "VelocityBlock", "data_blocks", "orbit_states", "predict_system"]
 
@@ -252,6 +273,11 @@ class LogPosterior:
     space : ParameterSpace
         Layout of the sampled vector; its model terms (``space.terms``) enter
         every orbit.
+    blocks : tuple, optional
+        ``(astrometry, velocities)`` blocks to reuse (see :meth:`with_space`).
+    fused : bool
+        Use the fused Keplerian path when the space has no model terms
+        (default); False always takes :meth:`log_likelihood_reference`.
 
     Attributes
     ----------
@@ -261,10 +287,12 @@ class LogPosterior:
     Notes
     -----
     ``n_sets`` counts parameter sets evaluated (likelihood evaluations);
-    instances pickle, so they can go to worker processes.
+    instances pickle, so they can go to worker processes (the fused path's
+    work arrays are not pickled; a copy makes its own). One instance must not
+    be called from several threads at once (the work arrays are shared).
     """
 
-    def __init__(self, space: ParameterSpace, *, blocks=None):
+    def __init__(self, space: ParameterSpace, *, blocks=None, fused: bool = True):
         self.space = space
         self.t_ref = space.t_ref
         self.absolute = space.target.frame == "absolute"
@@ -272,6 +300,14 @@ class LogPosterior:
         self.reflex = [lay.name for lay in space.companions if lay.has_q]
         self.companion_names = [c.name for c in space.target.companions]
         self.n_sets = 0
+        self.fused = bool(fused) and not space.terms
+        self._plan = _FusedPlan(self) if self.fused else None
+
+    def __getstate__(self):
+        state = self.__dict__.copy()
+        if state.get("_plan") is not None:
+            state["_plan"] = state["_plan"].without_work()
+        return state
 
     @property
     def astro(self) -> dict[str, AstrometryBlock]:
@@ -285,13 +321,15 @@ class LogPosterior:
 
     def with_space(self, space: ParameterSpace) -> LogPosterior:
         """A posterior of the same data for another space of the same target (e.g. other angle windows)."""
-        return LogPosterior(space, blocks=(self.astrometry, self.velocities))
+        return LogPosterior(space, blocks=(self.astrometry, self.velocities), fused=self.fused)
 
     def __call__(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
         theta = np.atleast_2d(theta)
         lp = self.space.log_prior(theta)
         ok = np.isfinite(lp)
-        if ok.any():
+        if ok.all():
+            lp += self.log_likelihood(theta)
+        elif ok.any():
             lp[ok] += self.log_likelihood(theta[ok])
         lp[~np.isfinite(lp)] = -np.inf
         return lp
@@ -304,7 +342,19 @@ class LogPosterior:
 
     # ------------------------------------------------------------ likelihood
     def log_likelihood(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
-        """Log-likelihood of every row of ``theta`` (n_sets, n_dim) -> (n_sets,)."""
+        """Log-likelihood of every row of ``theta`` (n_sets, n_dim) -> (n_sets,).
+
+        The fused path when the space has no model terms, else
+        :meth:`log_likelihood_reference` (module docstring).
+        """
+        if self._plan is None:
+            return self.log_likelihood_reference(theta)
+        theta = np.atleast_2d(theta)
+        self.n_sets += theta.shape[0]
+        return self._plan.evaluate(self.space.unpack(theta))
+
+    def log_likelihood_reference(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Log-likelihood by the plain path (:func:`predict_system`), the reference of the fused one."""
         theta = np.atleast_2d(theta)
         n = theta.shape[0]
         self.n_sets += n
@@ -327,3 +377,212 @@ class LogPosterior:
                 ll += vb.log_likelihood(pred["rv_kms"], phys, self.space.instrument_names)
         return ll
 
+
+
+class _FusedPlan:
+    """Index maps and constants of the fused likelihood path, built once per posterior.
+
+    For every companion ``j`` whose orbit is needed somewhere: the union
+    ``t`` of the epochs where it is needed (its own rows, and, when it pulls
+    the central body, the rows of the other companions that see the reflex
+    motion), and for every data block the columns of that union it reads
+    (``None`` when the block's epochs are the union itself, in order).
+    """
+
+    def __init__(self, post: LogPosterior):
+        space = post.space
+        self.absolute = post.absolute
+        self.t_ref = space.t_ref
+        self.reflex = list(post.reflex)
+        self.instrument_names = list(space.instrument_names)
+        need: dict[str, list[NDArray[np.float64]]] = {}
+        need_vel: dict[str, bool] = {}
+        self.astro = []  # (block, [(j, idx)], n_rows)
+        self.vel = []
+        for name in post.companion_names:
+            ab = post.astrometry.get(name)
+            vb = post.velocities.get(name)
+            if ab is not None:
+                users = [name] + ([j for j in self.reflex if j != name] if self.absolute else [])
+                for j in users:
+                    need.setdefault(j, []).append(ab.t)
+                self.astro.append((name, ab, users))
+            if vb is not None:
+                users = [name] + [j for j in self.reflex if j != name]
+                for j in users:
+                    need.setdefault(j, []).append(vb.t)
+                    need_vel[j] = True
+                self.vel.append((name, vb, users))
+        self.union = {j: np.unique(np.concatenate(ts)) for j, ts in need.items()}
+        self.dt = {j: t - self.t_ref for j, t in self.union.items()}
+        self.need_vel = {j: need_vel.get(j, False) for j in self.union}
+
+        def columns(j, t):
+            u = self.union[j]
+            if u.size == t.size and np.array_equal(u, t):
+                return None
+            return np.searchsorted(u, t)
+
+        self.astro = [(name, ab, [(j, columns(j, ab.t)) for j in users], ab.t - self.t_ref,
+                       bool(np.all(ab.w12 == 0.0)) and not ab.any_polar)
+                      for name, ab, users in self.astro]
+        vel = []
+        for name, vb, users in self.vel:
+            inst_names = [self.instrument_names[i] for i in vb.used]
+            fixed_jitter = all(space.jitter_idx[n] is None for n in inst_names)
+            info = {"single": len(vb.used) == 1, "fixed_jitter": fixed_jitter,
+                    "any_central": bool(vb.central.any())}
+            if fixed_jitter:
+                jit = np.array([float(space.target.instruments[n].jitter.value) for n in self.instrument_names])
+                var = vb.var + jit[vb.inst] ** 2
+                info["inv_var"] = 1.0 / var
+                info["const"] = float(-0.5 * np.sum(np.log(var) + LOG_2PI))
+            vel.append((name, vb, [(j, columns(j, vb.t)) for j in users], info))
+        self.vel = vel
+        self._work: dict = {}
+
+    def without_work(self) -> _FusedPlan:
+        """A copy without the work arrays (for pickling)."""
+        new = object.__new__(_FusedPlan)
+        new.__dict__.update(self.__dict__)
+        new._work = {}
+        return new
+
+    def _buffers(self, n: int) -> dict:
+        work = self._work.get(n)
+        if work is None:
+            if len(self._work) > 8:
+                self._work.clear()
+            work = {}
+            for j, t in self.union.items():
+                m = t.size
+                arrs = [np.empty((n, m)) for _ in range(5 if self.need_vel[j] else 4)]
+                work[j] = (arrs, rows_work(n, m))
+            for k, (_, ab, _, _, _) in enumerate(self.astro):
+                work[("a", k)] = [np.empty((n, ab.t.size)) for _ in range(5)]
+            for k, (_, vb, _, _) in enumerate(self.vel):
+                work[("v", k)] = [np.empty((n, vb.t.size)) for _ in range(3)]
+            self._work[n] = work
+        return work
+
+    def evaluate(self, phys: Mapping[str, NDArray[np.float64]]) -> NDArray[np.float64]:
+        """Log-likelihood of unpacked quantities ``phys`` (arrays of shape (n_sets,))."""
+        n = phys["mass_msun"].shape[0]
+        work = self._buffers(n)
+        mass = phys["mass_msun"]
+        dist = phys["distance_pc"]
+        orbit = {}
+        for j, dt in self.union.items():
+            (cos_e, sin_e, x, y, *rest), kwork = work[j]
+            period = phys[f"{j}.period_yr"]
+            ecc = phys[f"{j}.ecc"][:, None]
+            np.multiply((TWO_PI / phys[f"{j}.period_obs_yr"])[:, None], self.dt[j], out=x)
+            np.add(x, phys[f"{j}.m0"][:, None], out=x)  # mean anomaly
+            kepler_cos_sin_rows(x, ecc, cos_e, sin_e, kwork)
+            root = np.sqrt(1.0 - ecc * ecc)
+            np.subtract(cos_e, ecc, out=x)  # X
+            np.multiply(sin_e, root, out=y)  # Y
+            a_au = semimajor_axis_au(mass, period)
+            omega = phys[f"{j}.omega"]
+            node = phys[f"{j}.node"]
+            ti = thiele_innes(1.0, phys[f"{j}.cos_i"], phys[f"{j}.sin_i"], np.cos(omega), np.sin(omega),
+                              np.cos(node), np.sin(node))
+            entry = {"x": x, "y": y, "ti_mas": [c * (a_au / dist * 1000.0) for c in ti[:4]]}
+            if self.need_vel[j]:
+                u = rest[0]
+                # v_z = n_rest (C dX/dM + H dY/dM) = n_rest a (H sqrt(1-e^2) cos E - C sin E) / (1 - e cos E)
+                rate = (TWO_PI * KMS_PER_AU_PER_YR / period) * a_au
+                hc = (rate * ti[5])[:, None] * root
+                cs = (rate * ti[4])[:, None]
+                np.multiply(cos_e, hc, out=u)
+                np.multiply(sin_e, cs, out=sin_e)
+                np.subtract(u, sin_e, out=u)
+                np.multiply(cos_e, ecc, out=cos_e)
+                np.subtract(1.0, cos_e, out=cos_e)
+                np.divide(u, cos_e, out=u)
+                entry["vz"] = u
+            orbit[j] = entry
+        ll = np.zeros(n)
+        for k, (name, ab, users, dt, diagonal) in enumerate(self.astro):
+            east, north, gx, gy, tmp = work[("a", k)]
+            first = True
+            for j, idx in users:
+                o = orbit[j]
+                A, B, F, G = o["ti_mas"]
+                if j != name or (self.absolute and j in self.reflex):
+                    f = phys[f"{j}.q"] / (1.0 + phys[f"{j}.q"])
+                    coef = -f if j != name else 1.0 - f
+                    A, B, F, G = A * coef, B * coef, F * coef, G * coef
+                x, y = o["x"], o["y"]
+                if idx is not None:
+                    x = np.take(x, idx, axis=1, out=gx)
+                    y = np.take(y, idx, axis=1, out=gy)
+                if first:
+                    np.multiply(x, B[:, None], out=east)
+                    np.multiply(x, A[:, None], out=north)
+                else:
+                    east += np.multiply(x, B[:, None], out=tmp)
+                    north += np.multiply(x, A[:, None], out=tmp)
+                east += np.multiply(y, G[:, None], out=tmp)
+                north += np.multiply(y, F[:, None], out=tmp)
+                first = False
+            if self.absolute:
+                east += phys["x0"][:, None]
+                east += phys["vx0"][:, None] * dt
+                north += phys["y0"][:, None]
+                north += phys["vy0"][:, None] * dt
+            if ab.any_polar:
+                ll += ab.log_likelihood(east, north)
+                continue
+            np.subtract(ab.v1, east, out=east)
+            np.subtract(ab.v2, north, out=north)
+            if diagonal:
+                chi2 = np.multiply(east, east, out=tmp) @ ab.w11
+            else:
+                chi2 = np.multiply(east, north, out=tmp) @ ab.w12
+                chi2 += np.multiply(east, east, out=tmp) @ ab.w11
+            chi2 += np.multiply(north, north, out=tmp) @ ab.w22
+            ll += ab.const - 0.5 * chi2
+        for k, (name, vb, users, info) in enumerate(self.vel):
+            model, tmp, tmp2 = work[("v", k)]
+            first = True
+            for j, idx in users:
+                u = orbit[j]["vz"]
+                if idx is not None:
+                    u = np.take(u, idx, axis=1, out=tmp2)
+                if j != name:
+                    f = (phys[f"{j}.q"] / (1.0 + phys[f"{j}.q"]))[:, None]
+                    np.multiply(u, f, out=tmp)
+                    np.subtract(model, tmp, out=model)
+                    continue
+                # own orbit: companion rows see it, central rows do not; minus its own reflex pull
+                if info["any_central"] or j in self.reflex:
+                    weight = vb.companion_rows.astype(float)[None, :]
+                    if j in self.reflex:
+                        weight = weight - (phys[f"{j}.q"] / (1.0 + phys[f"{j}.q"]))[:, None]
+                    np.multiply(u, weight, out=model)
+                else:
+                    np.copyto(model, u)
+                first = False
+            if first:  # cannot happen: the own companion is always the first user
+                model.fill(0.0)
+            base = phys["vz0"] if self.absolute else phys["systemic"]
+            if info["single"]:
+                level = base + phys[f"offset.{self.instrument_names[vb.used[0]]}"]
+                np.subtract(vb.rv, model, out=model)
+                np.subtract(model, level[:, None], out=model)
+            else:
+                offsets = np.stack([phys[f"offset.{nm}"] for nm in self.instrument_names], axis=1)
+                np.subtract(vb.rv, model, out=model)
+                model -= offsets[:, vb.inst]
+                model -= base[:, None]
+            if info["fixed_jitter"]:
+                ll += info["const"] - 0.5 * (np.multiply(model, model, out=tmp) @ info["inv_var"])
+            else:
+                jitter = np.stack([phys[f"jitter.{nm}"] for nm in self.instrument_names], axis=1)
+                var = vb.var[None, :] + jitter[:, vb.inst] ** 2
+                np.multiply(model, model, out=tmp)
+                tmp /= var
+                tmp += np.log(var)
+                ll -= 0.5 * (tmp.sum(axis=1) + LOG_2PI * vb.t.size)
+        return ll
