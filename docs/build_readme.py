@@ -168,10 +168,10 @@ def collect_demo(folder: Path) -> dict:
     extra = {}
     known = {(folder / "runs" / name / "summary.json").resolve() for name in runs}
     for path in sorted(folder.rglob("summary.json")):
-        if path.resolve() in known:
-            continue
         s = _read_json(path)
         factors = {k: _interval(k, s["derived"][k]) for k in _BEYOND_KEPLER if k in s.get("derived", {})}
+        if path.resolve() in known and not factors:  # a known run is kept here only for its factors
+            continue
         if not factors:
             continue  # a Keplerian run (a team's fit, the joint refit): described elsewhere
         names = list(s.get("companions", {}))

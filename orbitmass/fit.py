@@ -8,7 +8,7 @@ checkpoints); ``summary.json`` is built by
 Examples
 --------
 >>> from orbitmass import Fit                                  # doctest: +SKIP
->>> fit = Fit(seed=1).fit("examples/nucleus/target.toml")     # doctest: +SKIP
+>>> fit = Fit(seed=1).fit("examples/tessaly/target.toml")     # doctest: +SKIP
 >>> fit.summary_table().loc["mass_msun"]                      # doctest: +SKIP
 >>> fit.save("run-1")                                          # doctest: +SKIP
 """
