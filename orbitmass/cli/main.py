@@ -37,7 +37,8 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="orbitmass",
         description="Weigh dark central objects from the orbits of things tracked around them: "
-                    "Keplerian fits of positions and line-of-sight velocities, with posteriors for "
+                    "orbit fits (Keplerian, optionally with relativistic terms) of positions and line-of-sight "
+                    "velocities, with posteriors for "
                     "the enclosed mass, the distance and every orbital element.",
     )
     parser.add_argument("--version", action="version", version=f"orbitmass {__version__}")
