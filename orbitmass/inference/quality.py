@@ -116,6 +116,9 @@ RANK_TOLERANCE = 1e-6
 UNIT_SCALE = 10.0
 #: Structure statistic (1 - von Neumann ratio) * sqrt(n) above which residuals are structured.
 STRUCTURE_Z = 4.0
+#: Most (draw x value) entries of one block of the posterior-draw chi-squares: a handful of
+#: float64 arrays of 2 MiB each, so 200 draws of a 100,000-row table never need 160 MB arrays.
+DRAW_BLOCK_VALUES = 2**18
 
 _ROW_P = 2.0 * stats.norm.sf(ROW_SIGMA)
 _DOF_CONVENTION = ("n_values - p; p = rank of the whitened model Jacobian in the sampled variables "
@@ -614,11 +617,14 @@ def _assess(space, theta, log_post, *, rng, n_draws, polish):
 
     # posterior draws and the predictive check
     idx = rng.choice(theta.shape[0], size=min(n_draws, theta.shape[0]), replace=False)
-    with np.errstate(all="ignore"):
-        m_draw, s_draw = vals.model(theta[idx])
-        w_draw = vals.whiten(vals.residuals(m_draw), s_draw)
-    chi2_draw = np.stack([np.sum(w_draw[:, vals.dataset == d] ** 2, axis=1) for d in range(n_d)], axis=1) \
-        if n_d else np.zeros((idx.size, 0))
+    chi2_draw = np.zeros((idx.size, n_d))
+    step = max(1, DRAW_BLOCK_VALUES // max(vals.n, 1))  # draws per block: bounded memory on long tables
+    for k in range(0, idx.size, step):
+        with np.errstate(all="ignore"):
+            m_draw, s_draw = vals.model(theta[idx[k: k + step]])
+            w_draw = vals.whiten(vals.residuals(m_draw), s_draw)
+        for d in range(n_d):
+            chi2_draw[k: k + step, d] = np.sum(w_draw[:, vals.dataset == d] ** 2, axis=1)
     n_per = np.bincount(vals.dataset, minlength=n_d)
     rep = rng.chisquare(np.maximum(n_per, 1), size=(idx.size, n_d)) if n_d else np.zeros((idx.size, 0))
 
