@@ -9,8 +9,10 @@ Sections, run in this order in one process so that machine noise is shared
 by each figure and its baseline: ``kepler`` (bench_kepler), ``likelihood``
 (bench_likelihood), ``predict`` (bench_predict), ``problems`` (bench_problems), ``scaling``
 (bench_scaling), ``profile`` (cProfile of one fit), ``demo`` (the demo's
-single-companion fits against the 10 s target; full mode only) and
-``batch`` (bench_batch, when the module exists).
+single-companion fits against the 10 s target; full mode only),
+``batch`` (bench_batch, when the module exists) and ``rows`` (bench_rows: a
+whole astrometry-only fit of 1e3, 1e4 and 1e5 rows, time and memory per stage;
+full mode only, as it takes many minutes).
 
 The suite reports and never asserts on timing: it exits 0 whatever the
 figures are, and 1 only when a section raised (the error is recorded in
@@ -41,7 +43,9 @@ __all__ = ["SECTIONS", "run_suite", "targets", "write_json", "main"]
 
 HERE = Path(__file__).resolve().parent
 DEFAULT_OUT = HERE / "results.json"
-SECTIONS = ("kepler", "likelihood", "predict", "problems", "scaling", "profile", "demo", "batch")
+SECTIONS = ("kepler", "likelihood", "predict", "problems", "scaling", "profile", "demo", "batch", "rows")
+#: Sections left out of ``--quick`` unless named with ``--only`` (each takes minutes).
+FULL_ONLY = ("demo", "rows")
 DEMO_TARGET_S = 10.0
 
 
@@ -219,7 +223,8 @@ def run_suite(quick: bool, only: list[str] | None = None, skip: list[str] | None
     ----------
     quick : bool
         Quick modes of every section (the whole suite in under three minutes on
-        an idle 2-core machine); the ``demo`` section runs in full mode only.
+        an idle 2-core machine); the ``demo`` and ``rows`` sections run in full
+        mode only (or when named in ``only``).
     only, skip : list of str, optional
         Section names to run, or to leave out.
     echo : callable, optional
@@ -235,7 +240,7 @@ def run_suite(quick: bool, only: list[str] | None = None, skip: list[str] | None
     """
     chosen = [s for s in SECTIONS if (not only or s in only) and s not in (skip or [])]
     if quick and not only:
-        chosen = [s for s in chosen if s != "demo"]
+        chosen = [s for s in chosen if s not in FULL_ONLY]
     import numpy as np
 
     data: dict = {

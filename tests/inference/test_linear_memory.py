@@ -8,60 +8,24 @@
   sets on a long table against the block budget, where the unblocked arrays would be
   far larger.
 
-Data: the independent simulator of validation/simulator.py (its own Kepler solver and
-rotation matrices), invented elements.
+Data: tables of an invented system simulated by the independent simulator of
+validation/simulator.py (its own Kepler solver and rotation matrices), written by
+benchmarks/bench_rows.py, which measures the same path at 1e3-1e5 rows.
 """
 
 from __future__ import annotations
 
 import math
-import textwrap
 import tracemalloc
-from pathlib import Path
 
 import numpy as np
 import pytest
 from scipy import optimize
 
+from benchmarks.bench_rows import SYSTEM, write_target  # tables simulated by validation/simulator.py
 from orbitmass.inference.linear import BLOCK_ELEMENTS, LinearAstrometryPosterior, expand
 from orbitmass.io.target import read_target
 from orbitmass.model.parameters import ParameterSpace
-from validation.simulator import Orbit, System, observe
-
-SYSTEM = System(mass_msun=1.9, distance_pc=18.0, orbits={"m": Orbit(6.5, 0.3, 63.0, 20.0, 75.0, 2016.0)})
-ERR_MAS = 1.5
-
-
-def _target(folder: Path, n_rows: int, seed: int = 8) -> Path:
-    """A one-companion east/north table of ``n_rows`` simulated rows (invented system) and its target file."""
-    rng = np.random.default_rng(seed)
-    t = np.sort(rng.uniform(2010.0, 2024.0, n_rows))
-    obs = observe(SYSTEM, "m", t, t)
-    east = obs["east_mas"] + rng.normal(0.0, ERR_MAS, n_rows)
-    north = obs["north_mas"] + rng.normal(0.0, ERR_MAS, n_rows)
-    folder.mkdir(parents=True, exist_ok=True)
-    lines = ["jyear,east_mas,north_mas,east_err_mas,north_err_mas"]
-    lines += [f"{a:.7f},{b:.5f},{c:.5f},{ERR_MAS},{ERR_MAS}" for a, b, c in zip(t, east, north)]
-    (folder / "pos.csv").write_text("\n".join(lines) + "\n", encoding="utf-8")
-    text = """
-    [target]
-    name = "invented long table"
-    reference_epoch = 2017.0
-
-    [central]
-    mass = { dist = "log-uniform", low = "0.05 solMass", high = "50 solMass" }
-
-    [distance]
-    parallax = { dist = "normal", mean = "55.5 mas", sd = "0.5 mas" }
-
-    [[companion]]
-    name = "m"
-    astrometry = "pos.csv"
-    period = { dist = "log-uniform", low = "0.5 yr", high = "200 yr" }
-    """
-    path = folder / "target.toml"
-    path.write_text(textwrap.dedent(text), encoding="utf-8")
-    return path
 
 
 def _sets(post: LinearAstrometryPosterior, n: int, seed: int = 3) -> np.ndarray:
@@ -72,7 +36,7 @@ def _sets(post: LinearAstrometryPosterior, n: int, seed: int = 3) -> np.ndarray:
 
 @pytest.fixture(scope="module")
 def small_space(tmp_path_factory) -> ParameterSpace:
-    return ParameterSpace(read_target(_target(tmp_path_factory.mktemp("rows") / "t", 300)))
+    return ParameterSpace(read_target(write_target(tmp_path_factory.mktemp("rows"), 300)))
 
 
 def _independent_beta(space: ParameterSpace, period_yr: float, ecc: float, m0: float) -> np.ndarray:
@@ -128,7 +92,7 @@ def test_log_density_and_solution_matches_call_and_expand(small_space):
 
 def test_many_sets_on_a_long_table_stay_within_the_block_budget(tmp_path):
     n_rows, n_sets = 20_000, 500
-    space = ParameterSpace(read_target(_target(tmp_path / "long", n_rows)))
+    space = ParameterSpace(read_target(write_target(tmp_path, n_rows)))
     post = LinearAstrometryPosterior(space, rng=np.random.default_rng(5))
     theta = _sets(post, n_sets)
     orb = SYSTEM.orbits["m"]  # the simulated orbit as set 0; M0 at the reference epoch 2017
