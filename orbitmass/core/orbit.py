@@ -333,12 +333,10 @@ class FusedOrbit:
       beta cos E))`` (``1 - beta cos E > 0``, so ``atan`` of the quotient
       equals the ``atan2`` of :mod:`orbitmass.core.relativity`), ``nu_ref``
       from one more column of the same Kepler solve (the reference epoch with
-      the observed-epoch eccentricity), and ``cos delta``, ``sin delta`` from
-      ``t = tan(delta / 2)``: ``2 / (1 + t^2) - 1`` and ``t 2 / (1 + t^2)``
-      (a ``tan`` costs a fraction of a ``sin`` plus a ``cos``). The rotated
-      rates are ``R(delta) (dX - rate Y, dY + rate X)``, so ``v_z = n_rest (C
-      dX_r + H dY_r)`` and ``dX_r^2 + dY_r^2 = (dX - rate Y)^2 + (dY +
-      rate X)^2`` need no rotation of the rates;
+      the observed-epoch eccentricity); the rotated orbit in polar form
+      (:meth:`_apsidal`), with ``cos psi``, ``sin psi`` from ``t = tan(psi /
+      2)``: ``2 / (1 + t^2) - 1`` and ``2 t / (1 + t^2)`` (a ``tan`` costs a
+      small fraction of a ``sin`` plus a ``cos``);
     * velocity shifts: their coefficients add.
 
     Agrees with :func:`evaluate` to round-off

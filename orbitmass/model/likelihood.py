@@ -27,19 +27,25 @@ Two evaluation paths
 :meth:`LogPosterior.log_likelihood_reference` is the plain path: every orbit
 through :func:`~orbitmass.core.orbit.evaluate` and :func:`predict_system`,
 the same code predictions and figures use. It is the reference, and it is
-what runs whenever the space has model terms.
+what runs when a model term of the space lacks the fused form of one of its
+hooks (:meth:`orbitmass.core.orbit.FusedOrbit.supports`), or when a fused
+form declines for the parameter sets of a call (the Roemer delay's folded
+Kepler equation for an eccentricity within ~v/c of 1).
 
-Without model terms :meth:`LogPosterior.log_likelihood` takes the fused path
-(:class:`_FusedPlan`): the same model, evaluated with the Keplerian formulas
-of :mod:`orbitmass.core.orbit` written out so that each companion's Kepler
-equation is solved once on the union of all epochs where its orbit is needed
-(positions and velocities taken at the same epoch share one solve), positions,
-velocities and residuals are computed in place in work arrays kept between
-calls (one set per block size; they are dropped when the posterior is
+Otherwise :meth:`LogPosterior.log_likelihood` takes the fused path
+(:class:`_FusedPlan`): the same model, with each companion's orbit evaluated
+by :class:`~orbitmass.core.orbit.FusedOrbit` (the Keplerian formulas and the
+terms of :mod:`orbitmass.core.relativity` written out in place) so that its
+Kepler equation is solved once on the union of all epochs where its orbit is
+needed (positions and velocities taken at the same epoch share one solve),
+positions, velocities and residuals are computed in place in work arrays kept
+between calls (one set per block size; they are dropped when the posterior is
 pickled and are never returned), and the weighted sums of squares are
 matrix-vector products. Constant parts (the normalisation of rows whose
 jitter is fixed, their inverse variances) are computed once. The two paths
-agree to round-off (``tests/test_likelihood_fast.py``: 1e-12 relative).
+agree to round-off (``tests/test_likelihood_fast.py``: 1e-12 relative
+without terms; ``tests/model/test_likelihood_terms_fused.py``: 1e-10 with
+every combination of terms).
 """
 
 from __future__ import annotations
@@ -274,8 +280,8 @@ class LogPosterior:
     blocks : tuple, optional
         ``(astrometry, velocities)`` blocks to reuse (see :meth:`with_space`).
     fused : bool
-        Use the fused Keplerian path when the space has no model terms
-        (default); False always takes :meth:`log_likelihood_reference`.
+        Use the fused path when every model term of the space has its fused
+        forms (default); False always takes :meth:`log_likelihood_reference`.
 
     Attributes
     ----------
@@ -342,7 +348,7 @@ class LogPosterior:
     def log_likelihood(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
         """Log-likelihood of every row of ``theta`` (n_sets, n_dim) -> (n_sets,).
 
-        The fused path when the space has no model terms, else
+        The fused path when the space's model terms allow it, else
         :meth:`log_likelihood_reference` (module docstring).
         """
         if self._plan is None:
