@@ -30,7 +30,7 @@ from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.inference.pipeline import build_space
 from orbitmass.io.target import read_target
 from orbitmass.model.likelihood import LogPosterior, orbit_states
-from tests.test_likelihood_fast import _system
+from tests.test_likelihood_fast import _system, _values
 
 REL = 1e-10
 
@@ -90,17 +90,11 @@ def _write(folder, stars, *, absolute: bool, tables: str, seed: int) -> object:
 
 
 def _truth(space, stars) -> dict:
-    v = {"mass_msun": 4.1e6, "distance_pc": 8200.0, "systemic": 0.0, "vz0": 0.0, "x0": 0.0, "y0": 0.0,
-         "vx0": 0.0, "vy0": 0.0, "offset.spec-a": 0.0, "offset.spec-b": 7.0, "jitter.spec-a": 3.0,
-         "jitter.spec-b": 0.0, "redshift_factor": 1.0, "precession_factor": 1.0, "extended_mass_fraction": 0.01}
-    for name, o in stars:
-        v[f"{name}.period_yr"] = o.period_yr
-        v[f"{name}.ecc"] = o.eccentricity
-        v[f"{name}.omega"] = np.radians(o.arg_periastron_deg)
-        v[f"{name}.node"] = np.radians(o.ascending_node_deg)
-        v[f"{name}.cos_i"] = np.cos(np.radians(o.inclination_deg))
-        v[f"{name}.m0"] = 2 * np.pi * (space.t_ref - o.periastron_time) / o.period_yr
-        v[f"{name}.q"] = 0.05
+    """The values of tests/test_likelihood_fast.py for ``stars``, with this module's central body and terms."""
+    v = _values(space, stars)
+    v.update({"mass_msun": 4.1e6, "distance_pc": 8200.0, "redshift_factor": 1.0, "precession_factor": 1.0,
+              "extended_mass_fraction": 0.01})
+    v.update({f"{name}.q": 0.05 for name, _ in stars})
     return v
 
 
