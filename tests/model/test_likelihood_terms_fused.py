@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 
 from orbitmass.core.orbit import FusedOrbit, evaluate
-from orbitmass.core.relativity import RoemerTerm
+from orbitmass.core.relativity import ExtendedMassTerm, PrecessionTerm, RedshiftTerm, RoemerTerm
 from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.inference.pipeline import build_space
 from orbitmass.io.target import read_target
@@ -215,3 +215,34 @@ def test_pickled_posterior_with_terms(tmp_path):
     # block sizes change between calls: the work arrays of each size are kept apart
     for n in (1, 5, len(theta)):
         np.testing.assert_allclose(post(theta[:n]), before[:n], rtol=1e-14, atol=0)
+
+
+def test_separate_precession_terms_and_unsupported_terms(tmp_path):
+    """Two precession terms given apart (not combined) rotate like one; a term without fused forms is refused."""
+    on, fixed, radius = CONFIGS["all"]
+    space = build_space(_write(tmp_path, STARS[:1], absolute=False, tables=_tables(on, fixed, radius), seed=8))
+    theta = np.vstack(_parameter_sets(space, STARS[:1], np.random.default_rng(9)))
+    phys = space.unpack(theta)
+    extra = space.term_values(phys)
+    state = orbit_states(space, phys)["S1"]
+    terms = (RoemerTerm(), PrecessionTerm(), ExtendedMassTerm(scale_radius_mas=20.0), RedshiftTerm())
+    t = np.linspace(2001.0, 2027.0, 61)
+    kernel = FusedOrbit(t - space.t_ref, terms)
+    x, y, vz = kernel(state, extra, kernel.work(theta.shape[0]))
+    ref = evaluate(state, t, terms=terms, extra=extra)  # the reference rotates twice, in turn
+    A, B, F, G = state.ti_mas
+    for got, want in ((A * x + F * y, ref["north_mas"]), (B * x + G * y, ref["east_mas"]), (vz, ref["vz_kms"])):
+        assert np.max(np.abs(got - want) / np.max(np.abs(want), axis=1, keepdims=True)) < 1e-11
+
+    class Drift:  # a velocity hook without its fused form (the contract of orbitmass.core.orbit)
+        name = "drift"
+        parameters = ()
+        linear_safe = False
+
+        def velocity_shift(self, state, basis, vz, extra):
+            return 0.0 * vz + 1.0
+
+    assert FusedOrbit.supports(terms) and not FusedOrbit.supports(terms + (Drift(),))
+    assert not FusedOrbit.supports((RoemerTerm(), RoemerTerm()))  # one emission-time term at most
+    with pytest.raises(ValueError, match="fused form"):
+        FusedOrbit(t, (Drift(),))
