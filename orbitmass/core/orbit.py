@@ -384,7 +384,7 @@ class FusedOrbit:
         names = ["X", "Y", "t1", "t2", "inv"]
         if self.velocities:
             names += ["vz", "dx", "dy"]
-        if self.fold:
+        if self.fold and not self.advances:
             names += ["cos_e", "sin_e"]
         if self.advances:
             names += ["nu", "c", "s"]
@@ -430,10 +430,11 @@ class FusedOrbit:
             kepler_cos_sin_rows(mean, ecc, cos_k, sin_k, w["kepler"])
         cos_s, sin_s = (cos_k[:, :m], sin_k[:, :m]) if self.advances else (cos_k, sin_k)
         t1, t2 = w["t1"], w["t2"]
-        if self.advances:  # unwrapped eccentric anomaly less phi: M' + e' sin E'
+        if self.advances:  # unwrapped eccentric anomaly less phi, M' + e' sin E'; then the rotated orbit
             nu = w["nu"]
             np.multiply(sin_s, e_solve, out=nu)
             np.add(nu, mean[:, :m], out=nu)
+            return self._apsidal(state, extra, w, cos_s, sin_s, phi)
         if self.fold:  # E = E' + phi
             cos_e, sin_e = w["cos_e"], w["sin_e"]
             cos_phi, sin_phi = np.cos(phi), np.sin(phi)
@@ -446,8 +447,6 @@ class FusedOrbit:
         else:
             cos_e, sin_e = cos_s, sin_s
         root = np.sqrt(1.0 - ecc * ecc)
-        if self.advances:
-            return self._apsidal(state, extra, w, cos_e, sin_e, root, e_solve, phi)
         X, Y = w["X"], w["Y"]
         np.subtract(cos_e, ecc, out=X)
         np.multiply(sin_e, root, out=Y)
@@ -497,7 +496,7 @@ class FusedOrbit:
             k_v2, k_r = k_v2 + a, k_r + b
         return k_v2, k_r
 
-    def _apsidal(self, state, extra, w, cos_e, sin_e, root, e_solve, phi):
+    def _apsidal(self, state, extra, w, cos_s, sin_s, phi):
         """The orbit rotated by the summed apsidal rotations, in polar form.
 
         With ``rho = 1 - e cos E = r / a`` and ``psi = nu + delta = (1 + k) nu -
@@ -508,10 +507,13 @@ class FusedOrbit:
         psi - g sin psi) / rho`` and ``(e sin E sin psi + g cos psi) / rho``
         with ``g = (1 + k) sqrt(1 - e^2)``; so ``dX_r^2 + dY_r^2 = ((e sin
         E)^2 + g^2) / rho^2``. ``cos psi``, ``sin psi`` from ``t = tan(psi /
-        2)``.
+        2)``. ``E = E' + phi`` enters through ``beta cos E`` and ``beta sin E``
+        only (angle addition with the per-set ``beta cos phi``, ``beta sin
+        phi``), and ``e = beta (1 + sqrt(1 - e^2))``.
         """
         m = self.m
         ecc = state.ecc
+        root = np.sqrt(1.0 - ecc * ecc)
         advance = 0.0
         for term in self.advances:
             advance = advance + term.apsidal_advance(state, extra)
@@ -521,9 +523,23 @@ class FusedOrbit:
         c0, s0 = w["cos_k"][:, m:], w["sin_k"][:, m:]
         nu_ref = state.mean_anomaly_ref + ecc * s0 + 2.0 * np.arctan2(beta * s0, 1.0 - beta * c0)
         nu, c, s, t1 = w["nu"], w["c"], w["s"], w["t1"]
-        np.multiply(cos_e, beta, out=c)
+        if self.fold:
+            b_cos, b_sin = beta * np.cos(phi), beta * np.sin(phi)
+            np.multiply(cos_s, b_cos, out=c)
+            np.multiply(sin_s, b_sin, out=t1)
+            np.subtract(c, t1, out=c)  # beta cos E
+            np.multiply(sin_s, b_cos, out=s)
+            np.multiply(cos_s, b_sin, out=t1)
+            np.add(s, t1, out=s)  # beta sin E
+        else:
+            np.multiply(cos_s, beta, out=c)
+            np.multiply(sin_s, beta, out=s)
+        rho, es = w["inv"], w["t2"]
+        np.multiply(c, 1.0 + root, out=rho)
+        np.subtract(1.0, rho, out=rho)  # 1 - e cos E
+        if self.velocities:
+            np.multiply(s, 1.0 + root, out=es)  # e sin E
         np.subtract(1.0, c, out=c)
-        np.multiply(sin_e, beta, out=s)
         np.divide(s, c, out=s)
         np.arctan(s, out=s)
         np.add(nu, s, out=nu)
@@ -537,27 +553,22 @@ class FusedOrbit:
         np.divide(2.0, c, out=c)
         np.multiply(nu, c, out=s)  # sin psi
         np.subtract(c, 1.0, out=c)  # cos psi
-        rho, X, Y = w["inv"], w["X"], w["Y"]
-        np.multiply(cos_e, ecc, out=rho)
-        np.subtract(1.0, rho, out=rho)
+        X, Y = w["X"], w["Y"]
         np.multiply(rho, c, out=X)
         np.multiply(rho, s, out=Y)
         if not self.velocities:
             return X, Y, None
-        vz, es = w["vz"], w["dx"]
+        vz = w["vz"]
         inv = np.divide(1.0, rho, out=rho)
-        np.multiply(sin_e, ecc, out=es)
         g = (1.0 + scale) * root
         k_c, k_h = self._velocity_constants(state)
-        # v_z rho = e sin E (k_c cos psi + k_h sin psi) + g (k_h cos psi - k_c sin psi)
-        t2 = w["dy"]
-        np.multiply(c, k_c, out=t1)
-        np.multiply(s, k_h, out=t2)
-        np.add(t1, t2, out=t1)
-        np.multiply(t1, es, out=vz)
-        np.multiply(c, g * k_h, out=t1)
-        np.multiply(s, g * k_c, out=t2)
-        np.subtract(t1, t2, out=t1)
+        # v_z rho = cos psi (e sin E k_c + g k_h) + sin psi (e sin E k_h - g k_c)
+        np.multiply(es, k_c, out=t1)
+        np.add(t1, g * k_h, out=t1)
+        np.multiply(t1, c, out=vz)
+        np.multiply(es, k_h, out=t1)
+        np.subtract(t1, g * k_c, out=t1)
+        np.multiply(t1, s, out=t1)
         np.add(vz, t1, out=vz)
         if self.shifts:
             k_v2, k_r = self._shift_coefficients(state, extra)

@@ -222,12 +222,13 @@ def plummer_precession_per_orbit(mass_msun, a_au, ecc, fraction, scale_radius_au
     n_nodes = int(min(n_nodes, max(32, 2 * math.ceil(20.0 / sigma)))) if math.isfinite(sigma) else min(n_nodes, 32)
     cos_e, weights, weights_cos = _trapezoid_half_circle(n_nodes)
     ecc_safe = np.maximum(ecc, 1e-8)
-    r = a[..., None] * (1.0 - ecc_safe[..., None] * cos_e)
-    # g = -R / (G M_ext) in 1/au^2 (G M_ext = fraction * G M); Int g (cos E - e) dE as two sums
-    q = r * r + (b * b)[..., None]
-    g = r / (q * np.sqrt(q))
+    # in units of a: rho = r / a, g = a^2 (-R / (G M_ext)) (G M_ext = fraction * G M); Int g (cos E - e) dE
+    # as two sums
+    rho = 1.0 - ecc_safe[..., None] * cos_e
+    q = rho * rho + ((b / a) ** 2)[..., None]
+    g = rho / (q * np.sqrt(q))
     integral = g @ weights_cos - ecc_safe * (g @ weights)
-    out = np.sqrt(1.0 - ecc * ecc) * a * a * frac * integral / ecc_safe
+    out = np.sqrt(1.0 - ecc * ecc) * frac * integral / ecc_safe
     if np.shape(mass_msun) != out.shape:  # the mass does not enter (G M cancels) but sets the shape
         out = np.broadcast_to(out, np.broadcast_shapes(out.shape, np.shape(mass_msun))).copy()
     return out
