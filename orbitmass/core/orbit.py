@@ -437,13 +437,7 @@ class FusedOrbit:
             return self._apsidal(state, extra, w, cos_s, sin_s, phi)
         if self.fold:  # E = E' + phi
             cos_e, sin_e = w["cos_e"], w["sin_e"]
-            cos_phi, sin_phi = np.cos(phi), np.sin(phi)
-            np.multiply(sin_s, sin_phi, out=t1)
-            np.multiply(cos_s, cos_phi, out=cos_e)
-            np.subtract(cos_e, t1, out=cos_e)
-            np.multiply(cos_s, sin_phi, out=t1)
-            np.multiply(sin_s, cos_phi, out=sin_e)
-            np.add(sin_e, t1, out=sin_e)
+            _add_angle(cos_s, sin_s, np.cos(phi), np.sin(phi), cos_e, sin_e, t1)
         else:
             cos_e, sin_e = cos_s, sin_s
         root = np.sqrt(1.0 - ecc * ecc)
@@ -524,13 +518,7 @@ class FusedOrbit:
         nu_ref = state.mean_anomaly_ref + ecc * s0 + 2.0 * np.arctan2(beta * s0, 1.0 - beta * c0)
         nu, c, s, t1 = w["nu"], w["c"], w["s"], w["t1"]
         if self.fold:
-            b_cos, b_sin = beta * np.cos(phi), beta * np.sin(phi)
-            np.multiply(cos_s, b_cos, out=c)
-            np.multiply(sin_s, b_sin, out=t1)
-            np.subtract(c, t1, out=c)  # beta cos E
-            np.multiply(sin_s, b_cos, out=s)
-            np.multiply(cos_s, b_sin, out=t1)
-            np.add(s, t1, out=s)  # beta sin E
+            _add_angle(cos_s, sin_s, beta * np.cos(phi), beta * np.sin(phi), c, s, t1)  # beta cos E, beta sin E
         else:
             np.multiply(cos_s, beta, out=c)
             np.multiply(sin_s, beta, out=s)
@@ -581,6 +569,17 @@ class FusedOrbit:
             np.add(vz, k_r, out=vz)
         np.multiply(vz, inv, out=vz)
         return X, Y, vz
+
+
+def _add_angle(cos_a, sin_a, k_cos_b, k_sin_b, out_cos, out_sin, tmp) -> None:
+    """``k cos(a + b)`` and ``k sin(a + b)`` into ``out_cos``, ``out_sin`` from ``cos a``, ``sin a`` (arrays) and
+    ``k cos b``, ``k sin b`` (per-set constants); ``tmp`` is scratch of the arrays' shape."""
+    np.multiply(sin_a, k_sin_b, out=tmp)
+    np.multiply(cos_a, k_cos_b, out=out_cos)
+    np.subtract(out_cos, tmp, out=out_cos)
+    np.multiply(cos_a, k_sin_b, out=tmp)
+    np.multiply(sin_a, k_cos_b, out=out_sin)
+    np.add(out_sin, tmp, out=out_sin)
 
 
 def relative_orbit(t_yr, *, t_ref_yr: float, period_obs_yr, period_rest_yr, ecc, mean_anomaly_ref,
