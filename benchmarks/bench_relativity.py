@@ -169,21 +169,28 @@ def run(quick: bool = False) -> dict:
     return out
 
 
+def table(res: dict) -> str:
+    """The figures of :func:`run` as text (also the section of ``python -m benchmarks``)."""
+    lines = [
+        f"likelihood of {res['n_sets']} parameter sets x {res['n_epochs']} epochs (a position and a velocity each)",
+        f"  kepler                 {res['kepler']['us_per_set']:8.2f} us per set",
+        f"  all terms              {res['all_terms']['us_per_set']:8.2f} us per set   "
+        f"({', '.join(res['all_terms']['terms'])})",
+        f"  all terms, reference   {res['all_terms_reference']['us_per_set']:8.2f} us per set",
+        f"  ratio all terms / kepler: {res['ratio']:.2f} (target <= 2; quartiles over {res['rounds']} rounds "
+        f"{res['ratio_range'][0]:.2f}-{res['ratio_range'][1]:.2f}); reference path / kepler: "
+        f"{res['ratio_reference']:.2f}",
+        f"  fused against reference: largest relative difference {res['max_rel_diff_fused_reference']:.1e}",
+        "  load average (1, 5, 15 min) at start {:.2f} {:.2f} {:.2f}, at end {:.2f} {:.2f} {:.2f}".format(
+            *res["load_start"], *res["load_end"]),
+    ]
+    return "\n".join(lines)
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--quick", action="store_true", help="fewer repeats")
-    res = run(ap.parse_args(argv).quick)
-    print(f"likelihood of {res['n_sets']} parameter sets x {res['n_epochs']} epochs (a position and a velocity each)")
-    print(f"  kepler                 {res['kepler']['us_per_set']:8.2f} us per set")
-    print(f"  all terms              {res['all_terms']['us_per_set']:8.2f} us per set   "
-          f"({', '.join(res['all_terms']['terms'])})")
-    print(f"  all terms, reference   {res['all_terms_reference']['us_per_set']:8.2f} us per set")
-    print(f"  ratio all terms / kepler: {res['ratio']:.2f} (target <= 2; quartiles over {res['rounds']} rounds "
-          f"{res['ratio_range'][0]:.2f}-{res['ratio_range'][1]:.2f}); reference path / kepler: "
-          f"{res['ratio_reference']:.2f}")
-    print(f"  fused against reference: largest relative difference {res['max_rel_diff_fused_reference']:.1e}")
-    print("  load average (1, 5, 15 min) at start {:.2f} {:.2f} {:.2f}, at end {:.2f} {:.2f} {:.2f}".format(
-        *res["load_start"], *res["load_end"]))
+    print(table(run(ap.parse_args(argv).quick)))
     return 0
 
 
