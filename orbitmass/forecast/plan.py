@@ -63,6 +63,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
+from matplotlib.ticker import FuncFormatter
 from numpy.typing import ArrayLike, NDArray
 
 from orbitmass.exceptions import InputError
@@ -95,6 +96,7 @@ _LOG_SUFFIXES = ("mass_msun", "distance_pc", "parallax_mas", "schwarzschild_radi
 _ALIASES = {"mass": "mass_msun", "distance": "distance_pc", "parallax": "parallax_mas"}
 _ONE = {"positions": "position", "velocities": "velocity"}
 _SYMBOL = {"mass_msun": "M", "distance_pc": "D", "parallax_mas": "parallax"}
+_WORDS = {"mass_msun": "total mass", "distance_pc": "distance", "parallax_mas": "parallax"}
 
 
 def resolve_quantity(results: Results, name: str) -> str:
@@ -168,7 +170,8 @@ class Plan:
         One row per candidate epoch and companion, ranked (column ``rank``):
         ``epoch_jyear``, ``date_utc``, ``companion``, per kind
         ``<kind>_sd_after`` (expected sd of ``f``) and
-        ``<kind>_reduction_pct``, ``<kind>_reduction_per_cost``;
+        ``<kind>_reduction_pct``, ``<kind>_reduction_per_cost`` and
+        ``<kind>_rank`` (the candidates ranked for that kind alone);
         ``best_kind`` (the kind that pays more per unit cost),
         ``best_reduction_pct``, ``orbital_phase`` (fraction of the period
         since periastron, reference orbit) and ``nearest_event``.
@@ -180,7 +183,9 @@ class Plan:
     events : list
         Periastron passages and velocity extrema in the window.
     options : dict
-        Inputs (precisions, costs, draws, instrument, seed, window).
+        Inputs (precisions, costs, draws, instrument, seed, window) and
+        ``reference_orbit`` (period and periastron time per companion of the
+        highest-posterior draw, which the phases refer to).
     """
 
     quantity: str
@@ -203,14 +208,20 @@ class Plan:
     def markdown(self, figure: str | None = "plan.png") -> str:
         """Short plain-language recommendation (Markdown)."""
         o = self.options
-        unit = "relative (sd of ln)" if self.log_scale else "sd"
         rel = (lambda s: f"{100 * s:.2g} %") if self.log_scale else (lambda s: f"{s:.3g}")
+        what_q = _WORDS.get(self.quantity, self.quantity)
+        if self.log_scale:
+            now = (f"its relative uncertainty (the sd of {self.label} over the posterior) is now "
+                   f"{rel(self.sd_now)}")
+        else:
+            now = f"its posterior sd is now {rel(self.sd_now)}"
         lines = [f"# Observing plan: {self.target}", ""]
-        lines.append(f"Goal: shrink the uncertainty of **{self.quantity}** ({unit} now {rel(self.sd_now)}). "
+        lines.append(f"Goal: shrink the uncertainty of the {what_q} (`{self.quantity}`): {now}. "
                      f"Candidate epochs {o['window'][0]:.3f} to {o['window'][1]:.3f} every {o['cadence_yr']:.4g} yr; "
                      f"a new position measured to {o['precision_mas']:g} mas per coordinate, a new velocity to "
                      f"{o['velocity_precision_kms']:g} km/s"
-                     + (f" (instrument {o['instrument']}, jitter {o['jitter_kms']:.3g} km/s added)"
+                     + (f" (instrument {o['instrument']}; its posterior-median jitter, {o['jitter_kms']:.3g} km/s, "
+                        "added in quadrature)"
                         if o.get("instrument") else "")
                      + f"; costs: positions {o['costs']['positions']:g}, velocities {o['costs']['velocities']:g}.")
         lines.append("")
@@ -218,7 +229,7 @@ class Plan:
         lines.append(f"**Best single measurement:** a {_ONE[best['best_kind']]} of {best['companion']} at "
                      f"{best['epoch_jyear']:.3f} ({best['date_utc']}){_event_text(best['nearest_event'])}: the "
                      f"uncertainty is expected to shrink by {best['best_reduction_pct']:.1f} % "
-                     f"(to {rel(best[best['best_kind'] + '_sd_after'])}).")
+                     f"(from {rel(self.sd_now)} to {rel(best[best['best_kind'] + '_sd_after'])}).")
         n = len(self.table)
         n_pos = int((self.table["best_kind"] == "positions").sum())
         lines.append("")
@@ -226,6 +237,9 @@ class Plan:
         top_vel = self.table["velocities_reduction_pct"].max()
         lines.append(f"Per unit cost, positions pay more at {n_pos} of {n} candidate epochs and velocities at "
                      f"{n - n_pos}. Largest single gains: positions {top_pos:.1f} %, velocities {top_vel:.1f} %.")
+        lines.append("")
+        lines.append(f"Best sets of {o['max_epochs']} measurements (chosen one at a time, each adding the largest "
+                     "further reduction; reductions are of the uncertainty now):")
         lines.append("")
         for name in ("mixed", "positions", "velocities"):
             s = self.sets[self.sets["set"] == name]
@@ -254,7 +268,10 @@ class Plan:
                      "combined with the current posterior covariance in the sampled variables; the number is the "
                      f"expected posterior sd of {self.label} after adding the measurement. It is a linearised "
                      "expectation: gains from resolving a multimodal posterior (a period alias, or the orientation "
-                     "ambiguity a first velocity removes) are not counted, and on a short arc it is approximate.")
+                     "ambiguity a first velocity removes) are not counted. On a short arc (no periastron seen, "
+                     "a small part of the period covered) the posterior is far from Gaussian and the numbers "
+                     "are rough, and the dates of the events they point to are themselves uncertain: check "
+                     "them with `orbitmass predict`, and refit and plan again after each new measurement.")
         if not o.get("run_has_velocities"):
             lines.append("")
             lines.append("This run has no velocities: a first velocity also fixes which way the orbit is "
@@ -296,11 +313,13 @@ class Plan:
                     ax.plot([r.epoch_jyear], [y[f"{r.kind}_reduction_pct"].iloc[0]], marker="o", ms=5, mfc="none",
                             color=colours[r.kind], lw=0)
                     ax.annotate(str(r.step), (r.epoch_jyear, y[f"{r.kind}_reduction_pct"].iloc[0]),
-                                textcoords="offset points", xytext=(3, 4), fontsize=7)
-            ax.plot([], [], marker="o", mfc="none", color="black", lw=0, label="greedy set (order)")
+                                textcoords="offset points", xytext=(4 if r.step % 2 else -9, 4), fontsize=7)
+            ax.plot([], [], marker="o", mfc="none", color="black", lw=0,
+                    label=f"best {len(mixed)} (any kind), in order")
             ax.set_ylabel(f"expected reduction of\nsd({self.label}) (%)")
             ax.set_ylim(bottom=0)
             ax.set_title(f"{self.target}: one more measurement", loc="left")
+            _phase_axis(ax, self.options.get("reference_orbit", {}))
             for a in axes[:, 0]:
                 _mark_events(a, self.events, label=a is ax)
             ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7)
@@ -339,6 +358,20 @@ class Plan:
 
 def _event_text(ev: str) -> str:
     return f", {ev}" if ev else ""
+
+
+def _phase_axis(ax, ref_orbit: Mapping[str, Mapping[str, float]]) -> None:
+    """Orbital phase of the first companion (reference orbit; 0 = periastron) on the top axis."""
+    if not ref_orbit:
+        return
+    name, orb = next(iter(ref_orbit.items()))
+    per, tp = float(orb["period_obs_yr"]), float(orb["periastron_jyear"])
+    if not (math.isfinite(per) and per > 0 and math.isfinite(tp)):
+        return
+    top = ax.secondary_xaxis("top", functions=(lambda t: (t - tp) / per, lambda ph: tp + ph * per))
+    top.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v % 1.0:.2f}".rstrip("0").rstrip(".")))
+    top.set_xlabel(f"orbital phase of {name} (0 = periastron, reference orbit)", fontsize=8)
+    top.tick_params(labelsize=7)
 
 
 def _mark_events(ax, events, *, label: bool) -> None:
@@ -508,9 +541,11 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
     rows_out = []
 
     ref = reference_row(results)
+    ref_orbit: dict[str, dict] = {}
     for c in names:
         per = float(results.samples[period_obs_column(results, c)].iloc[ref])
         tp = float(results.samples[f"{c}.periastron_time_jyr"].iloc[ref])
+        ref_orbit[c] = {"period_obs_yr": per, "periastron_jyear": tp}
         phase = ((t - tp) / per) % 1.0
         rec: dict[str, Any] = {"epoch_jyear": t, "date_utc": jyear_to_iso(t), "companion": [c] * t.size,
                                "orbital_phase": phase}
@@ -540,6 +575,11 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
     table["_score"] = np.maximum(table["positions_reduction_per_cost"], table["velocities_reduction_per_cost"])
     table = table.sort_values("_score", ascending=False, kind="stable").drop(columns="_score").reset_index(drop=True)
     table.insert(0, "rank", np.arange(1, len(table) + 1))
+    for kind in KINDS:  # each kind ranked on its own, by its reduction per unit cost (1 = best)
+        order = np.argsort(-table[f"{kind}_reduction_per_cost"].to_numpy(), kind="stable")
+        ranks = np.empty(len(table), dtype=int)
+        ranks[order] = np.arange(1, len(table) + 1)
+        table.insert(table.columns.get_loc(f"{kind}_reduction_per_cost") + 1, f"{kind}_rank", ranks)
 
     sets = _greedy_sets(fisher, P, g, var_lin, sd_now, t, names, cost, max_epochs)
     curves = _context_curves(results, t, names, seed)
@@ -548,7 +588,8 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
                "velocity_precision_kms": float(velocity_precision_kms), "costs": cost, "max_epochs": int(max_epochs),
                "n_draws": int(len(rows)), "seed": int(seed), "instrument": inst, "jitter_kms": jitter,
                "companions": names, "sd_linearised": math.sqrt(var_lin),
-               "run_has_velocities": any(cc.has_velocities for cc in results.target.companions)}
+               "run_has_velocities": any(cc.has_velocities for cc in results.target.companions),
+               "reference_orbit": ref_orbit}
     return Plan(quantity=col, log_scale=log_scale, sd_now=sd_now, table=table, sets=sets, events=events,
                 options=options, target=results.target.name, curves=curves)
 
