@@ -22,9 +22,10 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         "plan", help="rank candidate epochs by the expected shrinkage of the mass posterior",
         description="Rank candidate epochs between A and B (every S) by how much one more position or "
                     "velocity measurement is expected to shrink the posterior of the mass (or of --for "
-                    "QUANTITY), positions and velocities each ranked on their own: Fisher information of the "
-                    "measurement averaged over posterior draws, combined with the current posterior covariance "
-                    "(a linearised expectation; rough on a short arc). Mass, distance and other scale quantities "
+                    "QUANTITY), positions and velocities each ranked on their own: for each posterior draw the "
+                    "Fisher information of the measurement is combined with the current posterior covariance, "
+                    "and the expected posterior variances are averaged over the draws (a linearised "
+                    "expectation; rough on a short arc). Mass, distance and other scale quantities "
                     "are followed in their logarithm, so the reductions are of the relative uncertainty. Writes "
                     "DIR/plan.csv (ranked), plan_sets.csv (best sets of K measurements, chosen one at a time, "
                     "and K evenly spaced ones for comparison), plan.png/.pdf and plan.md (recommendation in "
@@ -51,7 +52,7 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     p.add_argument("--instrument", default=None, metavar="NAME",
                    help="instrument of a new velocity (default the run's first instrument)")
     p.add_argument("--draws", type=int, default=200, metavar="N",
-                   help="posterior draws the information is averaged over (default 200)")
+                   help="posterior draws the expected variance is averaged over (default 200)")
     p.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the choice of draws (default 0)")
     p.add_argument("--out", required=True, metavar="DIR", help="folder to write (new or empty)")
     p.add_argument("--overwrite", action="store_true",
