@@ -341,7 +341,8 @@ class Plan:
                     ax.annotate(str(r.step), (r.epoch_jyear, y[f"{r.kind}_reduction_pct"].iloc[0]),
                                 textcoords="offset points", xytext=(4 if r.step % 2 else -9, 4), fontsize=7)
             ax.plot([], [], marker="o", mfc="none", color="black", lw=0,
-                    label=f"best {len(mixed)} (any kind), in order")
+                    label=f"best {len(mixed)} (any kind), in order;\n{mixed['reduction_pct'].iloc[-1]:.1f} % together"
+                    if len(mixed) else "best set")
             ax.set_ylabel(f"expected reduction of\nsd({self.label}) (%)")
             ax.set_ylim(bottom=0)
             ax.set_title(f"{self.target}: one more measurement", loc="left")
