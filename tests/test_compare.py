@@ -52,7 +52,7 @@ from orbitmass.exceptions import InputError, RunFolderError
 from orbitmass.io.target import read_target
 from orbitmass.units import RS_AU_PER_MSUN
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 N_SAMPLES = 40000
 
