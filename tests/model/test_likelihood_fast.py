@@ -3,7 +3,7 @@
 The plain paths (``LogPosterior.log_likelihood_reference``, every orbit through
 ``orbitmass.core.orbit.evaluate``; ``ParameterSpace.log_prior_reference``, one
 variable at a time) are themselves checked against scipy.stats in
-tests/test_likelihood.py. Here the fast paths must give the same numbers to
+tests/model/test_likelihood.py. Here the fast paths must give the same numbers to
 1e-12 relative on random parameter sets (common practice, no source: agreement to
 round-off between two evaluations of one formula), for every kind of row and
 frame: polar rows, correlated errors, sampled and fixed jitter, several
