@@ -9,7 +9,7 @@ External references used:
 - contour levels 1 - exp(-s²/2) for s = 1, 2 (39.3 %, 86.5 %): the mass inside the
   s-sigma ellipse of a 2-D Gaussian (common practice, no source).
 
-The posteriors are the simulated Gaussian clouds of tests/test_reports.py (no sampling).
+The posteriors are the simulated Gaussian clouds of tests/helpers/results.py (no sampling).
 """
 
 from __future__ import annotations

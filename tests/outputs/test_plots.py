@@ -11,7 +11,7 @@ External references used:
 - Okabe & Ito (2008), "Color Universal Design", https://jfly.uni-koeln.de/color/, for the
   palette sRGB values.
 
-The posterior is the simulated Gaussian cloud of tests/test_reports.py (no sampling).
+The posterior is the simulated Gaussian cloud of tests/helpers/results.py (no sampling).
 """
 
 from __future__ import annotations
