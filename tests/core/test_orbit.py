@@ -1,18 +1,11 @@
-"""core/orbit.py (THE orbit evaluator) against references written independently
-(tests/helpers/orbit_reference.py, and the z of the rotation test below).
+"""core/orbit.py (THE orbit evaluator) against references written independently.
 
 References
 ----------
-* Kepler's equation M = E - e sin E solved by scipy.optimize.brentq (reference library).
-* Sky positions from the Campbell elements, the classical formula of visual binaries
-  (e.g. Heintz 1978, Double Stars, ch. 4; from memory)::
-
-      north = r [cos(nu + w) cos W - sin(nu + w) sin W cos i]
-      east  = r [cos(nu + w) sin W + sin(nu + w) cos W cos i]
-
-  and the line-of-sight coordinate z = r sin(nu + w) sin i (Murray & Dermott 1999,
-  Solar System Dynamics, eq. 2.122 with the observer on -z; from memory), with
-  r = a (1 - e^2) / (1 + e cos nu) and tan(nu/2) = sqrt((1+e)/(1-e)) tan(E/2).
+* Kepler's equation solved by scipy.optimize.brentq, and sky positions and the line-of-sight
+  coordinate z from the Campbell elements (Heintz 1978, Double Stars, ch. 4; Murray & Dermott
+  1999, Solar System Dynamics, eq. 2.122; both from memory): the formulas are written out in
+  tests/helpers/orbit_reference.py, shared with tests/model/test_likelihood.py.
 * The velocity is checked against the numerical time derivative of that z
   (numpy central differences), converted from au/yr to km/s with astropy units.
 """
