@@ -41,7 +41,7 @@ the fourth-order step measured 2.7e-15 rad for ``e <= 0.99``, nearly as good;
 the fifth-order step is kept as published). One correction reaches the
 1e-12 rad target with more than two orders of magnitude to spare, including
 near periastron (``M -> 0``) at high eccentricity, and the starter needs no
-special branch for small ``M``. ``tests/test_kepler.py`` checks the 1e-12 rad
+special branch for small ``M``. ``tests/core/test_kepler.py`` checks the 1e-12 rad
 contract, and the measured level within 5e-14 rad, against mpmath.
 
 The cost per element is fixed: one ``sqrt``, one ``cbrt``, one ``tan`` and

@@ -40,7 +40,7 @@ Helpers for derived posteriors: :func:`precession_arcmin_per_orbit`,
 :func:`redshift_at_periastron_kms`, :func:`periastron_schwarzschild_radii`,
 :func:`roemer_delay_range_days`, :func:`plummer_precession_per_orbit`.
 
-Verification (tests/test_relativity.py)
+Verification (tests/core/test_relativity.py)
 ---------------------------------------
 Against an independent first post-Newtonian integration (scipy) of an
 e = 0.88, 16-yr orbit around 4e6 solar masses at 8 kpc (periastron 1,530

@@ -43,7 +43,7 @@ between calls (one set per block size; they are dropped when the posterior is
 pickled and are never returned), and the weighted sums of squares are
 matrix-vector products. Constant parts (the normalisation of rows whose
 jitter is fixed, their inverse variances) are computed once. The two paths
-agree to round-off (``tests/test_likelihood_fast.py``: 1e-12 relative
+agree to round-off (``tests/model/test_likelihood_fast.py``: 1e-12 relative
 without terms; ``tests/model/test_likelihood_terms_fused.py``: 1e-10 with
 every combination of terms).
 """

@@ -30,7 +30,7 @@ from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.inference.pipeline import build_space
 from orbitmass.io.target import read_target
 from orbitmass.model.likelihood import LogPosterior, orbit_states
-from tests.test_likelihood_fast import _system, _values
+from tests.helpers.fused_systems import truth_values, write_system
 
 REL = 1e-10
 
@@ -82,16 +82,16 @@ def _tables(on: set, fixed: bool, radius) -> str:
 def _write(folder, stars, *, absolute: bool, tables: str, seed: int) -> object:
     """Target with ``stars`` (positions, two-instrument velocities, central-body rows of the first star) and ``tables``.
 
-    The writer of tests/test_likelihood_fast.py (wide priors: 0.5-1e8 solar
+    The writer of tests/helpers/fused_systems.py (wide priors: 0.5-1e8 solar
     masses, 5-20000 pc, periods 1-100 yr) with the model-term tables added.
     """
-    return read_target(_system(folder, stars, rng=np.random.default_rng(seed), absolute=absolute,
+    return read_target(write_system(folder, stars, rng=np.random.default_rng(seed), absolute=absolute,
                                central_rows=True, extra=tables))
 
 
 def _truth(space, stars) -> dict:
-    """The values of tests/test_likelihood_fast.py for ``stars``, with this module's central body and terms."""
-    v = _values(space, stars)
+    """The values of tests/helpers/fused_systems.py for ``stars``, with this module's central body and terms."""
+    v = truth_values(space, stars)
     v.update({"mass_msun": 4.1e6, "distance_pc": 8200.0, "redshift_factor": 1.0, "precession_factor": 1.0,
               "extended_mass_fraction": 0.01})
     v.update({f"{name}.q": 0.05 for name, _ in stars})

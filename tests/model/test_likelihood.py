@@ -3,7 +3,7 @@
 The log-likelihood is checked against scipy.stats.multivariate_normal (2x2 position
 covariance with correlation) and scipy.stats.norm (velocities, variance sigma^2 +
 jitter^2) summed by hand, with the model positions from the Campbell-element formula
-of tests/test_orbit.py (Heintz 1978, Double Stars, ch. 4; from memory) and the
+of tests/helpers/orbit_reference.py (Heintz 1978, Double Stars, ch. 4; from memory) and the
 velocity curve v = K [cos(nu + w) + e cos w], K = 2 pi a sin i / (P sqrt(1 - e^2))
 (the radial-velocity formula of spectroscopic binaries, e.g. Hilditch 2001, An
 Introduction to Close Binary Stars, eq. 2.44; from memory).
@@ -29,8 +29,10 @@ from orbitmass.model.parameters import AngleWindows, ParameterSpace
 from orbitmass.model.priors import Uniform
 from orbitmass.results import Results, derive_samples
 
-from .conftest import make_target
-from .test_orbit import KMS, _campbell, _eccentric_anomaly, _Shift
+from tests.helpers.orbit_reference import KMS, ShiftTerm
+from tests.helpers.orbit_reference import campbell as _campbell
+from tests.helpers.orbit_reference import eccentric_anomaly as _eccentric_anomaly
+from tests.helpers.targets import make_target
 
 TRUTH = TrueOrbit(mass_msun=2.0, distance_pc=25.0, period_yr=10.0, eccentricity=0.4, inclination_deg=50.0,
                   arg_periastron_deg=30.0, ascending_node_deg=120.0, periastron_time=2008.0)
@@ -165,7 +167,7 @@ def test_windows_are_immutable(space):
 
 
 def test_model_terms_reach_the_likelihood_and_decline_the_fast_path(space, tmp_path, rng):
-    with_term = ParameterSpace(space.target, terms=(_Shift(),),
+    with_term = ParameterSpace(space.target, terms=(ShiftTerm(),),
                                term_priors={"shift_kms": Uniform(low=-10.0, high=10.0)})
     assert "shift_kms" in with_term.names
     values = {**VALUES, "shift_kms": 2.5}

@@ -6,7 +6,7 @@ after: a refused command changes nothing. "Before sampling" is checked by replac
 class of the command with one that fails when it is made. The three broken inputs are those
 of issue 11 (errors 1000x too small, an unmodelled 60 km/s velocity zero point with the
 systemic velocity fixed, a missing second companion); their data come from the independent
-simulator of orbitmass.demo.simulate through the builders of tests/test_quality.py.
+simulator of orbitmass.demo.simulate through the builders of tests/helpers/targets.py.
 """
 
 from __future__ import annotations
@@ -25,8 +25,7 @@ from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.io.rundir import prepare_run_folder
 from orbitmass.outputs.formatting import summary_text
 
-from .conftest import make_target
-from .test_quality import FIXED_SYSTEMIC, write_target
+from tests.helpers.targets import FIXED_SYSTEMIC, make_target, write_target
 
 TRUTH = TrueOrbit(mass_msun=1.9, distance_pc=20.0, period_yr=12.0, eccentricity=0.3, inclination_deg=60.0,
                   arg_periastron_deg=40.0, ascending_node_deg=100.0, periastron_time=2010.0)

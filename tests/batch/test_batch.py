@@ -517,7 +517,7 @@ def test_catalogue_has_fit_status_beside_convergence():
 
 
 def test_a_poor_fit_is_marked_in_the_catalogue(tmp_path, rng):
-    from .test_quality import write_target
+    from tests.helpers.targets import write_target
 
     path, _ = write_target(tmp_path / "in", rng, err_scale=1e-3)  # errors 1000x too small (issue 11)
     (job,) = plan_batch([path], tmp_path / "out", seed=1, fit_options={"max_steps": 200}, products=False)

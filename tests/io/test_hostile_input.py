@@ -5,7 +5,7 @@ Each bad input must give exactly one :class:`orbitmass.exceptions.InputError` na
 file and the key or line (the project's input contract, shared/spec/input-format.md, "Bad
 input"); valid input must parse to the right numbers; nothing may raise another exception
 or hang (hypothesis deadlines of 10 s per example are the hang guard). This file adds to
-tests/test_io_target.py and tests/test_io_tables.py, which already cover the basic
+tests/io/test_io_target.py and tests/io/test_io_tables.py, which already cover the basic
 cases (unknown units, NaN cells, empty tables, NUL bytes, random garbage).
 
 External references used:

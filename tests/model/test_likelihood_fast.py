@@ -3,7 +3,7 @@
 The plain paths (``LogPosterior.log_likelihood_reference``, every orbit through
 ``orbitmass.core.orbit.evaluate``; ``ParameterSpace.log_prior_reference``, one
 variable at a time) are themselves checked against scipy.stats in
-tests/test_likelihood.py. Here the fast paths must give the same numbers to
+tests/model/test_likelihood.py. Here the fast paths must give the same numbers to
 1e-12 relative on random parameter sets (common practice, no source: agreement to
 round-off between two evaluations of one formula), for every kind of row and
 frame: polar rows, correlated errors, sampled and fixed jitter, several
@@ -26,6 +26,7 @@ from orbitmass.io.target import read_target
 from orbitmass.model.data import Astrometry
 from orbitmass.model.likelihood import LogPosterior
 from orbitmass.model.parameters import ParameterSpace
+from tests.helpers.fused_systems import truth_values, write_system
 
 REL = 1e-12
 
@@ -50,45 +51,6 @@ def _agree(post: LogPosterior, theta: np.ndarray) -> None:
     np.testing.assert_allclose(lp_fast[fin], lp_ref[fin], rtol=REL, atol=1e-12)
 
 
-def _system(folder, stars, *, rng, absolute=False, central_rows=False, shared_epochs=False, extra=""):
-    """Write a target with ``stars`` [(name, TrueOrbit)]; two instruments, the second with an offset."""
-    folder.mkdir(parents=True, exist_ok=True)
-    blocks = []
-    for k, (name, orbit) in enumerate(stars):
-        t = np.sort(rng.uniform(2002, 2026, 14 + k))
-        s = simulate(orbit, t)
-        write_positions_csv(folder / f"{name}_pos.csv", t, s["east_mas"] + rng.normal(0, 0.4, t.size),
-                            s["north_mas"] + rng.normal(0, 0.4, t.size), 0.4)
-        tv = t.copy() if shared_epochs else np.sort(rng.uniform(2004, 2026, 9 + k))
-        sv = simulate(orbit, tv)
-        inst = np.where(np.arange(tv.size) % 2 == 0, "spec-a", "spec-b")
-        body = np.where((np.arange(tv.size) % 3 == 0) & central_rows & (k == 0), "central", "companion")
-        rv = np.where(body == "central", sv["rv_central_kms"], sv["rv_companion_kms"])
-        rv = rv + np.where(inst == "spec-b", 7.0, 0.0) + rng.normal(0, 5.0, tv.size)
-        write_velocities_csv(folder / f"{name}_rv.csv", tv, rv, 5.0, instrument=inst, body=body)
-        blocks.append(f'[[companion]]\nname = "{name}"\nastrometry = "{name}_pos.csv"\n'
-                      f'velocities = "{name}_rv.csv"\n'
-                      'period = { dist = "log-uniform", low = "1 yr", high = "100 yr" }\n')
-    frame = textwrap.dedent("""\
-        frame = "absolute"
-        x0 = { dist = "normal", mean = "0 mas", sd = "5 mas" }
-        y0 = { dist = "normal", mean = "0 mas", sd = "5 mas" }
-        vx0 = { dist = "normal", mean = "0 mas / yr", sd = "1 mas / yr" }
-        vy0 = { dist = "normal", mean = "0 mas / yr", sd = "1 mas / yr" }
-        vz0 = { dist = "normal", mean = "0 km / s", sd = "50 km / s" }
-        """) if absolute else 'systemic = { dist = "uniform", low = "-100 km / s", high = "100 km / s" }\n'
-    head = ("[target]\nname = \"invented test system\"\nreference_epoch = 2014.0\n[central]\n"
-            'mass = { dist = "log-uniform", low = "0.5 solMass", high = "1e8 solMass" }\n' + frame
-            + '[distance]\nprior = { dist = "uniform", low = "5 pc", high = "20000 pc" }\n'
-            "[instruments.spec-a]\n"
-            'jitter = { dist = "uniform", low = "0 km / s", high = "20 km / s" }\n'
-            "[instruments.spec-b]\n"
-            'offset = { dist = "normal", mean = "0 km / s", sd = "30 km / s" }\n' + extra)
-    path = folder / "target.toml"
-    path.write_text(head + "\n".join(blocks), encoding="utf-8")
-    return path
-
-
 STARS = [
     ("S1", TrueOrbit(2.6, 30.0, 9.0, 0.45, 70.0, 200.0, 35.0, 2015.0, mass_ratio=0.6)),
     ("S2", TrueOrbit(2.6, 30.0, 14.0, 0.2, 40.0, 80.0, 300.0, 2011.0)),
@@ -96,31 +58,16 @@ STARS = [
 ]
 
 
-def _values(space, stars):
-    v = {"mass_msun": 2.6, "distance_pc": 30.0, "systemic": 0.0, "vz0": 0.0, "x0": 0.0, "y0": 0.0,
-         "vx0": 0.0, "vy0": 0.0, "offset.spec-a": 0.0, "offset.spec-b": 7.0, "jitter.spec-a": 2.0,
-         "jitter.spec-b": 0.0}
-    for name, o in stars:
-        v[f"{name}.period_yr"] = o.period_yr
-        v[f"{name}.ecc"] = o.eccentricity
-        v[f"{name}.omega"] = np.radians(o.arg_periastron_deg)
-        v[f"{name}.node"] = np.radians(o.ascending_node_deg)
-        v[f"{name}.cos_i"] = np.cos(np.radians(o.inclination_deg))
-        v[f"{name}.m0"] = 2 * np.pi * (space.t_ref - o.periastron_time) / o.period_yr
-        v[f"{name}.q"] = 0.6
-    return v
-
-
 @pytest.mark.parametrize("absolute", [False, True])
 @pytest.mark.parametrize("n_stars", [1, 3])
 def test_fused_path_agrees_with_reference(tmp_path, absolute, n_stars):
     rng = np.random.default_rng([7, n_stars, absolute])
     stars = STARS[:n_stars]
-    space = ParameterSpace(read_target(_system(tmp_path, stars, rng=rng, absolute=absolute, central_rows=True)))
+    space = ParameterSpace(read_target(write_system(tmp_path, stars, rng=rng, absolute=absolute, central_rows=True)))
     assert "S1.mass_ratio" in space.index  # the central-body rows bring the mass ratio (reflex motion)
     post = LogPosterior(space)
     assert post.fused
-    theta = _near_truth(space, _values(space, stars), rng, 40)
+    theta = _near_truth(space, truth_values(space, stars), rng, 40)
     _agree(post, theta)
     # the cache of work arrays does not change results: calls of other block sizes in between, then
     # the first block again gives the same bits (between block sizes the matrix-vector sums may round
@@ -133,7 +80,7 @@ def test_fused_path_agrees_with_reference(tmp_path, absolute, n_stars):
 
 def test_shared_epochs_and_polar_correlated_rows(tmp_path):
     rng = np.random.default_rng(8)
-    target = read_target(_system(tmp_path, STARS[1:3], rng=rng, shared_epochs=True))
+    target = read_target(write_system(tmp_path, STARS[1:3], rng=rng, shared_epochs=True))
     # every third row of S2 as separation / position angle, correlated errors elsewhere
     comp = target.companions[0]
     a = comp.astrometry
@@ -148,21 +95,21 @@ def test_shared_epochs_and_polar_correlated_rows(tmp_path):
                                                      *target.companions[1:]))
     space = ParameterSpace(target)
     post = LogPosterior(space)
-    _agree(post, _near_truth(space, _values(space, STARS[1:3]), rng, 30))
+    _agree(post, _near_truth(space, truth_values(space, STARS[1:3]), rng, 30))
     # correlated but no polar rows: the cross term of the fused sum of squares
     astro2 = dataclasses.replace(astro, polar=np.zeros(n, bool), value1=east, value2=north,
                                  corr=np.linspace(-0.7, 0.7, n))
     target2 = dataclasses.replace(target, companions=(dataclasses.replace(comp, astrometry=astro2),
                                                       *target.companions[1:]))
     space2 = ParameterSpace(target2)
-    _agree(LogPosterior(space2), _near_truth(space2, _values(space2, STARS[1:3]), rng, 30))
+    _agree(LogPosterior(space2), _near_truth(space2, truth_values(space2, STARS[1:3]), rng, 30))
 
 
 def test_prior_draws_and_walls(tmp_path):
     """Prior draws (far from the data) and points outside the support: same values, same -inf."""
     rng = np.random.default_rng(9)
     extra = ""
-    path = _system(tmp_path, STARS[:2], rng=rng, absolute=True, extra=extra)
+    path = write_system(tmp_path, STARS[:2], rng=rng, absolute=True, extra=extra)
     space = ParameterSpace(read_target(path))
     post = LogPosterior(space)
     theta = space.sample_prior(rng, 200)
@@ -188,7 +135,7 @@ def test_prior_of_other_families_and_windows(tmp_path):
     """Truncated-normal, log-normal and beta priors go through the general branch; new windows rebuild."""
     rng = np.random.default_rng(10)
     extra = ""
-    path = _system(tmp_path, STARS[1:2], rng=rng, extra=extra)
+    path = write_system(tmp_path, STARS[1:2], rng=rng, extra=extra)
     text = path.read_text()
     text = text.replace('period = { dist = "log-uniform", low = "1 yr", high = "100 yr" }',
                         'period = { dist = "log-normal", median = "14 yr", sigma = 0.3 }\n'
@@ -198,7 +145,7 @@ def test_prior_of_other_families_and_windows(tmp_path):
                         'prior = { dist = "truncnormal", mean = "30 pc", sd = "3 pc", low = "20 pc", high = "40 pc" }')
     path.write_text(text)
     space = ParameterSpace(read_target(path))
-    theta = np.vstack([space.sample_prior(rng, 100), _near_truth(space, _values(space, STARS[1:2]), rng, 50, 0.3)])
+    theta = np.vstack([space.sample_prior(rng, 100), _near_truth(space, truth_values(space, STARS[1:2]), rng, 50, 0.3)])
     for sp in (space, space.with_windows(space.windows_from(theta[:1] + 1.0))):
         a, b = sp.log_prior(theta), sp.log_prior_reference(theta)
         np.testing.assert_array_equal(np.isfinite(a), np.isfinite(b))
@@ -208,9 +155,9 @@ def test_prior_of_other_families_and_windows(tmp_path):
 
 def test_pickle_drops_work_arrays_and_keeps_results(tmp_path):
     rng = np.random.default_rng(11)
-    space = ParameterSpace(read_target(_system(tmp_path, STARS[:2], rng=rng, central_rows=True)))
+    space = ParameterSpace(read_target(write_system(tmp_path, STARS[:2], rng=rng, central_rows=True)))
     post = LogPosterior(space)
-    theta = _near_truth(space, _values(space, STARS[:2]), rng, 16)
+    theta = _near_truth(space, truth_values(space, STARS[:2]), rng, 16)
     before = post(theta)
     assert post._plan._work  # work arrays were kept
     clone = pickle.loads(pickle.dumps(post))
@@ -221,7 +168,7 @@ def test_pickle_drops_work_arrays_and_keeps_results(tmp_path):
 
 def test_model_terms_take_the_reference_path(tmp_path):
     rng = np.random.default_rng(12)
-    target = read_target(_system(tmp_path, STARS[1:2], rng=rng))
+    target = read_target(write_system(tmp_path, STARS[1:2], rng=rng))
 
     class Shift:  # a model term with a velocity hook (the contract of orbitmass.core.orbit)
         name = "shift"
@@ -236,7 +183,7 @@ def test_model_terms_take_the_reference_path(tmp_path):
     space = ParameterSpace(target, terms=(Shift(),), term_priors={"shift_kms": Uniform(-5.0, 5.0)})
     post = LogPosterior(space)
     assert not post.fused
-    theta = _near_truth(space, {**_values(space, STARS[1:2]), "shift_kms": 1.0}, rng, 8)
+    theta = _near_truth(space, {**truth_values(space, STARS[1:2]), "shift_kms": 1.0}, rng, 8)
     np.testing.assert_array_equal(post.log_likelihood(theta), post.log_likelihood_reference(theta))
 
 

@@ -27,7 +27,7 @@ from orbitmass.forecast._common import circular_wrap_deg, parse_epoch, prepare_o
 from orbitmass.forecast.plan import parse_costs, plan, resolve_quantity
 from orbitmass.forecast.predict import next_events, predict, prediction_columns
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 log = logging.getLogger(__name__)
 PARALLAX = 'parallax = { dist = "normal", mean = "40 mas", sd = "0.4 mas" }'

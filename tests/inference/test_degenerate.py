@@ -38,7 +38,7 @@ from orbitmass.cli import main
 from orbitmass.exceptions import OrbitmassError
 from orbitmass.demo.simulate import TrueOrbit
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 pytestmark = pytest.mark.slow
 

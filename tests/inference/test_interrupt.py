@@ -20,7 +20,7 @@ from orbitmass.io.target import read_target
 from orbitmass.model.likelihood import LogPosterior
 from orbitmass.model.parameters import ParameterSpace
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 TRUTH = TrueOrbit(mass_msun=1.9, distance_pc=20.0, period_yr=12.0, eccentricity=0.3, inclination_deg=60.0,
                   arg_periastron_deg=40.0, ascending_node_deg=100.0, periastron_time=2010.0)

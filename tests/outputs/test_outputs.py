@@ -9,7 +9,7 @@ External references used:
 - contour levels 1 - exp(-s²/2) for s = 1, 2 (39.3 %, 86.5 %): the mass inside the
   s-sigma ellipse of a 2-D Gaussian (common practice, no source).
 
-The posteriors are the simulated Gaussian clouds of tests/test_reports.py (no sampling).
+The posteriors are the simulated Gaussian clouds of tests/helpers/results.py (no sampling).
 """
 
 from __future__ import annotations
@@ -20,6 +20,7 @@ import re
 import subprocess
 import sys
 import textwrap
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -31,10 +32,10 @@ from orbitmass.outputs.products import write_products
 from orbitmass.outputs.tables import display_rows, results_table, table_md, table_tex
 from orbitmass.results import COLUMN_DOC
 
-try:  # the posterior builder lives beside this file
-    from .test_reports import NUCLEUS, make_results
-except ImportError:
-    from test_reports import NUCLEUS, make_results
+import tests.helpers
+from tests.helpers.results import NUCLEUS, make_results
+
+REPO_ROOT = Path(tests.helpers.__file__).resolve().parents[2]  # tests/helpers/__init__.py -> the checkout
 
 
 @pytest.fixture(scope="module")
@@ -282,9 +283,9 @@ def test_write_products_uses_no_pyplot(tmp_path):
     # figure (the corner package imports pyplot itself; we never call it)
     code = textwrap.dedent(f"""
         import sys
-        sys.path.insert(0, {str(__import__('pathlib').Path(__file__).parent)!r})
+        sys.path.insert(0, {str(REPO_ROOT)!r})
         from pathlib import Path
-        from test_reports import make_results
+        from tests.helpers.results import make_results
         from orbitmass.io.rundir import write_products
         res = make_results(Path({str(tmp_path / 'in')!r}), kind="wide", scatter=0.1)
         write_products(res, Path({str(tmp_path / 'out')!r}))

@@ -29,7 +29,7 @@ from orbitmass.io import rundir
 from orbitmass.io.checkpoint import load_checkpoint
 from orbitmass.io.rundir import check_run_folder_writable, load_run, prepare_run_folder, save_run
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 # These tests exercise the Markov chain, its checkpoints and resuming, so the astrometry-only
 # fast path (which needs neither) is switched off: linear=False, --no-fast-path.

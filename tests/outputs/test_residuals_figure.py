@@ -13,7 +13,7 @@ import pytest
 
 from orbitmass.outputs.figures.residuals import SYMLOG_ABOVE, caption, residuals_figure
 
-from .test_quality import quiet_fit, write_target
+from tests.helpers.targets import quiet_fit, write_target
 
 
 @pytest.fixture(scope="module")

@@ -60,7 +60,7 @@ def test_no_starting_walkers_and_no_chain_is_an_error(bad):
 def test_rhat_between_1_01_and_1_02_is_not_converged():
     # Vehtari et al. 2021 (Bayesian Analysis 16, 667) and the output contract: R-hat below 1.01.
     # An AR(1) ensemble of 70 tau: the cheap criteria (ESS >= 400, > 50 tau) pass, but the
-    # expected split R-hat is ~1 + tau / n = 1.014 (see tests/test_diagnostics.py).
+    # expected split R-hat is ~1 + tau / n = 1.014 (see tests/core/test_diagnostics_ar1.py).
     from orbitmass.core import diagnostics
     from orbitmass.inference.sampler import assess
 

@@ -400,7 +400,7 @@ def test_the_documented_example_reads(tmp_path):
     # the example target file of docs/input-format.md (its TOML blocks) is valid as written
     import re
 
-    doc = (Path(__file__).resolve().parents[1] / "docs" / "input-format.md").read_text(encoding="utf-8")
+    doc = (Path(__file__).resolve().parents[2] / "docs" / "input-format.md").read_text(encoding="utf-8")
     blocks = re.findall(r"```toml\n(.*?)```", doc, re.S)
     (tmp_path / "c1_positions.csv").write_text(POS, encoding="utf-8")
     (tmp_path / "c1_velocities.csv").write_text(

@@ -27,7 +27,7 @@ from orbitmass.io import export as export_mod
 from orbitmass.io.export import export_run, format_from_path, to_inference_data
 from orbitmass.io.rundir import load_run, save_run
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 TRUTH = TrueOrbit(mass_msun=2.0, distance_pc=20.0, period_yr=10.0, eccentricity=0.4, inclination_deg=60.0,
                   arg_periastron_deg=100.0, ascending_node_deg=30.0, periastron_time=2005.0)

@@ -329,7 +329,7 @@ def test_fit_with_beta_and_log_normal_priors(tmp_path, rng):
     from orbitmass.demo.simulate import TrueOrbit
     from orbitmass.io.rundir import load_run, save_run
 
-    from .conftest import make_target
+    from tests.helpers.targets import make_target
 
     truth = TrueOrbit(mass_msun=2.0, distance_pc=20.0, period_yr=10.0, eccentricity=0.3, inclination_deg=60.0,
                       arg_periastron_deg=100.0, ascending_node_deg=30.0, periastron_time=2005.0)

@@ -20,7 +20,6 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from orbitmass import Fit
 from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 from orbitmass.exceptions import ConvergenceWarning, DegeneracyWarning, OrbitmassWarning, PoorFitWarning
 from orbitmass.inference.quality import (
@@ -36,41 +35,11 @@ from orbitmass.model.parameters import ParameterSpace
 from orbitmass.results import derive_samples, mass_function_msun, prior_dominated
 from orbitmass.units import GM_SUN_AU3_PER_YR2
 
-TRUTH = TrueOrbit(mass_msun=2.0, distance_pc=20.0, period_yr=12.0, eccentricity=0.4, inclination_deg=60.0,
-                  arg_periastron_deg=80.0, ascending_node_deg=130.0, periastron_time=2015.0)
-DIST = '[distance]\nprior = { dist = "uniform", low = "5 pc", high = "60 pc" }\n'
-FIXED_SYSTEMIC = '[central]\nsystemic = { dist = "fixed", value = "0 km / s" }\n'
+from tests.helpers.targets import FIXED_SYSTEMIC, quiet_fit, write_target
+from tests.helpers.targets import QUALITY_DIST as DIST
+from tests.helpers.targets import QUALITY_TRUTH as TRUTH
+
 CONTRACT_KEYS = {"chi2", "dof", "reduced_chi2", "p_value", "status", "datasets"}
-
-
-def write_target(folder, rng, *, n_pos=30, n_rv=20, pos_err=0.5, rv_err=0.3, err_scale=1.0, rv_shift=0.0,
-                 wobble_mas=0.0, extra="", span=(2005.0, 2025.0)):
-    """A one-companion target (east/north positions, velocities) with known Gaussian noise.
-
-    ``err_scale`` scales the error columns written (not the noise drawn); ``rv_shift`` adds a
-    velocity zero point; ``wobble_mas`` adds the reflex of the central body due to an unseen
-    inner companion (circular, P = 3 yr, face-on), so two companions are fitted with one.
-    Returns the path and the noise drawn.
-    """
-    folder.mkdir(parents=True, exist_ok=True)
-    t_pos = np.sort(rng.uniform(*span, n_pos))
-    sim = simulate(TRUTH, t_pos)
-    ne, nn = rng.normal(0, pos_err, n_pos), rng.normal(0, pos_err, n_pos)
-    phase = 2 * math.pi * t_pos / 3.0
-    write_positions_csv(folder / "pos.csv", t_pos, sim["east_mas"] + wobble_mas * np.cos(phase) + ne,
-                        sim["north_mas"] + wobble_mas * np.sin(phase) + nn, pos_err * err_scale)
-    lines = ["[[companion]]", 'name = "B"', 'astrometry = "pos.csv"']
-    noise = {"east": ne, "north": nn}
-    if n_rv:
-        t_rv = np.sort(rng.uniform(span[0] + 3, span[1], n_rv))
-        nv = rng.normal(0, rv_err, n_rv)
-        write_velocities_csv(folder / "rv.csv", t_rv, simulate(TRUTH, t_rv)["rv_companion_kms"] + rv_shift + nv,
-                             rv_err * err_scale)
-        lines.append('velocities = "rv.csv"')
-        noise["rv"] = nv
-    text = '[target]\nname = "invented binary"\n' + extra + DIST + "\n".join(lines) + "\n"
-    (folder / "target.toml").write_text(text, encoding="utf-8")
-    return folder / "target.toml", noise
 
 
 def truth_theta(space):
@@ -83,15 +52,6 @@ def truth_theta(space):
     if not space.windows_final:  # a fresh space: centre its angle windows on the truth
         space.set_centres(space.pack(values))
     return space.pack(values)  # a fitted space keeps its windows; pack wraps the angles into them
-
-
-def quiet_fit(path, **kw):
-    """A tiny fit (unconverged on purpose: goodness of fit at the best point needs no convergence)."""
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        fit = Fit(seed=kw.pop("seed", 1), max_steps=kw.pop("steps", 300), min_steps=kw.pop("steps2", 300),
-                  progress=False, max_periods=800, **kw).fit(path)
-    return fit, caught
 
 
 # ------------------------------------------------------------- correct model

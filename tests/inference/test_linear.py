@@ -40,7 +40,7 @@ from orbitmass.model.parameters import ParameterSpace
 from orbitmass.core.physics import mass_msun
 from orbitmass.demo.simulate import TrueOrbit
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 PARALLAX = 'parallax = { dist = "normal", mean = "40 mas", sd = "0.4 mas" }'
 

@@ -11,7 +11,7 @@ External references used:
 - Okabe & Ito (2008), "Color Universal Design", https://jfly.uni-koeln.de/color/, for the
   palette sRGB values.
 
-The posterior is the simulated Gaussian cloud of tests/test_reports.py (no sampling).
+The posterior is the simulated Gaussian cloud of tests/helpers/results.py (no sampling).
 """
 
 from __future__ import annotations
@@ -32,10 +32,7 @@ from orbitmass.outputs.reports import format_value
 from orbitmass.outputs.style import PALETTE, figure_size, save_figure, style_context, write_atomic
 from orbitmass.results import QUANTILES
 
-try:  # the posterior builder lives beside this file
-    from .test_reports import make_results
-except ImportError:
-    from test_reports import make_results
+from tests.helpers.results import make_results
 
 N_DRAWS = 12
 
@@ -341,12 +338,9 @@ def test_figures_and_reports_of_a_real_fit(tmp_path):
     from orbitmass import Fit
     from orbitmass.outputs.reports import write_report, write_tables
 
-    try:
-        from .test_reports import _write_wide
-    except ImportError:
-        from test_reports import _write_wide
+    from tests.helpers.results import write_wide
 
-    path = _write_wide(tmp_path, "Fitted pair", np.random.default_rng(5))
+    path = write_wide(tmp_path, "Fitted pair", np.random.default_rng(5))
     fit = Fit(seed=2, max_steps=400, min_steps=200, progress=False, max_periods=300).fit(path)
     res = fit.results_
     out = tmp_path / "out"

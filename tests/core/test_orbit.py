@@ -1,17 +1,11 @@
-"""core/orbit.py (THE orbit evaluator) against references written independently here.
+"""core/orbit.py (THE orbit evaluator) against references written independently.
 
 References
 ----------
-* Kepler's equation M = E - e sin E solved by scipy.optimize.brentq (reference library).
-* Sky positions from the Campbell elements, the classical formula of visual binaries
-  (e.g. Heintz 1978, Double Stars, ch. 4; from memory)::
-
-      north = r [cos(nu + w) cos W - sin(nu + w) sin W cos i]
-      east  = r [cos(nu + w) sin W + sin(nu + w) cos W cos i]
-
-  and the line-of-sight coordinate z = r sin(nu + w) sin i (Murray & Dermott 1999,
-  Solar System Dynamics, eq. 2.122 with the observer on -z; from memory), with
-  r = a (1 - e^2) / (1 + e cos nu) and tan(nu/2) = sqrt((1+e)/(1-e)) tan(E/2).
+* Kepler's equation solved by scipy.optimize.brentq, and sky positions and the line-of-sight
+  coordinate z from the Campbell elements (Heintz 1978, Double Stars, ch. 4; Murray & Dermott
+  1999, Solar System Dynamics, eq. 2.122; both from memory): the formulas are written out in
+  tests/helpers/orbit_reference.py, shared with tests/model/test_likelihood.py.
 * The velocity is checked against the numerical time derivative of that z
   (numpy central differences), converted from au/yr to km/s with astropy units.
 """
@@ -22,36 +16,18 @@ import math
 
 import numpy as np
 import pytest
-from astropy import units as u
-from scipy import optimize
 
 from orbitmass.core.orbit import OrbitState, evaluate, kepler_basis, thiele_innes
 
-T_REF = 2010.0
+from tests.helpers.orbit_reference import KMS, T_REF, ShiftTerm
+from tests.helpers.orbit_reference import campbell as _campbell
+from tests.helpers.orbit_reference import eccentric_anomaly as _eccentric_anomaly
+
 ELEMENTS = [  # (P yr, e, M0 rad, a_mas, a_au, i, w, W)
     (12.0, 0.3, 0.7, 100.0, 5.0, 1.05, 0.7, 1.75),
     (3.5, 0.85, 4.0, 20.0, 2.2, 2.6, 5.1, 0.3),
     (40.0, 0.0, 2.0, 300.0, 15.0, 0.2, 0.0, 4.0),
 ]
-KMS = float((1 * u.au / u.yr).to(u.km / u.s).value)  # astropy: au per Julian year in km/s
-
-
-def _eccentric_anomaly(mean, e):
-    mean = np.mod(mean, 2 * math.pi)
-    return np.array([optimize.brentq(lambda E, m=m: E - e * math.sin(E) - m, 0.0, 2 * math.pi, xtol=1e-15)
-                     for m in np.ravel(mean)]).reshape(np.shape(mean))
-
-
-def _campbell(t, P, e, m0, a, i, w, W):
-    """(east, north, z) in the unit of ``a`` from the textbook formulas (module docstring)."""
-    E = _eccentric_anomaly(m0 + 2 * math.pi / P * (t - T_REF), e)
-    nu = 2.0 * np.arctan2(math.sqrt(1 + e) * np.sin(E / 2), math.sqrt(1 - e) * np.cos(E / 2))
-    r = a * (1 - e * e) / (1 + e * np.cos(nu))
-    uu = nu + w
-    north = r * (np.cos(uu) * math.cos(W) - np.sin(uu) * math.sin(W) * math.cos(i))
-    east = r * (np.cos(uu) * math.sin(W) + np.sin(uu) * math.cos(W) * math.cos(i))
-    z = r * np.sin(uu) * math.sin(i)
-    return east, north, z
 
 
 def _state(P, e, m0, a_mas, a_au, i, w, W, period_rest=None):
@@ -155,20 +131,11 @@ class _Delay:
         return t_obs_yr - extra["delay_yr"]
 
 
-class _Shift:
-    name = "test-shift"
-    parameters = ("shift_kms",)
-    linear_safe = True
-
-    def velocity_shift(self, state, basis, vz_kms, extra):
-        return np.broadcast_to(extra["shift_kms"], np.shape(vz_kms))
-
-
 def test_emission_time_and_velocity_shift_hooks():
     st = _state(*ELEMENTS[0])
     t = np.linspace(2005.0, 2015.0, 25)
     delayed = evaluate(st, t, terms=[_Delay()], extra={"delay_yr": 0.02})
     plain = evaluate(st, t - 0.02)
     assert np.allclose(delayed["east_mas"], plain["east_mas"], rtol=0, atol=1e-12)
-    shifted = evaluate(st, t, terms=[_Shift()], extra={"shift_kms": 3.5})
+    shifted = evaluate(st, t, terms=[ShiftTerm()], extra={"shift_kms": 3.5})
     assert np.allclose(shifted["vz_kms"] - evaluate(st, t)["vz_kms"], 3.5, rtol=0, atol=1e-12)

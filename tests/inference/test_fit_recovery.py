@@ -14,7 +14,7 @@ import pytest
 from orbitmass import Fit
 from orbitmass.demo.simulate import TrueOrbit
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 pytestmark = pytest.mark.slow
 

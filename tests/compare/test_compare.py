@@ -52,7 +52,7 @@ from orbitmass.exceptions import InputError, RunFolderError
 from orbitmass.io.target import read_target
 from orbitmass.units import RS_AU_PER_MSUN
 
-from .conftest import make_target
+from tests.helpers.targets import make_target
 
 N_SAMPLES = 40000
 
@@ -473,7 +473,7 @@ def test_combined_refit_recovers_truth_with_narrower_interval(fitted_parts, tmp_
     s = joint.summary
     m = s["derived"]["mass_msun"]
     assert s["diagnostics"]["converged"]
-    # pass criterion as tests/test_fit_recovery.py: the truth inside the 95 % interval
+    # pass criterion as tests/inference/test_fit_recovery.py: the truth inside the 95 % interval
     # (common practice, no source)
     assert m["q2.5"] <= TRUTH_A.mass_msun <= m["q97.5"]
     d = s["derived"]["distance_pc"]
@@ -637,7 +637,7 @@ def test_joint_refit_measures_the_second_teams_offset(tmp_path):
     pb = _team_target(tmp_path / "b", rng, TRUTH_B, spec="south-echelle", name="SB", offset_kms=30.0)
     joint = combined_refit([pa, pb], seed=4, labels=["north", "south"])
     off = joint.summary["instruments"]["south-echelle"]["offset_kms"]
-    # pass criterion as tests/test_fit_recovery.py: the truth inside the 95 % interval (common practice)
+    # pass criterion as tests/inference/test_fit_recovery.py: the truth inside the 95 % interval (common practice)
     assert off["q2.5"] <= 30.0 <= off["q97.5"]
     m = joint.summary["derived"]["mass_msun"]
     assert m["q2.5"] <= TRUTH_A.mass_msun <= m["q97.5"]

@@ -12,7 +12,7 @@ from orbitmass import Fit
 from orbitmass.cli import build_parser, main
 from orbitmass.demo.run import write_scenarios
 
-EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
+EXAMPLES = Path(__file__).resolve().parents[2] / "examples"
 
 
 def test_examples_are_the_demo_data(tmp_path):
