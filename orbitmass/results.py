@@ -335,7 +335,8 @@ class Results:
         for k in range(0, n_rows, step):
             sl = slice(k, k + step)
             part = predict_system(
-                self.space, {key: val[sl] for key, val in phys.items()}, companion,
+                self.space, {key: val[sl] if np.ndim(val) == 1 and len(val) == n_rows else val
+                             for key, val in phys.items()}, companion,
                 t_astro=None if ta is None else (ta[sl] if ta.ndim == 2 else ta),
                 t_vel=None if tv is None else (tv[sl] if tv.ndim == 2 else tv), central_rows=central_rows)
             for key, val in part.items():
