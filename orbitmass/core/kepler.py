@@ -54,8 +54,12 @@ than two orders of magnitude to spare, including near periastron
 ``tests/core/test_kepler_solver.py`` check it against mpmath.
 
 The cost per element is fixed: one ``sqrt``, one ``cbrt``, one ``tan`` and
-about sixty in-place elementwise operations (about 12 ns per element in
-blocks of rows, ``benchmarks/bench_kepler.py``).
+about sixty in-place elementwise operations: 17 ns of CPU per element for
+500 x 400 mean anomalies in blocks of rows, 1.26 times faster than the
+previous form of this solver (fifth-order step, sign by ``copysign``, every
+factor per element) measured in one process on a machine with load average
+8; ``benchmarks/bench_kepler.py`` compares it with a vectorised Newton
+iteration.
 """
 
 from __future__ import annotations
