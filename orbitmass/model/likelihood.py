@@ -235,7 +235,14 @@ def predict_system(space: ParameterSpace, phys, name, *, t_astro=None, t_vel=Non
     tv = None if t_vel is None else np.asarray(t_vel, dtype=float)
     n_a = 0 if ta is None else ta.shape[-1]
     n_v = 0 if tv is None else tv.shape[-1]
-    if n_a and n_v and ta.ndim == tv.ndim == 1:  # one Kepler solve for both kinds of epoch
+    # positions and velocities at the same epochs (a model curve): one Kepler solve per companion
+    same = n_a > 0 and ta.shape == getattr(tv, "shape", None) and np.array_equal(ta, tv)
+    others = {j: evaluate(states[j], ta, positions=absolute, terms=terms, extra=extra)
+              for j in reflex if j != name} if same else {}
+    if same:
+        own_a = evaluate(states[name], ta, terms=terms, extra=extra)
+        own_v = own_a["vz_kms"]
+    elif n_a and n_v and ta.ndim == tv.ndim == 1:  # one Kepler solve for both kinds of epoch
         both = evaluate(states[name], np.concatenate([ta, tv]), terms=terms, extra=extra)
         own_a = {k: both[k][:, :n_a] for k in ("east_mas", "north_mas")}
         own_v = both["vz_kms"][:, n_a:]
@@ -251,8 +258,8 @@ def predict_system(space: ParameterSpace, phys, name, *, t_astro=None, t_vel=Non
             north = north + phys["y0"][:, None] + phys["vy0"][:, None] * dt
             for j in reflex:
                 f = (phys[f"{j}.q"] / (1.0 + phys[f"{j}.q"]))[:, None]
-                rj = own_a if j == name else evaluate(states[j], ta, velocities=False, terms=terms,
-                                                      extra=extra)
+                rj = own_a if j == name else others.get(j) or evaluate(states[j], ta, velocities=False,
+                                                                        terms=terms, extra=extra)
                 east = east - f * rj["east_mas"]
                 north = north - f * rj["north_mas"]
         out["east_mas"], out["north_mas"] = east, north
@@ -261,8 +268,8 @@ def predict_system(space: ParameterSpace, phys, name, *, t_astro=None, t_vel=Non
         v = own_v * comp_mask
         for j in reflex:
             f = (phys[f"{j}.q"] / (1.0 + phys[f"{j}.q"]))[:, None]
-            vj = own_v if j == name else evaluate(states[j], tv, positions=False, terms=terms,
-                                                  extra=extra)["vz_kms"]
+            vj = own_v if j == name else (others.get(j) or evaluate(states[j], tv, positions=False, terms=terms,
+                                                                    extra=extra))["vz_kms"]
             v = v - f * vj
         base = phys["vz0"] if absolute else phys["systemic"]
         out["rv_kms"] = v + base[:, None]
