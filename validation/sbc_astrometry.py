@@ -192,18 +192,33 @@ def fit_one(task: dict) -> dict:
 
 
 def run_study(n_fits: int, *, seed: int = 1, n_draws: int = 99, workers: int = 2,
-              design: AstrometryDesign | None = None) -> dict:
-    """Run ``n_fits`` replicates; summary over all fits and per branch."""
+              design: AstrometryDesign | None = None, records_path: Path | None = None) -> dict:
+    """Run ``n_fits`` replicates; summary over all fits and per branch.
+
+    With ``records_path``, every finished replicate is also appended to that
+    file as one JSON line, so that an interrupted study keeps what it measured.
+    """
     design = design or AstrometryDesign()
     t0 = time.perf_counter()
     with tempfile.TemporaryDirectory(prefix="orbitmass-sbc-astrometry-") as tmp:
         tasks = [{"index": k, "seed": seed, "n_draws": n_draws, "folder": str(Path(tmp) / f"fit{k:04d}"),
                   "design": asdict(design)} for k in range(n_fits)]
+        records: list[dict] = []
+
+        def keep(record: dict) -> None:
+            records.append(record)
+            log.info("%d/%d fits done (%.0f s)", len(records), n_fits, time.perf_counter() - t0)
+            if records_path is not None:
+                with open(records_path, "a", encoding="utf-8") as fh:
+                    fh.write(json.dumps(record, default=float) + "\n")
+
         if workers <= 1:
-            records = [fit_one(task) for task in tasks]
+            for task in tasks:
+                keep(fit_one(task))
         else:
             with ProcessPoolExecutor(max_workers=workers, mp_context=get_context("spawn")) as pool:
-                records = list(pool.map(fit_one, tasks))
+                for record in pool.map(fit_one, tasks):
+                    keep(record)
     from orbitmass import __version__
 
     by_branch = {b: summarise([r for r in records if r.get("branch") == b], n_draws) for b in BRANCHES
@@ -247,7 +262,11 @@ def main(argv: list[str] | None = None) -> int:
         if not 0 < low < high:
             parser.error("--period-range needs 0 < LOW < HIGH")
         design = AstrometryDesign(period_yr=(low, high))
-    result = run_study(n_fits, seed=args.seed, n_draws=n_draws, workers=args.workers, design=design)
+    log.setLevel(logging.INFO)
+    records_path = out / "records.jsonl"
+    records_path.unlink(missing_ok=True)  # this script's own file of the previous study in OUT
+    result = run_study(n_fits, seed=args.seed, n_draws=n_draws, workers=args.workers, design=design,
+                       records_path=records_path)
     from orbitmass.outputs.style import write_atomic
 
     write_atomic(out / "sbc.json", json.dumps(result, indent=1, default=float) + "\n")
