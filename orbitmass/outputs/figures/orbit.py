@@ -570,7 +570,8 @@ def caption(results: Results) -> str:
             "velocities are shown with the posterior-median instrument offsets removed. "
             "Lower panels: data minus the pointwise posterior-median model.")
     if results.target.frame == "absolute":
-        text += " Dashed vermillion line: the posterior-median track of the barycentre."
+        text += (" Dashed vermillion line: the posterior-median track of the barycentre over the "
+                 f"astrometric epochs; the + marks it at the reference epoch {results.space.t_ref:.2f}.")
     else:
         text += " The star marks the central body."
     return text

@@ -1,0 +1,120 @@
+"""Figure checks of the paper-readiness issue: the enclosed-mass radius axis and the
+barycentre track of the orbit figure in the absolute frame.
+
+External references used:
+- Schwarzschild radius 2GM/c^2: computed here from astropy.constants (G, c) and
+  astropy.units (M_sun, km, au), not from orbitmass;
+- the barycentre of an absolute-frame fit moves on x0 + vx0 (t - t_ref) (uniform proper
+  motion; common practice, no source).
+
+The posteriors are invented Gaussian clouds (no sampling).
+"""
+
+from __future__ import annotations
+
+import astropy.constants as const
+import astropy.units as u
+import numpy as np
+import pytest
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+
+from orbitmass.compare import MassPosterior, compare
+from orbitmass.outputs import plots
+
+try:  # the posterior builder of the flat report tests
+    from ..test_reports import make_results
+except ImportError:  # pragma: no cover - run from inside tests/
+    from test_reports import make_results
+
+
+def _run(rng, label, mass, sd, a_au, e, n=8000):
+    """Invented mass posterior with one companion's semimajor axis and periastron (au)."""
+    m = rng.normal(mass, sd, n)
+    a = rng.normal(a_au, 0.01 * a_au, n)
+    return MassPosterior.from_samples(label, m, radii={
+        f"{label}-c": {"semimajor_axis_au": a, "periastron_au": a * (1 - e)}})
+
+
+def _rs_km(mass_msun):
+    # 2GM/c^2 from astropy constants (independent of orbitmass.units)
+    return float((2 * const.G * mass_msun * u.M_sun / const.c**2).to_value(u.km))
+
+
+def _top_axis(fig):
+    ax = fig.axes[0]
+    (top,) = ax.child_axes
+    return ax, top
+
+
+@pytest.mark.parametrize("mass, reference, mass_text, rs_text", [
+    # a 1.6 M_sun binary: R_S = 4.73 km (astropy), no power of ten anywhere
+    (1.6, None, r"M = 1.6\,M_\odot", r"4.7\,\mathrm{km}"),
+    # the issue's case: a stellar-mass run compared with a 4e6 M_sun reference put the
+    # mass axis in 10^6 M_sun, and the top label read "1.81e-06 x 10^6"
+    (1.81, "4.0e6 +- 0.1e6 solMass", r"M = 1.81\,M_\odot", r"5.3\,\mathrm{km}"),
+    # a 4e6 M_sun black hole: R_S = 0.079 au (astropy: 1.18e7 km / 1.496e8 km per au)
+    (4.0e6, None, r"M = 4\times10^{6}\,M_\odot", r"0.079\,\mathrm{au}"),
+])
+def test_enclosed_mass_top_axis_reads_sensibly_for_any_mass(mass, reference, mass_text, rs_text):
+    rng = np.random.default_rng(3)
+    a_au = 30.0 if mass < 100 else 900.0
+    runs = [_run(rng, "one", mass, 0.01 * mass, a_au, 0.4), _run(rng, "two", mass, 0.02 * mass, 1.5 * a_au, 0.2)]
+    cmp = compare(runs, references=[reference] if reference else [], seed=2)
+    fig = cmp.enclosed_mass_figure()
+    FigureCanvasAgg(fig).draw()  # the label is valid mathtext and is laid out
+    ax, top = _top_axis(fig)
+    label = top.get_xlabel()
+    assert mass_text in label and rs_text in label
+    assert "e-0" not in label and "e+0" not in label  # no Python float spelling
+    if mass < 100:
+        assert r"\times10" not in label
+    # the R_S value in the label is 2GM/c^2 of the median mass, to two digits
+    med = float(np.median(np.concatenate([r.mass_msun for r in runs])))
+    rs_km = _rs_km(med)
+    shown = float(rs_text.split(r"\,")[0])
+    in_km = shown if "km" in rs_text else float((shown * u.au).to_value(u.km))
+    assert in_km == pytest.approx(rs_km, rel=0.02)
+    # top limits are the bottom limits (au) divided by R_S (au)
+    rs_au = float((rs_km * u.km).to_value(u.au))
+    assert top.get_xlim() == pytest.approx(tuple(x / rs_au for x in ax.get_xlim()), rel=1e-3)
+    # the label stays inside the figure (a single column: nothing cut off)
+    renderer = fig.canvas.get_renderer()
+    box = top.xaxis.label.get_window_extent(renderer)
+    fig_box = fig.bbox
+    assert box.x0 >= fig_box.x0 - 1 and box.x1 <= fig_box.x1 + 1 and box.y1 <= fig_box.y1 + 1
+
+
+def test_absolute_frame_barycentre_track_and_its_reference_mark(tmp_path):
+    res = make_results(tmp_path, kind="absolute", scatter=0.2)
+    fig = plots.orbit_figure(res, n_draws=4, n_grid=200)
+    sky = fig.axes[0]
+    dashed = [ln for ln in sky.get_lines() if ln.get_linestyle() == "--"]
+    assert len(dashed) == 1
+    x, y = np.asarray(dashed[0].get_xdata(), float), np.asarray(dashed[0].get_ydata(), float)
+    assert len(x) >= 2 and np.hypot(x[-1] - x[0], y[-1] - y[0]) > 1.0  # a track, not a point
+    # the track is straight: every point lies on the line through its ends
+    d = np.array([x[-1] - x[0], y[-1] - y[0]])
+    normal = np.array([-d[1], d[0]]) / np.hypot(*d)
+    assert np.max(np.abs((x - x[0]) * normal[0] + (y - y[0]) * normal[1])) < 1e-9 * max(1.0, np.hypot(*d))
+    # the "+" marks the barycentre at the reference epoch: on the line x0 + vx0 (t - t_ref)
+    plus = [ln for ln in sky.get_lines() if ln.get_marker() == "+"]
+    assert len(plus) == 1
+    px, py = float(plus[0].get_xdata()[0]), float(plus[0].get_ydata()[0])
+    assert abs((px - x[0]) * normal[0] + (py - y[0]) * normal[1]) < 1e-6 * max(1.0, np.hypot(*d))
+    s = res.samples
+    assert px == pytest.approx(float(np.median(s["x0_mas"])), abs=1e-9)
+    assert py == pytest.approx(float(np.median(s["y0_mas"])), abs=1e-9)
+    # the legend names what is drawn: the dashed track, and the "+" with its epoch
+    labels = [t.get_text() for sub in fig.subfigs for leg in sub.legends for t in leg.get_texts()]
+    track = [t for t in labels if "barycentre" in t]
+    assert track, labels
+    handles = {t.get_text(): h for sub in fig.subfigs for leg in sub.legends
+               for t, h in zip(leg.get_texts(), leg.legend_handles, strict=True)}
+    styles = {(handles[t].get_linestyle(), handles[t].get_marker()) for t in track}
+    assert ("--", "None") in styles or ("--", "") in styles or any(ls == "--" for ls, _ in styles)
+    assert any(m == "+" for _, m in styles)
+    # the caption says what the dashed line and the "+" are, with the epoch of the "+"
+    from orbitmass.outputs.figures.orbit import caption
+
+    text = caption(res)
+    assert "barycentre" in text and f"{res.space.t_ref:.2f}" in text and "+" in text
