@@ -118,3 +118,47 @@ def test_absolute_frame_barycentre_track_and_its_reference_mark(tmp_path):
 
     text = caption(res)
     assert "barycentre" in text and f"{res.space.t_ref:.2f}" in text and "+" in text
+
+
+def test_trace_labels_of_model_term_parameters_are_symbols_not_keys():
+    # the parameters the model terms sample (redshift, precession, extended mass) are labelled by
+    # the symbol of the quantity table, not by their key (a referee would object to "redshift_factor")
+    from orbitmass.core import relativity
+    from orbitmass.model.quantities import QUANTITIES
+    from orbitmass.outputs.figures.trace import trace_label
+
+    names = {p for cls in (relativity.RedshiftTerm, relativity.RoemerTerm, relativity.PrecessionTerm,
+                           relativity.ExtendedMassTerm) for p in cls.parameters}
+    assert names == {"redshift_factor", "precession_factor", "extended_mass_fraction"}
+    for name in sorted(names):
+        label = trace_label(name)
+        assert "_factor" not in label and "_fraction" not in label, label
+        assert label == f"${QUANTITIES[name].latex}$"
+
+
+def test_relativity_residual_figure_labels_range_and_periastron_mark(tmp_path):
+    # the demo's periastron figure as a Figure: units in brackets, the time axis of the other
+    # figures, +-2 yr around the periastron, the dotted periastron line named in the legend
+    try:
+        from ..test_reports import NUCLEUS
+    except ImportError:  # pragma: no cover
+        from test_reports import NUCLEUS
+    from orbitmass.demo.beyond_kepler import relativity_figure
+    from orbitmass.outputs.figures.common import TIME_LABEL
+
+    res = make_results(tmp_path, kind="nucleus", scatter=0.2)
+    tp = NUCLEUS["C1"].periastron_time
+    fig = relativity_figure(res, res, "C1", periastron_jyr=tp, half_width_yr=2.0)
+    FigureCanvasAgg(fig).draw()
+    top, bottom = fig.axes[:2]
+    assert bottom.get_xlabel() == TIME_LABEL
+    assert bottom.get_xlim() == pytest.approx((tp - 2.0, tp + 2.0))
+    for ax in (top, bottom):
+        assert "[km s$^{-1}$]" in ax.get_ylabel()
+        vertical = [ln for ln in ax.get_lines() if ln.get_linestyle() == ":"]
+        assert len(vertical) == 1 and np.allclose(vertical[0].get_xdata(), tp)
+    legend = [t.get_text() for t in top.get_legend().get_texts()]
+    assert legend[0] == "periastron" and "Keplerian orbit" in legend
+    # the same model twice: the Keplerian-minus-relativistic curve is zero everywhere
+    (diff,) = [ln for ln in bottom.get_lines() if ln.get_label() == "Keplerian − relativistic model"]
+    assert np.allclose(diff.get_ydata(), 0.0, atol=1e-9)

@@ -15,8 +15,8 @@ from typing import Any
 import numpy as np
 
 from orbitmass.exceptions import InputError
-from orbitmass.model.quantities import PHASE_NAME
-from orbitmass.outputs.figures.common import mpl_text
+from orbitmass.model.quantities import PHASE_NAME, QUANTITIES
+from orbitmass.outputs.figures.common import axis_label, mpl_text
 from orbitmass.outputs.registry import register
 from orbitmass.outputs.style import DOUBLE_COLUMN_IN, PALETTE, save_figure, style_context
 from orbitmass.results import Results
@@ -61,6 +61,8 @@ def trace_label(name: str) -> str:
         return f"{mpl_text(tail)}: {_TRACE_LABELS[head]}"
     if tail in _TRACE_LABELS:  # companion or plane prefix
         return f"{mpl_text(head)}: {_TRACE_LABELS[tail]}"
+    if name in QUANTITIES:  # a term parameter sampled as it is reported (e.g. the redshift factor)
+        return axis_label(name)
     return mpl_text(name)
 
 
