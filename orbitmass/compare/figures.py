@@ -198,7 +198,7 @@ def enclosed_mass_figure(cmp):
             _plain_log_ticks(axis)
         ncol = 2 if max(len(h.get_label()) for h in handles) <= 30 else 1
         ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=ncol,
-                  fontsize=6.5, handlelength=1.6, handletextpad=0.5, columnspacing=1.0)
+                  fontsize=6.5, handlelength=1.6, handletextpad=0.8, columnspacing=1.0)
         ymin, ymax = ax.get_ylim()
         if ymin > 0 and ymax / ymin > 10:
             ax.set_yscale("log")

@@ -21,7 +21,7 @@ from orbitmass.outputs.registry import register
 from orbitmass.outputs.style import DOUBLE_COLUMN_IN, PALETTE, save_figure, style_context
 from orbitmass.results import Results
 
-__all__ = ["trace_figure", "trace_label"]
+__all__ = ["sampled_text", "trace_figure", "trace_label"]
 
 logger = logging.getLogger(__name__)
 
@@ -50,6 +50,51 @@ _TRACE_LABELS = {
     "vz0": r"$v_{z,0}$ [km s$^{-1}$]",
     "systemic": r"$v_\mathrm{sys}$ [km s$^{-1}$]",
 }
+
+
+#: sampled-variable name -> plain-text symbol (reports and tables), the same variables as above
+_TRACE_TEXT = {
+    "ln_mass": "ln(M/M☉)",
+    "ln_distance": "ln(D/pc)",
+    "ln_parallax": "ln(ϖ/mas)",
+    "ln_period": "ln(P/yr)",
+    "sqrte_cosw": "√e cos ω",
+    "sqrte_sinw": "√e sin ω",
+    "cos_i": "cos i",
+    "node": "Ω [rad]",
+    "omega": "ω [rad]",
+    "mean_longitude": "λ = M₀ + ω [rad]",
+    "mass_ratio": "q",
+    "offset": "Δv [km/s]",
+    "jitter": "σ_jit [km/s]",
+    "ln_jitter": "ln(σ_jit/(km/s))",
+    "x0": "x₀ [mas]",
+    "y0": "y₀ [mas]",
+    "vx0": "ẋ₀ [mas/yr]",
+    "vy0": "ẏ₀ [mas/yr]",
+    "vz0": "v_z,0 [km/s]",
+    "systemic": "v_sys [km/s]",
+}
+
+
+def sampled_text(name: str) -> str:
+    """Plain-text symbol of a sampled variable (companion prefix or instrument suffix kept).
+
+    Examples
+    --------
+    >>> sampled_text("QD-S4.mean_longitude"), sampled_text("offset.south-ifu"), sampled_text("redshift_factor")
+    ('QD-S4: λ = M₀ + ω [rad]', 'south-ifu: Δv [km/s]', 'f_z')
+    """
+    if name in _TRACE_TEXT:
+        return _TRACE_TEXT[name]
+    head, _, tail = name.partition(".")
+    if head in ("offset", "jitter", "ln_jitter"):
+        return f"{tail}: {_TRACE_TEXT[head]}"
+    if tail in _TRACE_TEXT:
+        return f"{head}: {_TRACE_TEXT[tail]}"
+    if name in QUANTITIES:
+        return QUANTITIES[name].text
+    return name
 
 
 def trace_label(name: str) -> str:

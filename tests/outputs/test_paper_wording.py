@@ -1,0 +1,95 @@
+"""Wording of tables, reports and the demo's console summary for a paper.
+
+External references used:
+- 1 kpc = 1000 pc (SI prefixes), checked with astropy.units;
+- the sampled phase λ = M₀ + ω is the mean argument of latitude; the classical mean
+  longitude adds the node Ω (common practice, no source).
+
+The posteriors are the simulated Gaussian clouds of tests/test_reports.py (no sampling).
+"""
+
+from __future__ import annotations
+
+import argparse
+import re
+
+import astropy.units as u
+import pytest
+
+from orbitmass.outputs.reports import write_report
+from orbitmass.outputs.tables import display_rows, priors, table_tex
+
+try:
+    from ..test_reports import NUCLEUS, make_results
+except ImportError:  # pragma: no cover - run from inside tests/
+    from test_reports import NUCLEUS, make_results
+
+
+@pytest.fixture(scope="module")
+def nucleus(tmp_path_factory):
+    return make_results(tmp_path_factory.mktemp("wording_nucleus"))
+
+
+def test_distance_prior_in_the_unit_of_the_result(nucleus):
+    # the 6400 +- 250 pc prior of the simulated nucleus is shown in kpc, as the 6.4 kpc result is
+    stored = {p["parameter"]: p["prior"] for p in nucleus.summary["priors"]}
+    assert stored["distance"] == "normal(mean 6400 pc, sd 250 pc)"  # summary.json keeps pc
+    shown = {p["parameter"]: p["prior"] for p in priors(nucleus)}
+    mean, sd = (float(x) for x in re.fullmatch(r"normal\(mean (\S+) kpc, sd (\S+) kpc\)",
+                                                 shown["distance"]).groups())
+    assert (mean * u.kpc).to_value(u.pc) == pytest.approx(6400.0)
+    assert (sd * u.kpc).to_value(u.pc) == pytest.approx(250.0)
+    rows = {r.parameter: r for r in display_rows(nucleus)}
+    assert rows["distance_pc"].unit.text == "kpc"
+    # the LaTeX footnote says the same, in ASCII
+    tex = table_tex(nucleus)
+    foot = tex[tex.index(r"{\footnotesize"):]
+    assert "mean 6.4 kpc, sd 0.25 kpc" in foot and tex.isascii()
+    # other rows untouched
+    assert shown["C1 period"] == "log-uniform on [1 yr, 100 yr] (rest frame)"
+
+
+def _unescape(cell: str) -> str:
+    """A Markdown table cell as plain text (the report escapes _ [ ] | with a backslash)."""
+    return re.sub(r"\\(.)", r"\1", cell.strip())
+
+
+def test_diagnostics_table_names_each_sampled_variable_by_its_symbol(nucleus, tmp_path):
+    paths = write_report(nucleus, tmp_path, {})
+    md = paths["md"].read_text(encoding="utf-8")
+    part = md[md.index("Per sampled variable"):]
+    part = part[:part.index("\n## ")] if "\n## " in part else part
+    assert "| Variable | Symbol | τ | ESS | R-hat |" in part
+    assert "λ, the mean argument of latitude" in part.splitlines()[0]
+    rows = [ln.split("|")[1:3] for ln in part.splitlines() if ln.startswith("| ")][1:]
+    symbols = {_unescape(k): _unescape(s) for k, s in rows}
+    assert symbols["C1.mean_longitude"] == "C1: λ = M₀ + ω [rad]"
+    assert symbols["ln_mass"] == "ln(M/M☉)" and symbols["C1.cos_i"] == "C1: cos i"
+    assert set(symbols) == set(nucleus.summary["diagnostics"]["per_parameter"])
+    assert all(s and "_longitude" not in s for s in symbols.values()), symbols
+
+
+def test_demo_console_summary_one_unit_spelling_and_display_units(monkeypatch, capsys, nucleus, tmp_path):
+    # the demo's console lines: M☉ everywhere (never "Msun"), no Python float spelling ("e+06"),
+    # the invented truth in the same display unit as the fitted value (kpc beside kpc)
+    from orbitmass.cli import demo as cli_demo
+    from orbitmass.demo import run as demo_run
+
+    truth = NUCLEUS["C1"]
+    rel = {"factors": {"redshift_factor": {"median": 0.7, "q16": 0.45, "q84": 0.95}},
+           "mass_msun": {"keplerian": {"median": 2.37e6, "q16": 2.34e6, "q84": 2.40e6},
+                         "shift": 7.15e4, "shift_sigma": 1.9},
+           "distance_pc": {"shift": 320.0, "shift_sigma": 1.5}, "figure": [str(tmp_path / "r.png")]}
+    fake = [demo_run.DemoResult(name="nucleus", run_dir=tmp_path, truth=truth, summary=nucleus.summary,
+                                relativity=rel)]
+    monkeypatch.setattr(demo_run, "run_demo", lambda *a, **k: fake)
+    args = argparse.Namespace(out=str(tmp_path / "demo"), seed=1, overwrite=False, no_progress=True)
+    assert cli_demo.run(args) == 0
+    out = capsys.readouterr().out
+    assert "Msun" not in out and not re.search(r"\de[+-]\d", out), out
+    dist_line = next(ln for ln in out.splitlines() if ln.strip().startswith("distance:"))
+    assert dist_line.count("kpc") == 2 and "invented truth 6.4 kpc" in dist_line
+    mass_line = next(ln for ln in out.splitlines() if ln.strip().startswith("total mass:"))
+    assert "invented truth 2.3 × 10^6 M☉" in mass_line
+    kep = next(ln for ln in out.splitlines() if "Keplerian fit" in ln)
+    assert "shifted by +71500 M☉ (+1.9 sigma)" in kep and "shifted by +320 pc (+1.5 sigma)" in kep
