@@ -14,6 +14,7 @@ import argparse
 import re
 
 import astropy.units as u
+import numpy as np
 import pytest
 
 from orbitmass.outputs.reports import write_report
@@ -93,3 +94,22 @@ def test_demo_console_summary_one_unit_spelling_and_display_units(monkeypatch, c
     assert "invented truth 2.3 × 10^6 M☉" in mass_line
     kep = next(ln for ln in out.splitlines() if "Keplerian fit" in ln)
     assert "shifted by +71500 M☉ (+1.9 sigma)" in kep and "shifted by +320 pc (+1.5 sigma)" in kep
+
+
+def test_comparison_page_spells_the_solar_mass_once_and_gives_the_distance_in_kpc(nucleus):
+    # comparison.md: M☉ in every header (msun only in JSON keys); the joint distance of the
+    # simulated nucleus (6.4 kpc, 1 kpc = 1000 pc) in kpc as in the run's own report
+    from orbitmass.compare import MassPosterior, compare
+    from orbitmass.compare.report import markdown
+
+    rng = np.random.default_rng(4)
+    runs = [MassPosterior.from_samples("north", rng.normal(2.3e6, 0.1e6, 4000)),
+            MassPosterior.from_samples("south", rng.normal(2.25e6, 0.15e6, 4000))]
+    joint = MassPosterior.from_results(nucleus, "joint refit")
+    page = markdown(compare(runs, combined=joint, seed=3))
+    assert "M_sun" not in page and "Msun" not in page and "[M☉]" in page
+    line = next(ln for ln in page.splitlines() if ln.startswith("Joint distance:"))
+    value = float(re.match(r"Joint distance: (\d+(?:\.\d+)?) ", line).group(1))
+    assert line.rstrip(".").endswith("kpc")
+    median_pc = float(np.median(nucleus.samples["distance_pc"]))
+    assert (value * u.kpc).to_value(u.pc) == pytest.approx(median_pc, rel=0.01)
