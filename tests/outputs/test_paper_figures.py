@@ -180,3 +180,35 @@ def test_direction_arrow_sits_where_no_data_marker_hides_it(tmp_path):
     # the start lies on a drawn orbit, and clear of the data by more than 3 % of the orbit's width
     assert np.min(np.hypot(*(track - start).T)) < 1e-9 * extent + 1e-12
     assert gap > 0.03 * extent, (gap, extent)
+
+
+def test_corner_truth_outside_the_posterior_is_drawn_clear_of_the_frame_and_ticks_stay_apart(tmp_path):
+    # a Keplerian fit of relativistic data lands several sigma from the truth: the truth line must
+    # not sit on the panel frame, and no tick label may touch its neighbour's (the issue's
+    # "0.7125" against "117.7"); ticks keep 12 % of the panel clear at each edge
+    from orbitmass.outputs import figures
+
+    res = make_results(tmp_path, kind="nucleus", scatter=0.2)
+    cols = ["mass_msun", "distance_pc", "C1.period_yr", "C1.eccentricity", "C1.inclination_deg"]
+    s = res.samples
+    far = {c: float(np.median(s[c]) + sign * 6 * np.std(s[c]))  # 6 sigma beyond, both sides
+           for c, sign in zip(cols, (-1, 1, -1, 1, -1), strict=True)}
+    fig = figures.corner_figure(res, params=cols, truths=far)
+    FigureCanvasAgg(fig).draw()
+    renderer = fig.canvas.get_renderer()
+    n = len(cols)
+    axes = np.asarray(fig.axes).reshape(n, n)
+    for i, c in enumerate(cols):
+        lo, hi = axes[-1, i].get_xlim()
+        shown = far[c] * (1e-3 if c == "distance_pc" else 1.0)  # 6.4 kpc: shown in kpc (1 kpc = 1000 pc)
+        if c == "mass_msun":
+            shown = far[c] / 1e6  # the mass axis is in 10^6 M_sun
+        assert lo + 0.03 * (hi - lo) < shown < hi - 0.03 * (hi - lo), (c, lo, shown, hi)
+        for t in axes[-1, i].get_xticks():
+            assert lo + 0.119 * (hi - lo) <= t <= hi - 0.119 * (hi - lo)
+        assert len(axes[-1, i].get_xticks()) >= 2
+    boxes = [t.get_window_extent(renderer) for ax in axes[-1] for t in ax.get_xticklabels() if t.get_text()]
+    boxes += [t.get_window_extent(renderer) for ax in axes[1:, 0] for t in ax.get_yticklabels() if t.get_text()]
+    for k, a in enumerate(boxes):
+        for b in boxes[k + 1:]:
+            assert not a.overlaps(b), "tick labels overlap"
