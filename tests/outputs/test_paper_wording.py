@@ -113,3 +113,48 @@ def test_comparison_page_spells_the_solar_mass_once_and_gives_the_distance_in_kp
     assert line.rstrip(".").endswith("kpc")
     median_pc = float(np.median(nucleus.samples["distance_pc"]))
     assert (value * u.kpc).to_value(u.pc) == pytest.approx(median_pc, rel=0.01)
+
+
+def test_joint_target_message_on_different_distances_is_whole_and_plain(tmp_path):
+    # the refusal to merge two runs with different distance priors: a whole sentence that names
+    # both priors in words (no Python object spelling) and the way out, in library wording
+    from orbitmass.compare import combined_target
+    from orbitmass.exceptions import InputError
+    from orbitmass.io.target import read_target
+
+    try:
+        from ..test_compare import _two_datasets
+    except ImportError:  # pragma: no cover
+        from test_compare import _two_datasets
+
+    pa, pb = _two_datasets(tmp_path, np.random.default_rng(1),
+                           distance_b='prior = { dist = "normal", mean = "9 kpc", sd = "0.5 kpc" }')
+    with pytest.raises(InputError) as err:
+        combined_target([read_target(pa), read_target(pb)], labels=["A", "B"])
+    text = err.value.reason
+    for internal in ("Distance(", "Normal(", "Uniform(", "np.float64", "=None"):
+        assert internal not in text, text
+    assert "normal(mean 9000 pc, sd 500 pc)" in text  # 9 kpc = 9000 pc (SI prefixes)
+    assert text.endswith("(one of 'A', 'B')") and "--priors-from" not in text
+
+
+def test_cli_compare_names_its_own_flag_for_the_priors_choice(monkeypatch, tmp_path):
+    # the command line says --priors-from where the library says priors_from (never both)
+    import orbitmass.compare as compare_pkg
+    from orbitmass.cli import compare as cli_compare
+    from orbitmass.exceptions import InputError
+
+    def refuse(*_a, **_k):
+        raise InputError("runs 'A' and 'B' have different distance information (x vs y); a joint fit needs "
+                         "one: name the run whose distance information to use with priors_from (one of 'A', 'B')",
+                         key="distance")
+
+    monkeypatch.setattr(compare_pkg, "compare_folders", refuse)
+    args = argparse.Namespace(run_dirs=[str(tmp_path / "a"), str(tmp_path / "b")], label=None, reference=[],
+                              refit=True, same_companion="rename", priors_from=None, seed=1, max_steps=10,
+                              overwrite=False, no_progress=True, out=str(tmp_path / "c"))
+    with pytest.raises(InputError) as err:
+        cli_compare.run(args)
+    text = str(err.value)
+    assert text.startswith("'distance': ") and "with --priors-from LABEL (one of 'A', 'B')" in text
+    assert "priors_from" not in text
