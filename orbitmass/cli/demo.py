@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from orbitmass.cli.common import EXIT_OK, option_hint, seed
+from orbitmass.cli.common import EXIT_OK, captured_warnings, option_hint, print_warnings, seed
 from orbitmass.exceptions import RunFolderError
 from orbitmass.outputs.formatting import format_number, summary_text
 
@@ -40,10 +40,12 @@ def run(args: argparse.Namespace) -> int:
     from orbitmass.demo.run import run_demo
 
     try:
-        results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
-                           progress=False if args.no_progress else None)
+        with captured_warnings() as caught:  # orbitmass's warnings as one "warning: ..." line each
+            results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
+                               progress=False if args.no_progress else None)
     except RunFolderError as exc:
         raise option_hint(exc) from None
+    print_warnings(caught)
     print(f"demo data and runs written to {Path(args.out).resolve()}")
     for res in results:
         s = res.summary

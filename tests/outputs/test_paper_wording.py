@@ -158,3 +158,25 @@ def test_cli_compare_names_its_own_flag_for_the_priors_choice(monkeypatch, tmp_p
     text = str(err.value)
     assert text.startswith("'distance': ") and "with --priors-from LABEL (one of 'A', 'B')" in text
     assert "priors_from" not in text
+
+
+def test_demo_prints_orbitmass_warnings_as_one_line_without_source_code(monkeypatch, capsys, nucleus, tmp_path):
+    # a warning raised during the demo fits reaches the user as "warning: ..." once, not as
+    # Python's file:line report followed by the source line of the call
+    import warnings
+
+    from orbitmass.cli import demo as cli_demo
+    from orbitmass.demo import run as demo_run
+    from orbitmass.exceptions import DegeneracyWarning
+
+    def fake_run(*_a, **_k):
+        for _ in range(2):
+            warnings.warn("B: without velocities (omega, Omega) fit equally", DegeneracyWarning, stacklevel=1)
+        return [demo_run.DemoResult(name="nucleus", run_dir=tmp_path, truth=NUCLEUS["C1"], summary=nucleus.summary)]
+
+    monkeypatch.setattr(demo_run, "run_demo", fake_run)
+    args = argparse.Namespace(out=str(tmp_path / "demo"), seed=1, overwrite=False, no_progress=True)
+    assert cli_demo.run(args) == 0
+    err = capsys.readouterr().err
+    lines = [ln for ln in err.splitlines() if ln.strip()]
+    assert lines == ["warning: B: without velocities (omega, Omega) fit equally"], err
