@@ -52,6 +52,7 @@ from orbitmass.exceptions import InputError, RunFolderError
 from orbitmass.io.target import read_target
 from orbitmass.units import RS_AU_PER_MSUN
 
+from tests.helpers.comparison import TRUTH_A, TRUTH_B, WIDE_DISTANCE, two_datasets
 from tests.helpers.targets import make_target
 
 N_SAMPLES = 40000
@@ -354,25 +355,8 @@ def test_compare_needs_something_to_compare(rng):
 
 
 # ---------------------------------------------------------------------- combined target
-TRUTH_A = TrueOrbit(mass_msun=2.0e6, distance_pc=9000.0, period_yr=12.0, eccentricity=0.5, inclination_deg=60.0,
-                    arg_periastron_deg=100.0, ascending_node_deg=30.0, periastron_time=2012.0)
-TRUTH_B = TrueOrbit(mass_msun=2.0e6, distance_pc=9000.0, period_yr=19.0, eccentricity=0.3, inclination_deg=130.0,
-                    arg_periastron_deg=250.0, ascending_node_deg=200.0, periastron_time=2016.0)
-WIDE_DISTANCE = 'prior = { dist = "uniform", low = "2 kpc", high = "30 kpc" }'
-
-
-def _two_datasets(folder: Path, rng, *, name_b="SB", distance_b=WIDE_DISTANCE, extra_b="", companion_b=""):
-    pa = make_target(folder / "a", TRUTH_A, rng=rng, t_pos=np.sort(rng.uniform(2006, 2022, 16)),
-                     t_rv=np.sort(rng.uniform(2008, 2022, 10)), pos_err=0.3, rv_err=15.0,
-                     distance_toml=WIDE_DISTANCE, name="SA")
-    pb = make_target(folder / "b", TRUTH_B, rng=rng, t_pos=np.sort(rng.uniform(2006, 2022, 16)),
-                     t_rv=np.sort(rng.uniform(2008, 2022, 10)), pos_err=0.3, rv_err=15.0,
-                     distance_toml=distance_b, name=name_b, extra_toml=extra_b, companion_toml=companion_b)
-    return pa, pb
-
-
 def test_combined_target_is_the_union(tmp_path, rng):
-    pa, pb = _two_datasets(tmp_path, rng)
+    pa, pb = two_datasets(tmp_path, rng)
     ta, tb = read_target(pa), read_target(pb)
     joint = combined_target([ta, tb], labels=["A", "B"])
     assert [c.name for c in joint.companions] == ["SA", "SB"]
@@ -383,7 +367,7 @@ def test_combined_target_is_the_union(tmp_path, rng):
 
 
 def test_combined_target_renames_or_merges_a_shared_companion_name(tmp_path, rng):
-    pa, pb = _two_datasets(tmp_path, rng, name_b="SA")
+    pa, pb = two_datasets(tmp_path, rng, name_b="SA")
     ta, tb = read_target(pa), read_target(pb)
     renamed = combined_target([ta, tb], labels=["team.one", "two"])
     assert [c.name for c in renamed.companions] == ["team_one:SA", "two:SA"]
@@ -400,7 +384,7 @@ def test_combined_target_renames_or_merges_a_shared_companion_name(tmp_path, rng
 
 
 def test_combined_target_refuses_conflicting_distance_unless_told(tmp_path, rng):
-    pa, pb = _two_datasets(tmp_path, rng, distance_b='prior = { dist = "normal", mean = "9 kpc", sd = "0.5 kpc" }')
+    pa, pb = two_datasets(tmp_path, rng, distance_b='prior = { dist = "normal", mean = "9 kpc", sd = "0.5 kpc" }')
     ta, tb = read_target(pa), read_target(pb)
     with pytest.raises(InputError) as err:
         combined_target([ta, tb], labels=["A", "B"])
@@ -413,7 +397,7 @@ def test_combined_target_refuses_conflicting_distance_unless_told(tmp_path, rng)
 
 def test_combined_target_refuses_one_instrument_with_two_priors(tmp_path, rng):
     extra = '[instruments.default]\noffset = { dist = "normal", mean = "0 km / s", sd = "5 km / s" }\n'
-    pa, pb = _two_datasets(tmp_path, rng, extra_b=extra)
+    pa, pb = two_datasets(tmp_path, rng, extra_b=extra)
     with pytest.raises(InputError) as err:
         combined_target([pa, pb])  # target files are read on the way
     assert err.value.key == "instruments.default"
@@ -421,7 +405,7 @@ def test_combined_target_refuses_one_instrument_with_two_priors(tmp_path, rng):
 
 def test_combined_target_refuses_epoch_tied_priors_at_different_epochs(tmp_path, rng):
     tied = 'mean_anomaly = { dist = "normal", mean = "30 deg", sd = "5 deg" }'
-    pa, pb = _two_datasets(tmp_path, rng, companion_b=tied)
+    pa, pb = two_datasets(tmp_path, rng, companion_b=tied)
     ta, tb = read_target(pa), read_target(pb)
     assert ta.reference_epoch != tb.reference_epoch  # default: the mean epoch of each dataset
     with pytest.raises(InputError) as err:
@@ -460,7 +444,7 @@ def fitted_parts(tmp_path_factory):
     from orbitmass.io.rundir import save_run
 
     folder = tmp_path_factory.mktemp("parts")
-    pa, pb = _two_datasets(folder, np.random.default_rng(20261201))
+    pa, pb = two_datasets(folder, np.random.default_rng(20261201))
     fits = [Fit(seed=2, progress=False).fit(p) for p in (pa, pb)]
     dirs = [save_run(f.results, folder / f"run-{k}", products=False) for k, f in zip("ab", fits, strict=True)]
     return fits, dirs

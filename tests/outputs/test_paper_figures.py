@@ -21,10 +21,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from orbitmass.compare import MassPosterior, compare
 from orbitmass.outputs import plots
 
-try:  # the posterior builder of the flat report tests
-    from ..test_reports import make_results
-except ImportError:  # pragma: no cover - run from inside tests/
-    from test_reports import make_results
+from tests.helpers.results import NUCLEUS, make_results
 
 
 def _run(rng, label, mass, sd, a_au, e, n=8000):
@@ -139,10 +136,6 @@ def test_trace_labels_of_model_term_parameters_are_symbols_not_keys():
 def test_relativity_residual_figure_labels_range_and_periastron_mark(tmp_path):
     # the demo's periastron figure as a Figure: units in brackets, the time axis of the other
     # figures, +-2 yr around the periastron, the dotted periastron line named in the legend
-    try:
-        from ..test_reports import NUCLEUS
-    except ImportError:  # pragma: no cover
-        from test_reports import NUCLEUS
     from orbitmass.demo.beyond_kepler import relativity_figure
     from orbitmass.outputs.figures.common import TIME_LABEL
 
@@ -222,10 +215,6 @@ def test_demo_records_the_invented_truth_so_the_corner_draws_it(tmp_path):
     from orbitmass.demo.run import record_truth
     from orbitmass.outputs import figures
 
-    try:
-        from ..test_reports import NUCLEUS
-    except ImportError:  # pragma: no cover
-        from test_reports import NUCLEUS
 
     res = make_results(tmp_path, kind="nucleus", scatter=0.2)
     truth = NUCLEUS["C1"]

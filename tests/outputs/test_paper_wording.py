@@ -5,7 +5,7 @@ External references used:
 - the sampled phase λ = M₀ + ω is the mean argument of latitude; the classical mean
   longitude adds the node Ω (common practice, no source).
 
-The posteriors are the simulated Gaussian clouds of tests/test_reports.py (no sampling).
+The posteriors are the simulated Gaussian clouds of tests/helpers/results.py (no sampling).
 """
 
 from __future__ import annotations
@@ -20,10 +20,7 @@ import pytest
 from orbitmass.outputs.reports import write_report
 from orbitmass.outputs.tables import display_rows, priors, table_tex
 
-try:
-    from ..test_reports import NUCLEUS, make_results
-except ImportError:  # pragma: no cover - run from inside tests/
-    from test_reports import NUCLEUS, make_results
+from tests.helpers.results import NUCLEUS, make_results
 
 
 @pytest.fixture(scope="module")
@@ -122,12 +119,9 @@ def test_joint_target_message_on_different_distances_is_whole_and_plain(tmp_path
     from orbitmass.exceptions import InputError
     from orbitmass.io.target import read_target
 
-    try:
-        from ..test_compare import _two_datasets
-    except ImportError:  # pragma: no cover
-        from test_compare import _two_datasets
+    from tests.helpers.comparison import two_datasets
 
-    pa, pb = _two_datasets(tmp_path, np.random.default_rng(1),
+    pa, pb = two_datasets(tmp_path, np.random.default_rng(1),
                            distance_b='prior = { dist = "normal", mean = "9 kpc", sd = "0.5 kpc" }')
     with pytest.raises(InputError) as err:
         combined_target([read_target(pa), read_target(pb)], labels=["A", "B"])
