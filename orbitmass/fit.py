@@ -25,7 +25,7 @@ from orbitmass.exceptions import InputError, NotFittedError
 from orbitmass.forecast.predict import predict as forecast_predict
 from orbitmass.inference import pipeline
 from orbitmass.inference.quality import issue_warnings
-from orbitmass.inference.sampler import SamplerOptions, default_walkers, least_walkers
+from orbitmass.inference.sampler import SamplerOptions
 from orbitmass.io.export import to_inference_data
 from orbitmass.io.rundir import load_run, save_run, write_products
 from orbitmass.io.target import read_target
@@ -46,9 +46,7 @@ class Fit:
         Seed of every random choice of the fit (initialisation and sampler);
         the same seed and data give the same result.
     n_walkers : int or None
-        Ensemble size; default ``max(64, 4 * n_dim)``, with several companions
-        ``max(64, 4 * (n_block + 1))`` for the largest block of the block moves
-        (:func:`orbitmass.inference.sampler.default_walkers`).
+        Ensemble size; default ``max(64, 4 * n_dim)``.
     max_steps : int
         Step cap of the sampler.
     min_steps : int
@@ -119,11 +117,11 @@ class Fit:
         if not isinstance(target, Target):
             target = read_target(target)
         space = pipeline.build_space(target)
-        n_walkers = self.n_walkers or default_walkers(space)
+        n_walkers = self.n_walkers or max(64, 4 * space.ndim)
         n_walkers += n_walkers % 2
-        if n_walkers < least_walkers(space):
+        if n_walkers < 2 * space.ndim:
             raise InputError(f"n_walkers = {n_walkers} is too small for {space.ndim} parameters; "
-                             f"use at least {least_walkers(space)}", key="walkers")
+                             f"use at least {2 * space.ndim}", key="walkers")
         options = SamplerOptions(max_steps=self.max_steps, min_steps=min(self.min_steps, self.max_steps),
                                  progress=self.progress)
         self.results_ = pipeline.run_fit(

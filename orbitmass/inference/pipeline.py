@@ -9,9 +9,9 @@
   weights are poor or it fails;
 * the normal path: the initial search (:mod:`orbitmass.inference.initialise`)
   and the ensemble sampler (:mod:`orbitmass.inference.sampler`) on every
-  element (with several companions, block moves per companion and for the
-  shared parameters beside the full-dimensional ones:
-  :func:`~orbitmass.inference.sampler.parameter_blocks`), with a checkpoint when a path is given, or continuing the chain of
+  element (with ``SamplerOptions(blocked=True)`` and several companions,
+  block moves per companion and for the shared parameters beside the
+  full-dimensional ones: :func:`block_posteriors`), with a checkpoint when a path is given, or continuing the chain of
   a checkpoint (``resume``).
 
 The angle windows are explicit: the initial search returns them, the sampled
@@ -280,7 +280,7 @@ def _sampler_path(target, space, rng, options, seed, n_walkers, max_periods, ckp
             meta["elapsed_seconds"] = elapsed_before + time.perf_counter() - t0
             save_checkpoint(ckpt_path, b, meta)
 
-    blocks, partial = block_posteriors(post)
+    blocks, partial = block_posteriors(post) if options.blocked else (None, None)
     run = run_sampler(post, p0, seed=int(rng.integers(2**31 - 1)), options=options,
                       backend=backend, stop_flag=stop_flag, checkpoint=checkpoint_fn,
                       blocks=blocks, partial=partial)

@@ -30,7 +30,10 @@ ratio is the posterior ratio and the kernel leaves the same posterior
 invariant; a mixture of such kernels with the full-dimensional moves does
 too. A block jump needs only as many complementary walkers as the block has
 coordinates, so the ensemble need not grow with the total dimension
-(:func:`default_walkers`).
+(:func:`default_walkers`). They are off by default (``SamplerOptions.blocked``):
+measured, they shorten a four-companion relative-frame fit but mix the shared
+parameters of a drifting frame (mass, distance, frame) more slowly than the
+full-dimensional moves (docs/performance.md).
 """
 
 from __future__ import annotations
@@ -219,7 +222,7 @@ def parameter_blocks(space, *, owners: bool = False):
 
 
 def default_walkers(space) -> int:
-    """Default walker count: ``max(64, 4 n)`` rounded up to even, ``n`` the largest block or the dimension.
+    """Walker count for the block moves: ``max(64, 4 n)`` rounded up to even, ``n`` the largest block or the dimension.
 
     With blocked moves (:func:`parameter_blocks`) ``n`` is the largest block
     plus one (block moves need walkers beyond the block's size, not the whole
@@ -259,8 +262,11 @@ class SamplerOptions:
     progress : bool or None
         tqdm progress bar; ``None`` shows it only on a terminal.
     blocked : bool
-        Use the block moves when the caller gives blocks (default); False
-        keeps the full-dimensional moves alone (the reference).
+        Use the block moves when the caller gives blocks; off by default (the
+        full-dimensional moves alone, with ``max(64, 4 n_dim)`` walkers): on
+        the four-star drifting-frame hard case they mixed the shared block
+        more slowly (docs/performance.md). With it on, use
+        :func:`default_walkers` walkers.
     """
 
     n_walkers: int | None = None
@@ -272,7 +278,7 @@ class SamplerOptions:
     burn_fraction: float = 0.2
     max_retained: int = 40000
     progress: bool | None = None
-    blocked: bool = True
+    blocked: bool = False
 
 
 @dataclass
