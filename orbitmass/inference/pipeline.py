@@ -9,7 +9,9 @@
   weights are poor or it fails;
 * the normal path: the initial search (:mod:`orbitmass.inference.initialise`)
   and the ensemble sampler (:mod:`orbitmass.inference.sampler`) on every
-  element, with a checkpoint when a path is given, or continuing the chain of
+  element (with ``SamplerOptions(blocked=True)`` and several companions,
+  block moves per companion and for the shared parameters beside the
+  full-dimensional ones: :func:`block_posteriors`), with a checkpoint when a path is given, or continuing the chain of
   a checkpoint (``resume``).
 
 The angle windows are explicit: the initial search returns them, the sampled
@@ -36,7 +38,7 @@ from orbitmass.exceptions import InputError
 from orbitmass.inference.initialise import initialise_walkers
 from orbitmass.inference.linear import LinearPathError, applies, fit_linear
 from orbitmass.inference.quality import quality_or_failure
-from orbitmass.inference.sampler import SamplerOptions, run_sampler
+from orbitmass.inference.sampler import SamplerOptions, parameter_blocks, run_sampler
 from orbitmass.inference.summary import build_summary
 from orbitmass.io.checkpoint import backend_from_checkpoint, load_checkpoint, save_checkpoint
 from orbitmass.model.data import Target
@@ -44,7 +46,7 @@ from orbitmass.model.likelihood import LogPosterior
 from orbitmass.model.parameters import AngleWindows, ParameterSpace
 from orbitmass.results import Results, derive_samples
 
-__all__ = ["build_space", "resolve_seed", "run_fit", "ResumedInit"]
+__all__ = ["build_space", "block_posteriors", "resolve_seed", "run_fit", "ResumedInit"]
 
 log = logging.getLogger(__name__)
 
@@ -116,6 +118,38 @@ def _scattered_start(post, kepler_space, kepler, n_walkers, rng, stop_flag):
     init.other_modes = kepler.other_modes
     init.interrupted = init.interrupted or kepler.interrupted
     return init
+
+
+def block_posteriors(post: LogPosterior):
+    """Blocks of the block moves and, per block, the part of the posterior it changes.
+
+    A companion's block changes only the prior and the likelihood of that
+    companion's own rows when no companion pulls the central body (no
+    sampled or fixed mass ratio: every other row is independent of its
+    elements); that part is a :class:`LogPosterior` over the same space with
+    only those rows. The shared block, and every block when some companion
+    has a mass ratio, is scored by the whole posterior (None).
+
+    Returns
+    -------
+    (blocks, partial) : lists, or (None, None) with a single companion
+    """
+    space = post.space
+    found = parameter_blocks(space, owners=True)
+    if found is None:
+        return None, None
+    blocks, owners = found
+    if any(lay.has_q for lay in space.companions):
+        return blocks, None
+    partial = []
+    for name in owners:
+        if name is None:
+            partial.append(None)
+            continue
+        astro = {name: post.astrometry[name]} if name in post.astrometry else {}
+        vel = {name: post.velocities[name]} if name in post.velocities else {}
+        partial.append(LogPosterior(space, blocks=(astro, vel), fused=post.fused))
+    return blocks, partial
 
 
 def resolve_seed(seed: int | None) -> int:
@@ -246,8 +280,10 @@ def _sampler_path(target, space, rng, options, seed, n_walkers, max_periods, ckp
             meta["elapsed_seconds"] = elapsed_before + time.perf_counter() - t0
             save_checkpoint(ckpt_path, b, meta)
 
+    blocks, partial = block_posteriors(post) if options.blocked else (None, None)
     run = run_sampler(post, p0, seed=int(rng.integers(2**31 - 1)), options=options,
-                      backend=backend, stop_flag=stop_flag, checkpoint=checkpoint_fn)
+                      backend=backend, stop_flag=stop_flag, checkpoint=checkpoint_fn,
+                      blocks=blocks, partial=partial)
     if init.interrupted:
         run.interrupted = True
         run.converged = False
