@@ -12,11 +12,11 @@
    time against log companions), and split into its factors: steps to
    convergence, walkers, and the cost of one evaluation (wall = steps x
    walkers x seconds per evaluation, up to the initialisation and the checks).
-   Each count is fitted with the block moves (per companion and for the
-   shared parameters, 64 walkers; ``SamplerOptions(blocked=True)``, see
-   :mod:`orbitmass.inference.sampler`) and, for the counts in ``--plain``,
-   side by side with the default sampler: the full-dimensional moves alone
-   and ``max(64, 4 n_dim)`` walkers. Per fit
+   Each count is fitted with the default sampler (the full-dimensional
+   moves and ``max(64, 4 n_dim)`` walkers) and, for the counts in
+   ``--blocked``, side by side with the opt-in block moves (per companion and
+   for the shared parameters, 64 walkers; ``SamplerOptions(blocked=True)``,
+   see :mod:`orbitmass.inference.sampler`). Per fit
    it prints the initialisation and sampling seconds, steps, walkers, the
    largest split R-hat, the smallest ESS and the ESS of the mass, and whether
    it converged (R-hat < 1.01 and the contract's ESS and tau criteria).
@@ -26,7 +26,7 @@
 
 Usage::
 
-    python benchmarks/bench_scaling.py [--quick] [--counts 1 2 4 8] [--plain 4]
+    python benchmarks/bench_scaling.py [--quick] [--counts 1 2 4 8] [--blocked 4]
 """
 
 from __future__ import annotations
@@ -191,7 +191,7 @@ def exponents(rows: list[dict]) -> dict:
 def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
         counts: tuple[int, ...] | None = None, repeats: int | None = None,
         fit_repeats: int | dict[int, int] | None = None, n_pos: int = 25, n_rv: int = 12,
-        max_steps: int = 20000, plain_counts: tuple[int, ...] = ()) -> dict:
+        max_steps: int = 20000, blocked_counts: tuple[int, ...] = ()) -> dict:
     """Run both scalings.
 
     Parameters
@@ -202,15 +202,15 @@ def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
         8 (they take minutes; the median is reported), seven timing repeats.
     sizes, counts, repeats, fit_repeats, n_pos, n_rv, max_steps
         Override the settings (for smoke tests).
-    plain_counts : tuple of int
-        Companion counts also fitted with the plain full-dimensional moves
-        (side by side, in the same run), e.g. ``(4,)``.
+    blocked_counts : tuple of int
+        Companion counts also fitted with the opt-in block moves
+        (``SamplerOptions(blocked=True)``; side by side, in the same run), e.g. ``(4,)``.
 
     Returns
     -------
     dict
         ``"epochs"`` (list of per-size figures), ``"companions"`` (list of
-        per-count figures), ``"plain"`` (the same for ``plain_counts``),
+        per-count figures of the default sampler), ``"blocked"`` (the same for ``blocked_counts``),
         ``"load"`` (load averages before and after), ``"exponents"`` (growth exponents of the wall time
         and its factors with the number of companions; target: wall <= 1),
         ``"settings"``.
@@ -221,13 +221,13 @@ def run(quick: bool, sizes: tuple[int, ...] = (10, 100, 1000, 10000),
     import os
 
     load_before = os.getloadavg()
-    rows = companion_scaling(counts, fit_repeats, n_pos=n_pos, n_rv=n_rv, max_steps=max_steps)
-    plain = companion_scaling(tuple(plain_counts), 1, n_pos=n_pos, n_rv=n_rv, max_steps=max_steps,
-                              plain=True) if plain_counts else []
+    rows = companion_scaling(counts, fit_repeats, n_pos=n_pos, n_rv=n_rv, max_steps=max_steps, plain=True)
+    blocked = companion_scaling(tuple(blocked_counts), 1, n_pos=n_pos, n_rv=n_rv,
+                                max_steps=max_steps) if blocked_counts else []
     return {
         "epochs": epoch_scaling(sizes, repeats),
         "companions": rows,
-        "plain": plain,
+        "blocked": blocked,
         "load": {"before": list(load_before), "after": list(os.getloadavg())},
         "exponents": exponents(rows),
         "settings": {"timing_repeats": repeats, "n_sets": N_SETS,
@@ -247,7 +247,7 @@ def table(result: dict) -> str:
     lines.append(f"{'sampler':>8} {'comp':>5} {'n_dim':>6} {'runs':>5} {'init s':>7} {'sample s':>9} {'wall s':>8} "
                  f"{'steps':>7} {'walkers':>8} {'tau':>6} {'R-hat':>7} {'ESSmin':>7} {'ESS(M)':>8} {'conv':>5} "
                  f"{'M in95':>7}")
-    for r in list(result["companions"]) + list(result.get("plain", [])):
+    for r in list(result["companions"]) + list(result.get("blocked", [])):
         lines.append(f"{r.get('sampler', 'default'):>8} {r['n_companions']:>5d} {r['n_dim']:>6d} {r['repeats']:>5d} "
                      f"{r.get('init_seconds', float('nan')):>7.1f} {r['sampling_seconds']:>9.1f} "
                      f"{r['wall_seconds']:>8.1f} {r['n_steps']:>7.0f} {r.get('n_walkers', 0):>8d} "
@@ -274,12 +274,12 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--quick", action="store_true", help="1 and 2 companions, fewer repeats")
     parser.add_argument("--counts", type=int, nargs="*", help="companion counts (default 1 2 4 8)")
     parser.add_argument("--fit-repeats", type=int, help="fits per count (default 3, 2, 1, 1)")
-    parser.add_argument("--plain", type=int, nargs="*", default=[],
-                        help="counts also fitted with the plain full-dimensional moves, side by side")
+    parser.add_argument("--blocked", type=int, nargs="*", default=[],
+                        help="counts also fitted with the opt-in block moves, side by side")
     parser.add_argument("--json", help="also write the result to this JSON file")
     args = parser.parse_args(argv)
     result = run(args.quick, counts=tuple(args.counts) if args.counts else None,
-                 fit_repeats=args.fit_repeats, plain_counts=tuple(args.plain))
+                 fit_repeats=args.fit_repeats, blocked_counts=tuple(args.blocked))
     print(table(result))  # noqa: T201 (benchmark script output)
     if args.json:
         import json
