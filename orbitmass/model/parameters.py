@@ -66,12 +66,14 @@ from typing import Mapping, Sequence
 import numpy as np
 from numpy.typing import NDArray
 
+from orbitmass.core.kepler import kepler_cos_sin
 from orbitmass.core.physics import semimajor_axis_au
 from orbitmass.exceptions import InputError
 from orbitmass.model.data import Companion, Target
 from orbitmass.model.priors import Isotropic, LogUniform, Prior, Uniform
+from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
 
-__all__ = ["Variable", "AngleWindows", "ParameterSpace", "priors_used"]
+__all__ = ["Variable", "AngleWindows", "ParameterSpace", "priors_used", "ReferenceState", "StatePosterior"]
 
 TWO_PI = 2.0 * math.pi
 LN2 = math.log(2.0)
@@ -911,3 +913,209 @@ def priors_used(space) -> list[dict[str, str]]:
             out.append({"parameter": f"{comp.name} plane",
                         "prior": f"shares inclination and node with plane {comp.plane!r}"})
     return out
+
+
+class ReferenceState:
+    """Sample some companions in their state at the reference epoch instead of their elements.
+
+    For a companion that the data follow over a small fraction of its orbit,
+    the elements (ln P, sqrt(e) cos w, sqrt(e) sin w, cos i, Omega, lambda) are
+    strongly and non-linearly correlated, while what the data measure is nearly
+    linear: the sky position and motion at the reference epoch (and the
+    line-of-sight velocity where there are velocities). The six element
+    columns of such a companion are replaced, in place and in this order, by
+
+    ``north_mas, east_mas, z_mas`` (position relative to the central body, the
+    line-of-sight depth +z away from the observer, expressed as an angle at the
+    distance), ``vnorth_mas_yr, veast_mas_yr`` (sky motion) and ``vz_kms``.
+
+    Every other column is the same as in the element space. The map to the
+    elements is the classical inversion of a bound Kepler orbit (specific
+    angular momentum, eccentricity vector, Kepler's equation); states of
+    unbound orbits have no elements and get log density -inf.
+
+    Jacobian (exact). With mass and distance held fixed, the Delaunay
+    variables (M, omega, Omega, L, G, H), L = sqrt(mu a), G = L sqrt(1 - e^2),
+    H = G cos i, are canonical, so d^3r d^3v = dM dw dW dL dG dH (Goldstein,
+    Classical Mechanics, canonical transformations preserve phase volume)
+    = (1/2) mu^(3/2) a^(1/2) e da de dcos(i) dw dW dM. With
+    da = (2/3) a dln P, dh dk = (1/2) de dw and dlambda dw = dM dw,
+    d^3r d^3v = (2/3) mu^(3/2) a^(3/2) e dlnP dh dk dcos(i) dW dlambda; the
+    sky units add (1000/d)^5 (five coordinates in mas or mas/yr) and
+    ``KMS_PER_AU_PER_YR`` (vz in km/s). The density of the state variables is
+    the element-space posterior times |d theta / d u| =
+    1 / [(2/3) mu^(3/2) a^(3/2) e (1000/d)^5 K]; mass and distance columns
+    are common to both spaces, so the whole Jacobian is this block product.
+    Checked against a finite-difference determinant in
+    ``tests/inference/test_reference_state.py``.
+
+    Without velocities, a state and its mirror (z, vz) -> (-z, -vz) have the
+    same elements up to (omega, Omega) -> (omega + pi, Omega + pi), which the
+    half-turn node window identifies; both copies map to the same wrapped
+    element vector with the same Jacobian, so sampling either (or both)
+    gives the element-space posterior.
+
+    Only companions with an eccentricity vector, free period, their own free
+    plane (cos i and node sampled, not shared) and a sampled mean longitude
+    qualify (:meth:`eligible`), and only without redshift time dilation.
+    """
+
+    STATE_NAMES = ("north_mas", "east_mas", "z_mas", "vnorth_mas_yr", "veast_mas_yr", "vz_kms")
+
+    def __init__(self, space: ParameterSpace, names: Sequence[str]):
+        self.space = space
+        self.companions = tuple(names)
+        self.cols: dict[str, NDArray[np.intp]] = {}
+        for name in self.companions:
+            if name not in self.eligible(space):
+                raise ValueError(f"companion {name!r} cannot be sampled in its reference state")
+            lay = next(l for l in space.companions if l.name == name)
+            info = space.planes[lay.plane]
+            self.cols[name] = np.array([lay.idx["ln_period"], lay.idx["h"], lay.idx["k"], info["i_var"],
+                                        info["node_var"], lay.idx["lambda"]], dtype=np.intp)
+        self.names = list(space.names)
+        for name, cols in self.cols.items():
+            for j, sname in zip(cols, self.STATE_NAMES):
+                self.names[j] = f"{name}.{sname}"
+        self.ndim = space.ndim
+
+    @staticmethod
+    def eligible(space: ParameterSpace) -> list[str]:
+        """Companions whose six element columns can be replaced by a reference state."""
+        if space.one_plus_z != 1.0:
+            return []
+        out = []
+        for lay in space.companions:
+            info = space.planes[lay.plane]
+            if (lay.ecc_mode == "vector" and lay.idx.get("ln_period", -1) >= 0 and not lay.phase_from_tp
+                    and lay.idx.get("lambda", -1) >= 0 and len(info["members"]) == 1
+                    and info["i_var"] is not None and info["node_var"] is not None):
+                out.append(lay.name)
+        return out
+
+    # ------------------------------------------------------------------ maps
+    def _mu_d(self, theta_or_u):
+        """GM (au^3/yr^2) and distance (pc) per row; the columns are common to both spaces."""
+        with np.errstate(over="ignore", invalid="ignore"):  # state columns read as elements: unused
+            phys = self.space.unpack(theta_or_u)
+        return GM_SUN_AU3_PER_YR2 * phys["mass_msun"], phys["distance_pc"], phys
+
+    def to_state(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+        """State vectors ``u`` from element vectors ``theta`` (rows)."""
+        theta = np.atleast_2d(np.asarray(theta, dtype=float))
+        u = theta.copy()
+        mu, d, phys = self._mu_d(theta)
+        for name, cols in self.cols.items():
+            e = phys[f"{name}.ecc"]
+            w = phys[f"{name}.omega"]
+            cos_i = phys[f"{name}.cos_i"]
+            sin_i = phys[f"{name}.sin_i"]
+            node = phys[f"{name}.node"]
+            period = phys[f"{name}.period_yr"]
+            a = np.cbrt(mu * period ** 2 / (4.0 * math.pi ** 2))
+            cw, sw, cW, sW = np.cos(w), np.sin(w), np.cos(node), np.sin(node)
+            p_vec = np.stack([cw * cW - sw * sW * cos_i, cw * sW + sw * cW * cos_i, sw * sin_i])
+            q_vec = np.stack([-sw * cW - cw * sW * cos_i, -sw * sW + cw * cW * cos_i, cw * sin_i])
+            cE, sE = kepler_cos_sin(phys[f"{name}.m0"], e)
+            root = np.sqrt(1.0 - e * e)
+            X, Y = cE - e, root * sE
+            inv = 1.0 / (1.0 - e * cE)
+            dX, dY = -sE * inv, root * cE * inv
+            n = TWO_PI / period
+            r = a * (X * p_vec + Y * q_vec)  # au, (north, east, z)
+            v = a * n * (dX * p_vec + dY * q_vec)  # au/yr
+            s = 1000.0 / d
+            u[:, cols[0]], u[:, cols[1]], u[:, cols[2]] = r[0] * s, r[1] * s, r[2] * s
+            u[:, cols[3]], u[:, cols[4]] = v[0] * s, v[1] * s
+            u[:, cols[5]] = v[2] * KMS_PER_AU_PER_YR
+        return u
+
+    def to_elements(self, u: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """Element vectors (wrapped into the space's windows) and log |d theta / d u| per row.
+
+        Rows whose state is not a bound orbit (or is degenerate: e = 0, h = 0)
+        get NaN elements and a log Jacobian of -inf.
+        """
+        u = np.atleast_2d(np.asarray(u, dtype=float))
+        theta = u.copy()
+        mu, d, _ = self._mu_d(u)
+        log_jac = np.zeros(u.shape[0])
+        bad = np.zeros(u.shape[0], dtype=bool)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            for name, cols in self.cols.items():
+                s = d / 1000.0
+                r = np.stack([u[:, cols[0]] * s, u[:, cols[1]] * s, u[:, cols[2]] * s])
+                v = np.stack([u[:, cols[3]] * s, u[:, cols[4]] * s, u[:, cols[5]] / KMS_PER_AU_PER_YR])
+                rn = np.sqrt(np.sum(r * r, axis=0))
+                v2 = np.sum(v * v, axis=0)
+                energy = 0.5 * v2 - mu / rn
+                a = -mu / (2.0 * energy)
+                h = np.cross(r, v, axis=0)
+                hn = np.sqrt(np.sum(h * h, axis=0))
+                rv = np.sum(r * v, axis=0)
+                evec = np.cross(v, h, axis=0) / mu - r / rn
+                e = np.sqrt(np.sum(evec * evec, axis=0))
+                W = h / hn
+                p_vec = evec / e
+                q_vec = np.cross(W, p_vec, axis=0)
+                cos_i = W[2]
+                node = np.arctan2(W[0], -W[1])
+                omega = np.arctan2(p_vec[2], q_vec[2])
+                cE = (1.0 - rn / a) / e
+                sE = rv / (e * np.sqrt(mu * a))
+                E = np.arctan2(sE, cE)
+                m0 = E - e * np.sin(E)
+                period = TWO_PI * np.sqrt(a ** 3 / mu)
+                ok = (energy < 0.0) & (e > 0.0) & (e < 1.0) & (hn > 0.0) & np.isfinite(period)
+                bad |= ~ok
+                se = np.sqrt(e)
+                theta[:, cols[0]] = np.log(period)
+                theta[:, cols[1]] = se * np.cos(omega)
+                theta[:, cols[2]] = se * np.sin(omega)
+                theta[:, cols[3]] = cos_i
+                theta[:, cols[4]] = node
+                theta[:, cols[5]] = m0 + omega
+                log_jac -= (math.log(2.0 / 3.0) + 1.5 * np.log(mu * a) + np.log(e)
+                            - 5.0 * np.log(s) + math.log(KMS_PER_AU_PER_YR))
+        theta[bad] = np.nan
+        log_jac[bad] = -np.inf
+        good = ~bad
+        if good.any():
+            theta[good] = self.space.wrap_angles(theta[good])
+        return theta, log_jac
+
+    def wrap_angles(self, u: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Wrap the angle columns that remain elements; state columns are left as they are."""
+        u = np.atleast_2d(np.asarray(u, dtype=float))
+        if not self.cols:
+            return self.space.wrap_angles(u)
+        state_cols = np.concatenate(list(self.cols.values()))
+        out = self.space.wrap_angles(u)
+        out[:, state_cols] = u[:, state_cols]
+        return out
+
+
+class StatePosterior:
+    """The log posterior of an element-space posterior ``post`` in the variables of ``state`` (a ReferenceState).
+
+    ``log p_u(u) = log p_theta(theta(u)) + log |d theta / d u|``: the same
+    posterior, so the physical quantities follow the documented priors
+    exactly. ``space`` is the :class:`ReferenceState` (it has ``wrap_angles``
+    and ``ndim`` like a parameter space); ``n_sets`` counts evaluations.
+    """
+
+    def __init__(self, post, state: ReferenceState):
+        self.post = post
+        self.space = state
+        self.n_sets = 0
+
+    def __call__(self, u: NDArray[np.float64]) -> NDArray[np.float64]:
+        u = np.atleast_2d(u)
+        self.n_sets += u.shape[0]
+        theta, log_jac = self.space.to_elements(u)
+        out = np.full(u.shape[0], -np.inf)
+        ok = np.isfinite(log_jac)
+        if ok.any():
+            out[ok] = self.post(theta[ok]) + log_jac[ok]
+        out[~np.isfinite(out)] = -np.inf
+        return out
