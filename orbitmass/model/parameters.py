@@ -925,9 +925,16 @@ class ReferenceState:
     line-of-sight velocity where there are velocities). The six element
     columns of such a companion are replaced, in place and in this order, by
 
-    ``north_mas, east_mas, z_mas`` (position relative to the central body, the
-    line-of-sight depth +z away from the observer, expressed as an angle at the
-    distance), ``vnorth_mas_yr, veast_mas_yr`` (sky motion) and ``vz_kms``.
+    ``north_mas, east_mas`` (sky position relative to the central body),
+    ``depth_asinh`` = asinh(z / rho) (z the line-of-sight depth, +z away from
+    the observer, as an angle at the distance; rho the sky separation),
+    ``vnorth_mas_yr, veast_mas_yr`` (sky motion) and ``vz_atanh`` =
+    atanh(vz / vz_max), vz_max = sqrt(2 GM / r - v_sky^2) the largest
+    line-of-sight speed of a bound orbit at that place. The two last
+    transforms take away the heavy tail of the depth and the hard wall of
+    the escape speed, which the arc leaves unconstrained; they are triangular
+    (z depends on the sky position and zeta, vz on eta and the others) and add
+    log r (mas) + log(vz_max) - 2 log cosh(eta) to the log-Jacobian.
 
     Every other column is the same as in the element space. The map to the
     elements is the classical inversion of a bound Kepler orbit (specific
@@ -943,11 +950,19 @@ class ReferenceState:
     d^3r d^3v = (2/3) mu^(3/2) a^(3/2) e dlnP dh dk dcos(i) dW dlambda; the
     sky units add (1000/d)^5 (five coordinates in mas or mas/yr) and
     ``KMS_PER_AU_PER_YR`` (vz in km/s). The density of the state variables is
-    the element-space posterior times |d theta / d u| =
-    1 / [(2/3) mu^(3/2) a^(3/2) e (1000/d)^5 K]; mass and distance columns
+    the element-space posterior times |d theta / d (r, v)| =
+    1 / [(2/3) mu^(3/2) a^(3/2) e (1000/d)^5 K], times the factors of the
+    depth and vz transforms below; mass and distance columns
     are common to both spaces, so the whole Jacobian is this block product.
     Checked against a finite-difference determinant in
     ``tests/inference/test_reference_state.py``.
+
+    When the mass is sampled, its column is replaced by the log acceleration
+    scale ln(GM / r^3) of the first such companion (r its distance from the
+    central body in au at the reference epoch): on an arc the curvature
+    measures GM / r^3, not M; ln M = ln(GM/r^3) + 3 ln r - ln G Msun is
+    triangular in the other variables with unit diagonal, so it adds nothing
+    to the Jacobian.
 
     Without velocities, a state and its mirror (z, vz) -> (-z, -vz) have the
     same elements up to (omega, Omega) -> (omega + pi, Omega + pi), which the
@@ -960,7 +975,7 @@ class ReferenceState:
     qualify (:meth:`eligible`), and only without redshift time dilation.
     """
 
-    STATE_NAMES = ("north_mas", "east_mas", "z_mas", "vnorth_mas_yr", "veast_mas_yr", "vz_kms")
+    STATE_NAMES = ("north_mas", "east_mas", "depth_asinh", "vnorth_mas_yr", "veast_mas_yr", "vz_atanh")
 
     def __init__(self, space: ParameterSpace, names: Sequence[str]):
         self.space = space
@@ -977,6 +992,11 @@ class ReferenceState:
         for name, cols in self.cols.items():
             for j, sname in zip(cols, self.STATE_NAMES):
                 self.names[j] = f"{name}.{sname}"
+        # the mass column becomes ln(GM / r^3) of the first companion (yr^-2, r its 3-D distance in au): the
+        # acceleration the arc's curvature measures
+        self.accel_col = space.index.get("ln_mass")
+        if self.accel_col is not None and self.companions:
+            self.names[self.accel_col] = f"{self.companions[0]}.ln_accel"
         self.ndim = space.ndim
 
     @staticmethod
@@ -1005,6 +1025,7 @@ class ReferenceState:
         theta = np.atleast_2d(np.asarray(theta, dtype=float))
         u = theta.copy()
         mu, d, phys = self._mu_d(theta)
+        first = True
         for name, cols in self.cols.items():
             e = phys[f"{name}.ecc"]
             w = phys[f"{name}.omega"]
@@ -1025,9 +1046,14 @@ class ReferenceState:
             r = a * (X * p_vec + Y * q_vec)  # au, (north, east, z)
             v = a * n * (dX * p_vec + dY * q_vec)  # au/yr
             s = 1000.0 / d
-            u[:, cols[0]], u[:, cols[1]], u[:, cols[2]] = r[0] * s, r[1] * s, r[2] * s
+            u[:, cols[0]], u[:, cols[1]] = r[0] * s, r[1] * s
+            u[:, cols[2]] = np.arcsinh(r[2] / np.hypot(r[0], r[1]))
             u[:, cols[3]], u[:, cols[4]] = v[0] * s, v[1] * s
-            u[:, cols[5]] = v[2] * KMS_PER_AU_PER_YR
+            v_max = np.sqrt(2.0 * mu / np.sqrt(np.sum(r * r, axis=0)) - v[0] ** 2 - v[1] ** 2)
+            u[:, cols[5]] = np.arctanh(v[2] / v_max)
+            if first and self.accel_col is not None:
+                u[:, self.accel_col] = np.log(mu) - 1.5 * np.log(np.sum(r * r, axis=0))
+            first = False
         return u
 
     def to_elements(self, u: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
@@ -1039,14 +1065,28 @@ class ReferenceState:
         u = np.atleast_2d(np.asarray(u, dtype=float))
         theta = u.copy()
         mu, d, _ = self._mu_d(u)
+        s = d / 1000.0
         log_jac = np.zeros(u.shape[0])
         bad = np.zeros(u.shape[0], dtype=bool)
+        depth = {}
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            for name, cols in self.cols.items():  # z = rho sinh(zeta): dz / dzeta = rho cosh(zeta) = r
+                rho = np.hypot(u[:, cols[0]], u[:, cols[1]])
+                depth[name] = (rho * np.sinh(u[:, cols[2]]), rho * np.cosh(u[:, cols[2]]))
+                log_jac += np.log(depth[name][1])
+            if self.accel_col is not None:  # GM = (GM / r^3) r^3 with the first companion's r
+                r_au = depth[self.companions[0]][1] * s
+                mu = np.exp(u[:, self.accel_col]) * r_au ** 3
+                theta[:, self.accel_col] = np.log(mu / GM_SUN_AU3_PER_YR2)
             for name, cols in self.cols.items():
-                s = d / 1000.0
-                r = np.stack([u[:, cols[0]] * s, u[:, cols[1]] * s, u[:, cols[2]] * s])
-                v = np.stack([u[:, cols[3]] * s, u[:, cols[4]] * s, u[:, cols[5]] / KMS_PER_AU_PER_YR])
-                rn = np.sqrt(np.sum(r * r, axis=0))
+                z_mas, r_mas = depth[name]
+                r = np.stack([u[:, cols[0]] * s, u[:, cols[1]] * s, z_mas * s])
+                rn = r_mas * s
+                # vz = v_max tanh(eta), v_max the largest |vz| of a bound orbit: dvz / deta = v_max / cosh^2
+                v_max = np.sqrt(2.0 * mu / rn - (u[:, cols[3]] ** 2 + u[:, cols[4]] ** 2) * s * s)
+                eta = u[:, cols[5]]
+                v = np.stack([u[:, cols[3]] * s, u[:, cols[4]] * s, v_max * np.tanh(eta)])
+                log_jac += np.log(v_max * KMS_PER_AU_PER_YR) - 2.0 * (np.logaddexp(eta, -eta) - LN2)
                 v2 = np.sum(v * v, axis=0)
                 energy = 0.5 * v2 - mu / rn
                 a = -mu / (2.0 * energy)

@@ -19,7 +19,8 @@ import numpy as np
 import pytest
 
 from orbitmass.core import diagnostics
-from orbitmass.core.orbit import evaluate
+from orbitmass.core.kepler import kepler_cos_sin
+from orbitmass.core.orbit import evaluate, thiele_innes
 from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.inference.initialise import initialise_walkers, reference_state_companions
 from orbitmass.inference.pipeline import build_space
@@ -27,6 +28,7 @@ from orbitmass.inference.sampler import SamplerOptions, run_sampler
 from orbitmass.io.target import read_target
 from orbitmass.model.likelihood import LogPosterior, orbit_states
 from orbitmass.model.parameters import ReferenceState, StatePosterior
+from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
 
 from tests.conftest import make_target
 
@@ -71,8 +73,23 @@ def test_state_matches_the_orbit_evaluator(tmp_path, rng, velocities):
     tol = r * n_pass * (1e-9 + 2e-12 / dt[:, 0])
     assert np.all(np.abs(u[:, cols[3]] - vn) < tol)
     assert np.all(np.abs(u[:, cols[4]] - ve) < tol)
+    # depth and line-of-sight velocity through their transforms: z = rho sinh(zeta), vz = vz_max tanh(eta)
+    rho = np.hypot(u[:, cols[0]], u[:, cols[1]])
+    z_mas = rho * np.sinh(u[:, cols[2]])
+    mu = GM_SUN_AU3_PER_YR2 * phys["mass_msun"]
+    s = phys["distance_pc"] / 1000.0
+    v_max = np.sqrt(2 * mu / (rho * np.cosh(u[:, cols[2]]) * s) - (u[:, cols[3]] ** 2 + u[:, cols[4]] ** 2) * s * s)
+    vz = v_max * np.tanh(u[:, cols[5]]) * KMS_PER_AU_PER_YR
     if velocities:
-        np.testing.assert_allclose(u[:, cols[5]], out["vz_kms"][:, 2], rtol=1e-10, atol=1e-9)
+        np.testing.assert_allclose(vz, out["vz_kms"][:, 2], rtol=1e-9, atol=1e-9)
+    # the depth against z = C X + H Y of orbitmass.core.orbit (its module docstring), C, H in mas here
+    a_mas = np.cbrt(mu * phys["S1.period_yr"] ** 2 / (4 * np.pi ** 2)) / s
+    _, _, _, _, C, H = thiele_innes(a_mas, phys["S1.cos_i"], phys["S1.sin_i"], np.cos(phys["S1.omega"]),
+                                    np.sin(phys["S1.omega"]), np.cos(phys["S1.node"]), np.sin(phys["S1.node"]))
+    e = phys["S1.ecc"]
+    cE, sE = kepler_cos_sin(phys["S1.m0"], e)
+    z_model = C * (cE - e) + H * np.sqrt(1 - e * e) * sE
+    np.testing.assert_allclose(z_mas, z_model, rtol=1e-9, atol=1e-9 * a_mas.max())
 
 
 @pytest.mark.parametrize("velocities", [True, False])
@@ -116,7 +133,7 @@ def test_unbound_states_have_no_density(tmp_path, rng):
     state = ReferenceState(space, ["S1"])
     theta = space.sample_prior(rng, 3)
     u = state.to_state(theta)
-    u[:, state.cols["S1"][3:5]] *= 100.0
+    u[:, state.cols["S1"][3:5]] *= 100.0  # sky speed above the escape speed: no vz makes it bound
     _, log_jac = state.to_elements(u)
     assert np.all(log_jac == -np.inf)
     post = StatePosterior(LogPosterior(space), state)
