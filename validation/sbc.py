@@ -362,7 +362,8 @@ def summarise(records: list[dict], n_draws: int) -> dict:
     for key, (_, attr, _, _) in QUANTITIES.items():
         # every fit counts, converged or not; a fit that raised counts as a miss (no interval)
         n = len(records)
-        res: dict = {"n": n, "n_unconverged": sum(1 for r in ok if not r["diagnostics"]["converged"])}
+        unconverged = sum(1 for r in ok if not r.get("diagnostics", {}).get("converged", True))
+        res: dict = {"n": n, "n_unconverged": unconverged}
         for name, (p0, lo, hi) in INTERVALS.items():
             inside = [("error" not in r) and r[key][lo] <= r["truth"][attr] <= r[key][hi] for r in records]
             p = float(np.mean(inside)) if n else float("nan")
