@@ -173,18 +173,18 @@ def target_toml(design: Design) -> str:
     m_lo, m_hi = design.mass_msun
     d_mean, d_sd = design.distance_pc
     p_lo, p_hi = design.period_yr
+    head = textwrap.dedent(f"""\
+        [target]
+        name = "SBC {design.config}"
+        reference_epoch = {design.reference_epoch!r}
+
+        [central]
+        mass = {{ dist = "log-uniform", low = "{m_lo!r} solMass", high = "{m_hi!r} solMass" }}
+
+        [distance]
+        prior = {{ dist = "normal", mean = "{d_mean!r} pc", sd = "{d_sd!r} pc" }}
+        """)
     if design.config == "disk":
-        head = textwrap.dedent(f"""\
-            [target]
-            name = "SBC disk"
-            reference_epoch = {design.reference_epoch!r}
-
-            [central]
-            mass = {{ dist = "log-uniform", low = "{m_lo!r} solMass", high = "{m_hi!r} solMass" }}
-
-            [distance]
-            prior = {{ dist = "normal", mean = "{d_mean!r} pc", sd = "{d_sd!r} pc" }}
-            """)
         blocks = [textwrap.dedent(f"""\
             [[companion]]
             name = "{name}"
@@ -196,17 +196,7 @@ def target_toml(design: Design) -> str:
             inclination = {{ dist = "isotropic" }}
             """) for name in clump_names(design)]
         return head + "\n" + "\n".join(blocks)
-    return textwrap.dedent(f"""\
-        [target]
-        name = "SBC binary"
-        reference_epoch = {design.reference_epoch!r}
-
-        [central]
-        mass = {{ dist = "log-uniform", low = "{m_lo!r} solMass", high = "{m_hi!r} solMass" }}
-
-        [distance]
-        prior = {{ dist = "normal", mean = "{d_mean!r} pc", sd = "{d_sd!r} pc" }}
-
+    return head + "\n" + textwrap.dedent(f"""\
         [[companion]]
         name = "{COMPANION}"
         astrometry = "positions.csv"

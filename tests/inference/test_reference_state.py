@@ -45,13 +45,18 @@ def _space(tmp_path, rng, velocities: bool, t_pos=None, t_rv=None):
     return build_space(read_target(path))
 
 
+def _draws(tmp_path, rng, velocities: bool, n: int):
+    """Space, map, prior draws of the elements and their states."""
+    space = _space(tmp_path, rng, velocities)
+    state = ReferenceState(space, ["S1"])
+    theta = space.sample_prior(rng, n)
+    return space, state, theta, state.to_state(theta)
+
+
 @pytest.mark.parametrize("velocities", [True, False])
 def test_state_matches_the_orbit_evaluator(tmp_path, rng, velocities):
     # source: orbitmass.core.orbit.evaluate (the model the likelihood uses), differentiated numerically
-    space = _space(tmp_path, rng, velocities)
-    state = ReferenceState(space, ["S1"])
-    theta = space.sample_prior(rng, 50)
-    u = state.to_state(theta)
+    space, state, theta, u = _draws(tmp_path, rng, velocities, 50)
     cols = state.cols["S1"]
     st = orbit_states(space, space.unpack(theta))["S1"]
     phys = space.unpack(theta)
@@ -108,10 +113,7 @@ def test_round_trip(tmp_path, rng, velocities):
 @pytest.mark.parametrize("velocities", [True, False])
 def test_log_jacobian_against_finite_differences(tmp_path, rng, velocities):
     # source: numpy.linalg.slogdet of a central-difference Jacobian d theta / d u of the inverse map
-    space = _space(tmp_path, rng, velocities)
-    state = ReferenceState(space, ["S1"])
-    theta = space.sample_prior(rng, 8)
-    u = state.to_state(theta)
+    space, state, theta, u = _draws(tmp_path, rng, velocities, 8)
     for u0 in u:
         d = u0.size
         jac = np.zeros((d, d))
@@ -129,10 +131,7 @@ def test_log_jacobian_against_finite_differences(tmp_path, rng, velocities):
 
 def test_unbound_states_have_no_density(tmp_path, rng):
     # an escape speed state, v^2 > 2 GM / r, is not an ellipse (common practice, no source)
-    space = _space(tmp_path, rng, True)
-    state = ReferenceState(space, ["S1"])
-    theta = space.sample_prior(rng, 3)
-    u = state.to_state(theta)
+    space, state, theta, u = _draws(tmp_path, rng, True, 3)
     u[:, state.cols["S1"][3:5]] *= 100.0  # sky speed above the escape speed: no vz makes it bound
     _, log_jac = state.to_elements(u)
     assert np.all(log_jac == -np.inf)
