@@ -67,7 +67,7 @@ from orbitmass.model.parameters import AngleWindows, ReferenceState, StatePoster
 from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["initialise_walkers", "InitialSolution", "period_grid", "polish", "hessian_covariance",
-           "Interrupted", "reference_state_companions", "ARC_FRACTION", "elements_chain", "align_shared_planes"]
+           "Interrupted", "reference_state_companions", "ARC_FRACTION", "elements_chain"]
 
 log = logging.getLogger(__name__)
 #: Most grid points x epochs per chunk of the linear search (bounds memory; a stop request is checked per chunk).
@@ -550,12 +550,9 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
             if _stopped(stop_flag):
                 interrupted = True
                 break
-            values = _combo_values(space, searches, combo)
-            theta = space.pack(values)
+            theta = space.pack(_combo_values(space, searches, combo))
             post_c = post.with_space(space.with_windows(space.windows_from(theta)))
             theta = post_c.space.wrap_angles(theta)[0]
-            if combo == combos[0] and any(len(info["members"]) > 1 for info in space.planes.values()):
-                theta = align_shared_planes(post_c, theta, values)
             if not np.isfinite(post_c(theta[None, :])[0]):
                 theta = _best_prior_draw(post_c, rng, theta)
             best, val = polish(post_c, theta, max_evals, stop_flag)
@@ -644,65 +641,6 @@ def elements_chain(state: ReferenceState, chain: NDArray[np.float64]) -> tuple[N
     """
     theta, log_jac = state.to_elements(chain.reshape(-1, chain.shape[-1]))
     return theta.reshape(chain.shape), log_jac.reshape(chain.shape[:-1])
-
-
-def align_shared_planes(post, theta: NDArray[np.float64], values: dict, n_phase: int = 72,
-                        n_period: int = 41) -> NDArray[np.float64]:
-    """Put every member of a shared plane on that plane before the polish.
-
-    Each companion's own search solution has its own inclination and node; a
-    shared plane takes one of them, and the other members' phases and periods,
-    found for their own planes, may then sit on the wrong side of the sky
-    plane (i against 180 deg - i) or the wrong side of the node, a local
-    mode the polish cannot leave. For every candidate plane (each member's
-    own (cos i, node), and the first with cos i reversed) every member's mean
-    longitude (``n_phase`` values over the turn) and ln P (``n_period``
-    values over +-1.5 of its current value, inside the prior) are set on a grid
-    with everything else held, member after member, twice; the best posterior
-    over the candidate planes wins. Cost: about 2 x members x planes x
-    n_phase x n_period posterior evaluations (vectorised).
-    """
-    space = post.space
-    best_theta, best_val = theta, float(post(theta[None, :])[0])
-    for pname, info in space.planes.items():
-        members = info["members"]
-        if len(members) < 2 or info["i_var"] is None:
-            continue
-        planes = [(values.get(f"{m}.cos_i"), values.get(f"{m}.node")) for m in members]
-        planes.append((-planes[0][0], planes[0][1]))
-        for cos_i, node in planes:
-            if cos_i is None or node is None:
-                continue
-            trial = best_theta.copy()
-            trial[info["i_var"]] = float(np.clip(cos_i, -0.999999, 0.999999))
-            if info["node_var"] is not None:
-                trial[info["node_var"]] = node
-            trial = space.wrap_angles(trial[None, :])[0]
-            for _ in range(2):
-                for member in members:
-                    lay = next(l for l in space.companions if l.name == member)
-                    jl, jp = lay.idx.get("lambda", -1), lay.idx.get("ln_period", -1)
-                    if jl < 0:
-                        continue
-                    var = space.variables[jl]
-                    lam = var.centre - 0.5 * var.width + var.width * (np.arange(n_phase) + 0.5) / n_phase
-                    grid = np.repeat(trial[None, :], n_phase, axis=0)
-                    grid[:, jl] = lam
-                    if jp >= 0:
-                        lo, hi = space.variables[jp].prior.support
-                        lnp = trial[jp] + np.linspace(-1.5, 1.5, n_period)
-                        lnp = lnp[(lnp > math.log(max(lo, 1e-300))) & (lnp < math.log(hi))]
-                        if lnp.size:
-                            grid = np.repeat(grid, lnp.size, axis=0)
-                            grid[:, jp] = np.tile(lnp, n_phase)
-                    vals = post(grid)
-                    k = int(np.argmax(vals))
-                    if np.isfinite(vals[k]) and vals[k] > float(post(trial[None, :])[0]):
-                        trial = grid[k]
-            val = float(post(trial[None, :])[0])
-            if val > best_val:
-                best_theta, best_val = trial, val
-    return best_theta
 
 
 def _combo_values(space, searches, combo) -> dict:
