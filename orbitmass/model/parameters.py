@@ -930,7 +930,10 @@ class ReferenceState:
     the observer, as an angle at the distance; rho the sky separation),
     ``vnorth_mas_yr, veast_mas_yr`` (sky motion) and ``vz_atanh`` =
     atanh(vz / vz_max), vz_max = sqrt(2 GM / r - v_sky^2) the largest
-    line-of-sight speed of a bound orbit at that place. The two last
+    line-of-sight speed of a bound orbit at that place (for a companion
+    without velocities; with velocities it is ``vz_kms``, the measured
+    quantity, because vz_max grows with the distance and the scaled variable
+    would tie the distance to it). The two last
     transforms take away the heavy tail of the depth and the hard wall of
     the escape speed, which the arc leaves unconstrained; they are triangular
     (z depends on the sky position and zeta, vz on eta and the others) and add
@@ -981,6 +984,9 @@ class ReferenceState:
         self.space = space
         self.companions = tuple(names)
         self.cols: dict[str, NDArray[np.intp]] = {}
+        # vz as atanh(vz / vz_max) only without velocities: with them vz (km/s) is what is measured, and
+        # vz_max grows with the distance, so the scaled variable would tie the distance to it
+        self.vz_scaled = {name: not space.companion(name).has_velocities for name in self.companions}
         for name in self.companions:
             if name not in self.eligible(space):
                 raise ValueError(f"companion {name!r} cannot be sampled in its reference state")
@@ -991,7 +997,7 @@ class ReferenceState:
         self.names = list(space.names)
         for name, cols in self.cols.items():
             for j, sname in zip(cols, self.STATE_NAMES):
-                self.names[j] = f"{name}.{sname}"
+                self.names[j] = f"{name}.{sname if sname != 'vz_atanh' or self.vz_scaled[name] else 'vz_kms'}"
         # the mass column becomes ln(GM / r^3) of the first companion (yr^-2, r its 3-D distance in au): the
         # acceleration the arc's curvature measures
         self.accel_col = space.index.get("ln_mass")
@@ -1049,8 +1055,11 @@ class ReferenceState:
             u[:, cols[0]], u[:, cols[1]] = r[0] * s, r[1] * s
             u[:, cols[2]] = np.arcsinh(r[2] / np.hypot(r[0], r[1]))
             u[:, cols[3]], u[:, cols[4]] = v[0] * s, v[1] * s
-            v_max = np.sqrt(2.0 * mu / np.sqrt(np.sum(r * r, axis=0)) - v[0] ** 2 - v[1] ** 2)
-            u[:, cols[5]] = np.arctanh(v[2] / v_max)
+            if self.vz_scaled[name]:
+                v_max = np.sqrt(2.0 * mu / np.sqrt(np.sum(r * r, axis=0)) - v[0] ** 2 - v[1] ** 2)
+                u[:, cols[5]] = np.arctanh(v[2] / v_max)
+            else:
+                u[:, cols[5]] = v[2] * KMS_PER_AU_PER_YR
             if first and self.accel_col is not None:
                 u[:, self.accel_col] = np.log(mu) - 1.5 * np.log(np.sum(r * r, axis=0))
             first = False
@@ -1083,10 +1092,14 @@ class ReferenceState:
                 r = np.stack([u[:, cols[0]] * s, u[:, cols[1]] * s, z_mas * s])
                 rn = r_mas * s
                 # vz = v_max tanh(eta), v_max the largest |vz| of a bound orbit: dvz / deta = v_max / cosh^2
-                v_max = np.sqrt(2.0 * mu / rn - (u[:, cols[3]] ** 2 + u[:, cols[4]] ** 2) * s * s)
-                eta = u[:, cols[5]]
-                v = np.stack([u[:, cols[3]] * s, u[:, cols[4]] * s, v_max * np.tanh(eta)])
-                log_jac += np.log(v_max * KMS_PER_AU_PER_YR) - 2.0 * (np.logaddexp(eta, -eta) - LN2)
+                if self.vz_scaled[name]:
+                    v_max = np.sqrt(2.0 * mu / rn - (u[:, cols[3]] ** 2 + u[:, cols[4]] ** 2) * s * s)
+                    eta = u[:, cols[5]]
+                    vz = v_max * np.tanh(eta)
+                    log_jac += np.log(v_max * KMS_PER_AU_PER_YR) - 2.0 * (np.logaddexp(eta, -eta) - LN2)
+                else:
+                    vz = u[:, cols[5]] / KMS_PER_AU_PER_YR
+                v = np.stack([u[:, cols[3]] * s, u[:, cols[4]] * s, vz])
                 v2 = np.sum(v * v, axis=0)
                 energy = 0.5 * v2 - mu / rn
                 a = -mu / (2.0 * energy)
