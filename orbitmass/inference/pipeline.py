@@ -28,6 +28,7 @@ import math
 import time
 from pathlib import Path
 
+import emcee
 import numpy as np
 
 from orbitmass.core.cosmology import redshift_distance_pc
@@ -251,15 +252,26 @@ def _sampler_path(target, space, rng, options, seed, n_walkers, max_periods, ckp
             meta["elapsed_seconds"] = elapsed_before + time.perf_counter() - t0
             save_checkpoint(ckpt_path, b, meta)
 
+    if backend is None:  # kept, so that a reference-state chain can be continued (below)
+        backend = emcee.backends.Backend()
     run = run_sampler(sampled, p0, seed=int(rng.integers(2**31 - 1)), options=options,
                       backend=backend, stop_flag=stop_flag, checkpoint=checkpoint_fn)
     state_diag = None
-    if state is not None:  # back to the elements; diagnostics of both, converged only if both pass
+    while state is not None:  # back to the elements; diagnostics of both, converged only if both pass
+        chain, log_jac = elements_chain(state, run.chain)
+        verdict = assess(chain, options)
+        if verdict["converged"] or not run.converged or run.interrupted or run.n_steps >= options.max_steps:
+            break
+        # the sampled chain passes, the element chain not yet: continue the same chain a little
+        seconds, n_eval = run.sampling_seconds, run.n_evaluations
+        run = run_sampler(sampled, None, seed=0, options=options, backend=backend, stop_flag=stop_flag,
+                          checkpoint=checkpoint_fn)
+        run.sampling_seconds += seconds
+        run.n_evaluations += n_eval
+    if state is not None:
         state_diag = {"companions": list(state.companions), "names": state.names,
                       "rhat_max": float(np.nanmax(run.rhat)), "ess_min": float(np.min(run.ess))}
-        run.chain, log_jac = elements_chain(state, run.chain)
-        run.log_prob = run.log_prob - log_jac  # the element-space log posterior
-        verdict = assess(run.chain, options)
+        run.chain, run.log_prob = chain, run.log_prob - log_jac  # the element-space log posterior
         run.burn = max(run.burn, verdict["burn"])
         run.tau, run.ess, run.rhat = verdict["tau"], verdict["ess"], verdict["rhat"]
         run.converged = bool(run.converged and verdict["converged"])
