@@ -39,14 +39,8 @@ def test_full_orbit_with_velocities_free_distance(tmp_path, rng):
     # the orbital parallax really constrains the distance: 95% interval much narrower than the prior
     d = s["derived"]["distance_pc"]
     assert d["q97.5"] - d["q2.5"] < 0.25 * (30000 - 1000)
-    # one data realisation: its period posterior puts the true 40 yr near its low tail (measured at the
-    # 2.4th percentile with the position-and-motion sampling, and the interval of the element sampling
-    # ended at 40.8 yr too), so the period is checked against the central 99 % of the samples
-    rank = float(np.mean(fit.results_.samples["S1.period_yr"].to_numpy() < truth.period_yr))
-    assert 0.005 < rank < 0.995, rank
-    # a quarter arc is sampled in the position and motion at the reference epoch, and converges
-    assert s["diagnostics"]["reference_state"]["companions"] == ["S1"]
-    assert s["diagnostics"]["converged"]
+    c = s["companions"]["S1"]
+    assert c["period_yr"]["q2.5"] <= truth.period_yr <= c["period_yr"]["q97.5"]
     assert c["eccentricity"]["q2.5"] <= truth.eccentricity <= c["eccentricity"]["q97.5"]
     assert s["diagnostics"]["converged"]
 
