@@ -29,8 +29,7 @@ from orbitmass.io.target import read_target
 from orbitmass.model.likelihood import LogPosterior, orbit_states
 from orbitmass.model.parameters import ReferenceState, StatePosterior
 from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
-
-from tests.conftest import make_target
+from tests.helpers.targets import make_target
 
 TRUTH = TrueOrbit(mass_msun=1.0e6, distance_pc=5000.0, period_yr=40.0, eccentricity=0.3, inclination_deg=70.0,
                   arg_periastron_deg=30.0, ascending_node_deg=200.0, periastron_time=2012.0)
