@@ -16,18 +16,39 @@ reflex motion):
 Both are timed on the same draws and epochs (a sky track of ``n_grid``
 epochs, and velocities at the same number of epochs); the largest difference
 of their outputs is reported as a check that they compute the same model.
+
+With two checkouts (:func:`side_by_side`, or ``--old-root`` and
+``--old-python`` on the command line, or ``python -m benchmarks.side_by_side
+--predict ...``) the old side is the real code of the old checkout, run in
+its own virtual environment: :mod:`benchmarks.predict_probe` runs in the old
+and in the new checkout alternately (old, new, old, new, ...), the new side
+on the draws the old side drew, and the table gives, per case, the old code
+called once per draw (as its orbit figure did), the old code called once for
+all draws, and the new code called once for all draws, in CPU seconds
+(``time.process_time``, the steadier figure on a loaded machine) and wall
+seconds, with the ratios and the largest relative difference of the two
+checkouts' outputs. Usage::
+
+    python -m benchmarks.bench_predict --old-root ../old --old-python ../venv-old/bin/python [--rounds 2]
 """
 
 from __future__ import annotations
 
+import argparse
+import json
 import math
+import statistics
+import subprocess
+import sys
 import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
 
-__all__ = ["run", "table"]
+__all__ = ["run", "table", "side_by_side", "side_by_side_table"]
+
+PROBE = Path(__file__).resolve().parent / "predict_probe.py"
 
 TWO_PI = 2.0 * math.pi
 LOG_2PI = math.log(2.0 * math.pi)
@@ -256,5 +277,118 @@ def table(result: dict) -> str:
     return "\n".join(lines)
 
 
+def _probe(python: str, root: Path, n_draws: int, epochs, repeats: int, dump: Path,
+           theta_from: Path | None = None) -> dict:
+    """Run :mod:`benchmarks.predict_probe` with ``python`` in checkout ``root``; its figures."""
+    cmd = [python, str(PROBE), "--draws", str(n_draws), "--epochs", *map(str, epochs),
+           "--repeats", str(repeats), "--dump", str(dump)]
+    if theta_from is not None:
+        cmd += ["--theta-from", str(theta_from)]
+    done = subprocess.run(cmd, cwd=root, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        raise RuntimeError(f"probe failed in {root} ({python}): {done.stderr.strip()[-2000:]}")
+    return json.loads(done.stdout)
+
+
+def _max_rel_diff(a: Path, b: Path) -> dict[str, float]:
+    """Largest |new - old| / (1 + |old|) per case over the outputs dumped in ``a`` (new) and ``b`` (old)."""
+    out: dict[str, float] = {}
+    for f in sorted(a.glob("* epochs, *.npy")):
+        case = f.name.rsplit(".", 2)[0]
+        x, y = np.load(f), np.load(b / f.name)
+        d = float(np.max(np.abs(x - y) / (1.0 + np.abs(y)))) if x.size else 0.0
+        out[case] = max(out.get(case, 0.0), d)
+    return out
+
+
+def side_by_side(old_root, old_python: str, new_root=None, new_python: str | None = None, *,
+                 n_draws: int = 500, epochs=(50, 400), repeats: int = 3, rounds: int = 2) -> dict:
+    """Old and new checkout's ``Results.predict`` on the same draws, run alternately; the figures.
+
+    Per case, medians over ``rounds`` of the best of ``repeats`` calls:
+    ``old_per_draw`` (one call per draw), ``old_one_call`` and
+    ``new_one_call`` (one call for all draws), as CPU and wall seconds;
+    ``ratio_cpu`` / ``ratio_wall`` = old per draw / new one call (the
+    figure's way before and after), ``ratio_same_call_cpu`` = old one call /
+    new one call; ``max_rel_diff`` between the two checkouts' outputs.
+    """
+    new_root = Path(new_root or Path(__file__).resolve().parent.parent)
+    new_python = new_python or sys.executable
+    runs: dict[str, list[dict]] = {"old": [], "new": []}
+    diffs: dict[str, float] = {}
+    with tempfile.TemporaryDirectory(prefix="orbitmass-predict-sbs-") as tmp:
+        for k in range(rounds):
+            d_old, d_new = Path(tmp) / f"old{k}", Path(tmp) / f"new{k}"
+            runs["old"].append(_probe(old_python, Path(old_root).resolve(), n_draws, epochs, repeats, d_old))
+            runs["new"].append(_probe(new_python, new_root.resolve(), n_draws, epochs, repeats, d_new,
+                                      theta_from=d_old))
+            for case, d in _max_rel_diff(d_new, d_old).items():
+                diffs[case] = max(diffs.get(case, 0.0), d)
+    cases: dict[str, dict] = {}
+    for case in runs["old"][0]:
+        def med(side, way, clock, case=case):
+            return statistics.median(r[case][way][clock] for r in runs[side])
+
+        row = {f"{side}_{way}_{clock}": med(side, way, clock) for side in ("old", "new")
+               for way in ("per_draw", "one_call") for clock in ("cpu", "wall")}
+        row["ratio_cpu"] = row["old_per_draw_cpu"] / row["new_one_call_cpu"]
+        row["ratio_wall"] = row["old_per_draw_wall"] / row["new_one_call_wall"]
+        row["ratio_same_call_cpu"] = row["old_one_call_cpu"] / row["new_one_call_cpu"]
+        row["max_rel_diff"] = diffs.get(case, float("nan"))
+        cases[case] = row
+    worst_cpu = min(r["ratio_cpu"] for r in cases.values())
+    worst_wall = min(r["ratio_wall"] for r in cases.values())
+    return {"settings": {"n_draws": n_draws, "epochs": list(epochs), "repeats": repeats, "rounds": rounds,
+                         "old_root": str(old_root), "new_root": str(new_root)},
+            "cases": cases,
+            "targets": {"ratio_cpu": worst_cpu, "ratio_wall": worst_wall, "ratio_met": bool(worst_cpu >= 10.0),
+                        "max_rel_diff": max(r["max_rel_diff"] for r in cases.values())}}
+
+
+def side_by_side_table(result: dict) -> str:
+    """Printable table of :func:`side_by_side`'s figures."""
+    st = result["settings"]
+    lines = [f"Results.predict, {st['n_draws']} draws, old checkout ({st['old_root']}) and new ({st['new_root']}) "
+             f"run alternately, {st['rounds']} round(s), median of best-of-{st['repeats']}; ms of CPU (wall)",
+             f"  {'case':<48} {'old per draw':>17} {'old one call':>15} {'new one call':>15} "
+             f"{'old per draw/new':>17} {'old/new one call':>17} {'max rel diff':>12}"]
+    for case, r in result["cases"].items():
+        lines.append(f"  {case:<48} {r['old_per_draw_cpu'] * 1e3:7.1f} ({r['old_per_draw_wall'] * 1e3:7.1f}) "
+                     f"{r['old_one_call_cpu'] * 1e3:6.2f} ({r['old_one_call_wall'] * 1e3:6.2f}) "
+                     f"{r['new_one_call_cpu'] * 1e3:6.2f} ({r['new_one_call_wall'] * 1e3:6.2f}) "
+                     f"{r['ratio_cpu']:7.1f}x ({r['ratio_wall']:5.1f}x) {r['ratio_same_call_cpu']:8.2f}x        "
+                     f"{r['max_rel_diff']:.1e}")
+    t = result["targets"]
+    lines.append(f"  target old per draw / new >= 10x in every case (CPU): {'met' if t['ratio_met'] else 'NOT met'} "
+                 f"(smallest {t['ratio_cpu']:.1f}x CPU, {t['ratio_wall']:.1f}x wall); outputs agree to "
+                 f"{t['max_rel_diff']:.1e} (relative)")
+    return "\n".join(lines)
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--old-root", type=Path, default=None, help="old checkout (side by side with --old-python)")
+    ap.add_argument("--old-python", default=None, help="Python of the old checkout's virtual environment")
+    ap.add_argument("--new-root", type=Path, default=None)
+    ap.add_argument("--new-python", default=None)
+    ap.add_argument("--draws", type=int, default=500)
+    ap.add_argument("--epochs", type=int, nargs="+", default=[50, 400])
+    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--rounds", type=int, default=2)
+    ap.add_argument("--out", type=Path, default=None, help="write the figures as JSON here")
+    args = ap.parse_args(argv)
+    if args.old_root is None or args.old_python is None:
+        result = run(n_draws=args.draws, epochs=tuple(args.epochs), repeats=args.repeats)
+        text = table(result)
+    else:
+        result = side_by_side(args.old_root, args.old_python, args.new_root, args.new_python, n_draws=args.draws,
+                              epochs=tuple(args.epochs), repeats=args.repeats, rounds=args.rounds)
+        text = side_by_side_table(result)
+    print(text)
+    if args.out is not None:
+        args.out.write_text(json.dumps(result, indent=1))
+    return 0
+
+
 if __name__ == "__main__":  # pragma: no cover
-    print(table(run()))
+    sys.exit(main())

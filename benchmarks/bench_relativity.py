@@ -11,27 +11,40 @@ scattered about the truth:
 * ``all terms``: the same data with ``redshift_factor`` and
   ``precession_factor`` sampled, ``roemer_delay = true`` and a sampled
   extended mass (Plummer sphere) -- the four terms of
-  :mod:`orbitmass.core.relativity` at once.
+  :mod:`orbitmass.core.relativity` at once;
+* ``all terms, reference``: the same posterior on the plain reference path
+  (``LogPosterior(space, fused=False)``: every orbit through
+  :func:`orbitmass.core.orbit.evaluate` and the terms' hooks), the cost
+  before the terms entered the fused path.
 
-Each figure is the median process CPU time of one
+Each figure is the process CPU time of one
 :class:`orbitmass.model.likelihood.LogPosterior` call on the (64, n_dim)
-block (prior included, as emcee calls it), in microseconds per parameter set;
-the ratio all terms / kepler is the figure of merit (target: at most 2).
+block (prior included, as emcee calls it), in microseconds per parameter set:
+the median over rounds (7 with ``--quick``, else 21) of one timed batch of
+each posterior in turn (batches of at least 20 ms), the order reversed every
+other round. The ratio all terms / kepler, the figure of merit (target: at
+most 2), is the median of the ratios within a round, so that the two figures
+of a ratio are taken side by side under the same load; its quartiles over
+the rounds show the spread. The largest relative difference between the
+fused and the reference log-likelihood of the block is printed too, and the
+load average of the machine at the start and the end.
+
 Usage::
 
-    python benchmarks/bench_relativity.py [--quick]
+    python -m benchmarks.bench_relativity [--quick]
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import tempfile
 import textwrap
+import time
 from pathlib import Path
 
 import numpy as np
 
-from benchmarks.bench_likelihood import median_seconds
 from orbitmass.demo.simulate import TrueOrbit, write_positions_csv, write_velocities_csv
 from orbitmass.demo.simulate_pn import simulate_pn
 from orbitmass.inference.pipeline import build_space
@@ -99,37 +112,85 @@ def parameter_sets(space, rng: np.random.Generator, n: int = N_SETS) -> np.ndarr
     return theta0 + 1e-4 * np.maximum(np.abs(theta0), 1e-2) * rng.standard_normal((n, theta0.size))
 
 
+def _calls_per_batch(func, min_batch_s: float = 0.02) -> int:
+    """Calls of ``func`` per timed batch: doubled until a batch lasts ``min_batch_s`` of CPU time."""
+    func()  # warm-up
+    calls = 1
+    while calls < 1 << 14:
+        t0 = time.process_time()
+        for _ in range(calls):
+            func()
+        if time.process_time() - t0 >= min_batch_s:
+            break
+        calls *= 2
+    return calls
+
+
+def _batch_seconds(func, calls: int) -> float:
+    t0 = time.process_time()
+    for _ in range(calls):
+        func()
+    return (time.process_time() - t0) / calls
+
+
 def run(quick: bool = False) -> dict:
-    """Measure both posteriors; returns the figures (microseconds per set) and their ratio."""
-    repeats = 5 if quick else 15
-    out: dict = {"n_sets": N_SETS, "n_epochs": N_EPOCHS}
+    """Measure the posteriors; returns the figures (microseconds per set) and the ratios to kepler."""
+    rounds = 7 if quick else 21
+    labels = ("kepler", "all_terms", "all_terms_reference")
+    out: dict = {"n_sets": N_SETS, "n_epochs": N_EPOCHS, "rounds": rounds, "load_start": os.getloadavg()}
     with tempfile.TemporaryDirectory() as tmp:
         posts = {}
-        for label, terms in (("kepler", False), ("all_terms", True)):
+        for label, terms, fused in zip(labels, (False, True, True), (True, True, False)):
             space = build_space(read_target(write_target(Path(tmp) / label, terms=terms)))
-            posts[label] = (LogPosterior(space), parameter_sets(space, np.random.default_rng(3)),
-                            [t.name for t in space.terms])
-        for label, (post, theta, names) in posts.items():
+            post = LogPosterior(space, fused=fused)
+            theta = parameter_sets(space, np.random.default_rng(3))
             assert np.all(np.isfinite(post(theta))), label  # benchmark sanity, not user input
-            out[label] = {"us_per_set": 1e6 * median_seconds(lambda p=post, th=theta: p(th), repeats) / N_SETS,
-                          "terms": names}
-        # once more in the other order, so drifting load hits both alike; keep the smaller figure
-        for label in reversed(list(posts)):
-            post, theta, _ = posts[label]
-            again = 1e6 * median_seconds(lambda p=post, th=theta: p(th), repeats) / N_SETS
-            out[label]["us_per_set"] = min(out[label]["us_per_set"], again)
-    out["ratio"] = out["all_terms"]["us_per_set"] / out["kepler"]["us_per_set"]
+            func = (lambda p=post, th=theta: p(th))
+            posts[label] = (func, _calls_per_batch(func), [t.name for t in space.terms])
+        # rounds of one batch each, the order reversed every other round, so that drifting load hits
+        # all alike; ratios are taken within a round (side by side) and their median reported
+        seconds: dict[str, list[float]] = {label: [] for label in labels}
+        for k in range(rounds):
+            for label in (labels if k % 2 == 0 else labels[::-1]):
+                func, calls, _ = posts[label]
+                seconds[label].append(_batch_seconds(func, calls))
+        for label in labels:
+            out[label] = {"us_per_set": 1e6 * float(np.median(seconds[label])) / N_SETS, "terms": posts[label][2]}
+        kep = np.array(seconds["kepler"])
+        out["ratio"] = float(np.median(np.array(seconds["all_terms"]) / kep))
+        out["ratio_range"] = [float(x) for x in np.quantile(np.array(seconds["all_terms"]) / kep, [0.25, 0.75])]
+        out["ratio_reference"] = float(np.median(np.array(seconds["all_terms_reference"]) / kep))
+        space = build_space(read_target(write_target(Path(tmp) / "check", terms=True)))
+        post = LogPosterior(space)
+        theta = parameter_sets(space, np.random.default_rng(3))
+        fused, ref = post.log_likelihood(theta), post.log_likelihood_reference(theta)
+        out["max_rel_diff_fused_reference"] = float(np.max(np.abs(fused - ref) / np.abs(ref)))
+    out["load_end"] = os.getloadavg()
     return out
+
+
+def table(res: dict) -> str:
+    """The figures of :func:`run` as text (also the section of ``python -m benchmarks``)."""
+    lines = [
+        f"likelihood of {res['n_sets']} parameter sets x {res['n_epochs']} epochs (a position and a velocity each)",
+        f"  kepler                 {res['kepler']['us_per_set']:8.2f} us per set",
+        f"  all terms              {res['all_terms']['us_per_set']:8.2f} us per set   "
+        f"({', '.join(res['all_terms']['terms'])})",
+        f"  all terms, reference   {res['all_terms_reference']['us_per_set']:8.2f} us per set",
+        f"  ratio all terms / kepler: {res['ratio']:.2f} (target <= 2; quartiles over {res['rounds']} rounds "
+        f"{res['ratio_range'][0]:.2f}-{res['ratio_range'][1]:.2f}); reference path / kepler: "
+        f"{res['ratio_reference']:.2f}",
+        f"  fused against reference: largest relative difference {res['max_rel_diff_fused_reference']:.1e}",
+        "  load average (1, 5, 15 min) at start {:.2f} {:.2f} {:.2f}, at end {:.2f} {:.2f} {:.2f}".format(
+            *res["load_start"], *res["load_end"]),
+    ]
+    return "\n".join(lines)
 
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--quick", action="store_true", help="fewer repeats")
-    res = run(ap.parse_args(argv).quick)
-    print(f"likelihood of {res['n_sets']} parameter sets x {res['n_epochs']} epochs (a position and a velocity each)")
-    print(f"  kepler     {res['kepler']['us_per_set']:8.2f} us per set")
-    print(f"  all terms  {res['all_terms']['us_per_set']:8.2f} us per set   ({', '.join(res['all_terms']['terms'])})")
-    print(f"  ratio all terms / kepler: {res['ratio']:.2f} (target <= 2)")
+    print(table(run(ap.parse_args(argv).quick)))
     return 0
 
 

@@ -11,6 +11,12 @@ Usage::
     python -m benchmarks.side_by_side --old-root ../old --old-python ../old-venv/bin/python \
         [--new-root .] [--new-python python] [--rounds 1] [--only likelihood problems] [--out FILE]
 
+With ``--predict`` it runs :func:`benchmarks.bench_predict.side_by_side`
+instead (``Results.predict`` of 500 draws at 50 and 400 epochs in both
+checkouts, on the same draws, with the agreement of their outputs)::
+
+    python -m benchmarks.side_by_side --predict --old-root ../old --old-python ../old-venv/bin/python
+
 Timing figures vary with load by 10-30 % on a shared 2-core machine; with
 ``--rounds 2`` or more the script also prints the spread between rounds,
 which is the noise level to compare the old/new ratio against.
@@ -25,6 +31,11 @@ import subprocess
 import sys
 import tempfile
 from pathlib import Path
+
+if __package__ in (None, ""):  # run as a script: make the repository root importable
+    sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+from benchmarks import bench_predict  # noqa: E402
 
 
 def _run(python: str, root: Path, out: Path, only: list[str]) -> dict:
@@ -44,7 +55,16 @@ def main(argv=None) -> int:
     ap.add_argument("--rounds", type=int, default=1)
     ap.add_argument("--only", nargs="*", default=[])
     ap.add_argument("--out", type=Path, default=None, help="write the combined figures as JSON here")
+    ap.add_argument("--predict", action="store_true",
+                    help="Results.predict of both checkouts on the same draws (benchmarks.bench_predict)")
     args = ap.parse_args(argv)
+    if args.predict:
+        result = bench_predict.side_by_side(args.old_root, args.old_python, args.new_root, args.new_python,
+                                            rounds=max(args.rounds, 1))
+        print(bench_predict.side_by_side_table(result))
+        if args.out:
+            args.out.write_text(json.dumps(result, indent=1))
+        return 0
     figures: dict[str, dict[str, list[float]]] = {}
     with tempfile.TemporaryDirectory() as tmp:
         for k in range(args.rounds):

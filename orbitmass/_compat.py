@@ -18,7 +18,7 @@ import warnings
 
 from orbitmass.exceptions import OrbitmassDeprecationWarning
 
-__all__ = ["MOVED_MODULES", "install"]
+__all__ = ["MOVED_MODULES", "MOVED_NAMES", "moved_name", "install"]
 
 #: old dotted path -> new dotted path
 MOVED_MODULES: dict[str, str] = {
@@ -38,6 +38,39 @@ MOVED_MODULES: dict[str, str] = {
     "orbitmass.reports": "orbitmass.outputs.reports",
     "orbitmass.simulate": "orbitmass.demo.simulate",
 }
+
+
+#: (old module, old name) -> (new module, new name): functions that left a module
+#: which still exists. The old module's ``__getattr__`` calls :func:`moved_name`.
+MOVED_NAMES: dict[tuple[str, str], tuple[str, str]] = {
+    ("orbitmass.model", "thiele_innes"): ("orbitmass.core.orbit", "thiele_innes"),
+    ("orbitmass.model", "relative_orbit"): ("orbitmass.core.orbit", "relative_orbit"),
+    ("orbitmass.compare", "demo_comparison"): ("orbitmass.demo.run", "demo_comparison"),
+    ("orbitmass.compare", "add_compare_parser"): ("orbitmass.cli.compare", "add_parser"),
+    ("orbitmass.compare", "cmd_compare"): ("orbitmass.cli.compare", "run"),
+    ("orbitmass.batch", "write_example_sample"): ("orbitmass.demo.scenarios", "write_example_sample"),
+    ("orbitmass.batch", "add_batch_parser"): ("orbitmass.cli.batch", "add_parser"),
+    ("orbitmass.batch", "cmd_batch"): ("orbitmass.cli.batch", "run"),
+    ("orbitmass.fit", "redshift_distance_pc"): ("orbitmass.core.cosmology", "redshift_distance_pc"),
+    ("orbitmass.fit", "priors_used"): ("orbitmass.model.parameters", "priors_used"),
+}
+
+
+def moved_name(module: str, name: str):
+    """The object an old ``module.name`` now is, with a deprecation warning.
+
+    For a module's ``__getattr__`` (PEP 562): the new module is imported only
+    when the old name is used, so the old module does not import its new home
+    (which may sit above it in the import order). Any other name raises
+    :class:`AttributeError` as usual.
+    """
+    target = MOVED_NAMES.get((module, name))
+    if target is None:
+        raise AttributeError(f"module {module!r} has no attribute {name!r}")
+    new_module, new_name = target
+    warnings.warn(f"{module}.{name} has moved to {new_module}.{new_name}; the old name will be removed in the "
+                  "next release", OrbitmassDeprecationWarning, stacklevel=3)
+    return getattr(importlib.import_module(new_module), new_name)
 
 
 class _AliasLoader(importlib.abc.Loader):

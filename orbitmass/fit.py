@@ -15,6 +15,8 @@ Examples
 
 from __future__ import annotations
 
+from orbitmass._compat import moved_name
+
 import logging
 import time
 from pathlib import Path
@@ -213,3 +215,8 @@ def load(run_dir: str | Path) -> Fit:
     fit.results_ = load_run(Path(run_dir))
     fit.seed = fit.results_.summary.get("provenance", {}).get("seed")
     return fit
+
+
+def __getattr__(name: str):
+    """Names that moved out of this module (deprecated, see :mod:`orbitmass._compat`)."""
+    return moved_name(__name__, name)

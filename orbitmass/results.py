@@ -319,24 +319,29 @@ class Results:
             object is built).
         """
         theta = self.theta if rows is None else self.theta[np.asarray(rows)]
+        n_rows = theta.shape[0]
         ta = None if t_astro is None else np.asarray(t_astro, float)
         tv = None if t_vel is None else np.asarray(t_vel, float)
+        if tv is not None and ta is not None and tv.shape == ta.shape and np.array_equal(ta, tv):
+            tv = ta  # one Kepler solve serves both (see predict_system)
         central_rows = None if tv is None else np.full(tv.shape[-1], bool(central))
-        n_epochs = (0 if ta is None else ta.shape[-1]) + (0 if tv is None else tv.shape[-1])
-        # rows in blocks that keep the work arrays small (cache-sized): faster than one huge block
+        n_epochs = (0 if ta is None else ta.shape[-1]) + (0 if tv is None or tv is ta else tv.shape[-1])
+        phys = self.space.unpack(theta)  # once; each block takes its rows
+        # rows in blocks that keep the work arrays near the CPU caches: faster than one huge block
         step = max(1, PREDICT_BLOCK_ELEMENTS // max(n_epochs, 1))
+        if step >= n_rows:
+            return predict_system(self.space, phys, companion, t_astro=ta, t_vel=tv, central_rows=central_rows)
         out: dict[str, NDArray[np.float64]] = {}
-        for k in range(0, max(theta.shape[0], 1), step):
+        for k in range(0, n_rows, step):
             sl = slice(k, k + step)
             part = predict_system(
-                self.space, self.space.unpack(theta[sl]), companion,
+                self.space, {key: val[sl] if np.ndim(val) == 1 and len(val) == n_rows else val
+                             for key, val in phys.items()}, companion,
                 t_astro=None if ta is None else (ta[sl] if ta.ndim == 2 else ta),
                 t_vel=None if tv is None else (tv[sl] if tv.ndim == 2 else tv), central_rows=central_rows)
-            if step >= theta.shape[0]:
-                return part
             for key, val in part.items():
                 if key not in out:
-                    out[key] = np.empty((theta.shape[0], val.shape[1]))
+                    out[key] = np.empty((n_rows, val.shape[1]))
                 out[key][sl] = val
         return out
 

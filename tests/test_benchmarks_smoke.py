@@ -127,7 +127,8 @@ def test_write_json_replaces_non_finite(tmp_path):
     assert json.loads(out.read_text(encoding="utf-8")) == {"a": None, "b": 2.5, "c": [1, 2]}
 
 
-@pytest.mark.parametrize("name", ["bench_kepler", "bench_likelihood", "bench_problems", "bench_scaling"])
+@pytest.mark.parametrize("name", ["bench_kepler", "bench_likelihood", "bench_relativity", "bench_problems",
+                                  "bench_scaling"])
 def test_sections_have_run(name):
     mod = run._module(name)
     assert mod is not None and callable(mod.run)
@@ -148,3 +149,11 @@ def test_targets_thresholds():
     assert rows["ESS(mass)/s orbitmass / baseline, astrometry"]["met"] is False
     assert rows["demo fit one, wall seconds to convergence"]["met"] is True
     assert not any("joint" in f for f in rows)
+
+
+def test_relativity_target_is_at_most_twice_keplerian():
+    # the threshold: all relativistic terms on cost at most 2x a Keplerian likelihood
+    rows = {r["figure"]: r for r in run.targets({"relativity": {"ratio": 1.6, "n_epochs": 90}})}
+    assert rows["likelihood, all relativistic terms / Keplerian (90 epochs)"]["met"] is True
+    rows = {r["figure"]: r for r in run.targets({"relativity": {"ratio": 2.4, "n_epochs": 90}})}
+    assert rows["likelihood, all relativistic terms / Keplerian (90 epochs)"]["met"] is False

@@ -5,7 +5,8 @@ layers below; no import cycles; imports inside functions only for optional
 dependencies or start-up time (each one listed in ``LOCAL_IMPORTS_ALLOWED``
 with its reason); no module imports another module's private names; no module
 over 600 lines without a reason stated in its docstring; the old flat module
-paths still import, with a deprecation warning, for one release.
+paths still import, with a deprecation warning, for one release. The test tree
+mirrors the package (DEVELOPERS.md, "Tests"): see ``TOP_LEVEL_TESTS`` below.
 Common practice, no source: these are this project's conventions.
 """
 
@@ -20,6 +21,7 @@ from pathlib import Path
 import pytest
 
 PKG = Path(__file__).resolve().parents[1] / "orbitmass"
+TESTS = Path(__file__).resolve().parent
 
 # rank of each top-level part; a module may import only from parts of lower or equal rank
 RANK = {
@@ -208,3 +210,72 @@ def test_old_model_names_warn_and_resolve():
         warnings.simplefilter("ignore")
         import orbitmass.model as m
         assert m.thiele_innes is orbit.thiele_innes
+
+
+# ----------------------------------------------------------------------------- the test tree
+# A test of orbitmass/<sub>/... lives in tests/<sub>/ (deeper folders only where the package has
+# the same subpackage), so a reader finds the tests of a module beside its siblings' tests.
+# At tests/ top level: tests of a top-level module, named test_<module>[_...].py (results, fit,
+# units, _atomic as test_atomic, ...), and the tests that belong to no single subpackage:
+TOP_LEVEL_TESTS = {
+    "test_package_structure.py": "rules over the whole package and the test tree",
+    "test_no_eval.py": "a scan of every module of the package",
+    "test_bench_predict.py": "benchmarks/ (outside the package)",
+    "test_benchmarks_smoke.py": "benchmarks/ (outside the package)",
+}
+# folders of tests/ that mirror no subpackage, and hold no tests
+NON_MIRROR_FOLDERS = {"helpers": "builders shared by test modules of several folders"}
+
+
+def _test_files():
+    return sorted(p for p in TESTS.rglob("test_*.py") if "__pycache__" not in p.parts)
+
+
+def test_test_files_live_in_the_mirrored_tree():
+    top_modules = {p.stem.lstrip("_") for p in PKG.glob("*.py") if p.stem != "__init__"}
+    files = _test_files()
+    assert len(files) > 20  # the rule is checked over the real tree, not an empty glob
+    bad = []
+    for path in files:
+        rel = path.relative_to(TESTS)
+        if len(rel.parts) == 1:
+            subject = rel.stem[len("test_"):]
+            if rel.name in TOP_LEVEL_TESTS or any(subject == m or subject.startswith(m + "_")
+                                                  for m in top_modules):
+                continue
+            bad.append(f"tests/{rel}: a flat test file; move it to tests/<subpackage>/ (or, for a "
+                       "test of no single subpackage, list it in TOP_LEVEL_TESTS with the reason)")
+        elif rel.parts[0] in NON_MIRROR_FOLDERS:
+            bad.append(f"tests/{rel}: tests/{rel.parts[0]} holds shared builders, not tests")
+        elif not (PKG.joinpath(*rel.parts[:-1]) / "__init__.py").is_file():
+            bad.append(f"tests/{rel}: orbitmass/{'/'.join(rel.parts[:-1])} is not a subpackage")
+    assert not bad, "\n".join(bad)
+
+
+def test_every_test_folder_is_a_package():
+    # with __init__.py in every folder, pytest's default (prepend) import mode imports
+    # tests/core/test_x.py as tests.core.test_x, so two folders may hold the same basename
+    missing = sorted(str(d.relative_to(TESTS.parent)) for d in [TESTS, *TESTS.rglob("*")]
+                     if d.is_dir() and d.name != "__pycache__" and any(d.glob("*.py"))
+                     and not (d / "__init__.py").is_file())
+    assert not missing, f"test folders without __init__.py: {missing}"
+
+
+def test_tests_import_no_other_test_module():
+    # shared builders live in tests/helpers: importing a test module or conftest from another
+    # ties the two files' locations together and breaks when either moves
+    bad = []
+    for path in [*_test_files(), TESTS / "conftest.py"]:
+        tree = ast.parse(path.read_text(encoding="utf-8"))
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom):
+                names = [node.module or ""] + [f"{node.module or ''}.{a.name}" for a in node.names]
+            elif isinstance(node, ast.Import):
+                names = [a.name for a in node.names]
+            else:
+                continue
+            for name in names:
+                last = name.split(".")[-1]
+                if last.startswith("test_") or last == "conftest":
+                    bad.append(f"tests/{path.relative_to(TESTS)}:{node.lineno} imports {name}")
+    assert not bad, "\n".join(bad)

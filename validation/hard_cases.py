@@ -6,7 +6,9 @@ fixed seed. Every case is fitted with the default settings of
 :class:`orbitmass.Fit` (only the seed is given), and the script prints, per
 case: initialisation time, total wall time, R-hat, the smallest ESS, whether
 the run converged, the goodness-of-fit status, and the fitted total mass
-against the truth (inside the central 95 % interval or not).
+against the truth (inside the central 95 % interval or not); for companions
+sampled in their reference state (partial arcs), their names and the R-hat
+of the sampled chain.
 
 Run::
 
@@ -343,6 +345,8 @@ def run_case(case: Case, seed: int, work: Path) -> dict:
         "converged": diag.get("converged"), "mass": m,
         "truth_in_95": bool(m["q2.5"] <= truth <= m["q97.5"]),
         "fit_status": quality.get("status", "n/a"), "reduced_chi2": quality.get("reduced_chi2"),
+        # companions sampled in their reference state, with R-hat and ESS of that (sampled) chain
+        "reference_state": diag.get("reference_state"),
     }
 
 
@@ -368,7 +372,9 @@ def main(argv=None) -> int:
                   f"R-hat {row['rhat_max']:.3f}  ESS {row['ess_min']:7.0f}  converged {row['converged']!s:5s}  "
                   f"fit {row['fit_status']:4s}  M {m['median']:.4g} (+{m['q84'] - m['median']:.2g} "
                   f"-{m['median'] - m['q16']:.2g}) truth {row['truth_mass_msun']:.4g} "
-                  f"{'in' if row['truth_in_95'] else 'OUT of'} 95 %", flush=True)
+                  f"{'in' if row['truth_in_95'] else 'OUT of'} 95 %"
+                  + (f"  [state: {', '.join(row['reference_state']['companions'])}, R-hat "
+                     f"{row['reference_state']['rhat_max']:.3f}]" if row["reference_state"] else ""), flush=True)
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     (out / "hard_cases.json").write_text(json.dumps({"seed": args.seed, "cases": rows}, indent=1,

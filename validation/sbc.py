@@ -38,9 +38,28 @@ thinned) samples, and whether the truth lies inside the central 68 %
 Coverage error bars are binomial, ``sqrt(p (1 - p) / n)``. Rank uniformity is
 tested with a chi-square over equal-width rank bins.
 
+Configurations (``--config``; the priors of each are written into every
+target file exactly as drawn):
+
+* ``binary`` (default): the system above.
+* ``arc``: a partial arc, 20 positions (1 mas) and 6 velocities (0.5 km/s)
+  over 2000-2015 of orbits with a log-uniform period of 100 to 300 yr (5 to
+  15 % of the orbit), eccentricity uniform 0 to 0.8; mass and distance as
+  above. Fits of it are sampled in the reference state
+  (:class:`orbitmass.model.parameters.ReferenceState`).
+* ``disk``: two clumps on circular orbits (e fixed at 0) in one plane
+  (``plane = "disk"``: shared isotropic inclination and uniform node), each
+  with 10 positions (0.05 mas) and 10 velocities (5 km/s) over 2010-2022;
+  mass log-uniform 1e6 to 1e7 Msun, distance normal 8000 +- 400 pc, periods
+  log-uniform 200 to 600 yr; the first clump's period is ranked.
+
+Unconverged fits are counted in the coverage (not dropped) and reported as
+``n_unconverged``; a fit that raises counts as a miss.
+
 Run::
 
     python -m validation.sbc --n-fits 200 --out validation/out      # full (~20 min, 2 cores)
+    python -m validation.sbc --config arc --n-fits 100 --out validation/out/sbc_arc
     python -m validation.sbc --quick --out /tmp/sbc                 # 20 fits, L = 19
 
 It writes ``sbc.json`` (settings, per-fit records, per-quantity results) and
@@ -68,7 +87,8 @@ from scipy import stats
 
 from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, write_velocities_csv
 
-__all__ = ["Design", "QUANTITIES", "target_toml", "draw_truth", "write_dataset", "rank_of",
+__all__ = ["Design", "CONFIGS", "QUANTITIES", "target_toml", "draw_truth", "draw_truths", "clump_names",
+           "write_dataset", "rank_of",
            "fit_one", "summarise", "run_sbc", "plot_ranks", "format_table", "main"]
 
 log = logging.getLogger(__name__)
@@ -125,6 +145,27 @@ class Design:
     n_velocities: int = 10
     pos_err_mas: float = 3.0
     rv_err_kms: float = 1.0
+    config: str = "binary"
+    n_clumps: int = 1
+
+
+#: The configurations of ``--config`` (see the module docstring).
+CONFIGS: dict[str, Design] = {
+    "binary": Design(),
+    # partial arcs: 15 yr of 100-300 yr orbits (5-15 % of the orbit), positions and a few velocities
+    "arc": Design(config="arc", period_yr=(100.0, 300.0), ecc_max=0.8, reference_epoch=2007.5,
+                  t_start=2000.0, t_end=2015.0, n_astrometry=20, n_velocities=6, pos_err_mas=1.0,
+                  rv_err_kms=0.5),
+    # a disk: two clumps on circular orbits in one plane, 12 yr of 200-600 yr orbits
+    "disk": Design(config="disk", mass_msun=(1.0e6, 1.0e7), distance_pc=(8000.0, 400.0),
+                   period_yr=(200.0, 600.0), reference_epoch=2016.0, t_start=2010.0, t_end=2022.0,
+                   n_astrometry=10, n_velocities=10, pos_err_mas=0.05, rv_err_kms=5.0, n_clumps=2),
+}
+
+
+def clump_names(design: Design) -> list[str]:
+    """Companion names of the design: ``B`` first (the one whose period is ranked), then ``C``, ``D``, ..."""
+    return [chr(ord(COMPANION) + k) for k in range(max(design.n_clumps, 1))]
 
 
 def target_toml(design: Design) -> str:
@@ -132,9 +173,9 @@ def target_toml(design: Design) -> str:
     m_lo, m_hi = design.mass_msun
     d_mean, d_sd = design.distance_pc
     p_lo, p_hi = design.period_yr
-    return textwrap.dedent(f"""\
+    head = textwrap.dedent(f"""\
         [target]
-        name = "SBC binary"
+        name = "SBC {design.config}"
         reference_epoch = {design.reference_epoch!r}
 
         [central]
@@ -142,7 +183,20 @@ def target_toml(design: Design) -> str:
 
         [distance]
         prior = {{ dist = "normal", mean = "{d_mean!r} pc", sd = "{d_sd!r} pc" }}
-
+        """)
+    if design.config == "disk":
+        blocks = [textwrap.dedent(f"""\
+            [[companion]]
+            name = "{name}"
+            plane = "disk"
+            astrometry = "positions_{name}.csv"
+            velocities = "velocities_{name}.csv"
+            period = {{ dist = "log-uniform", low = "{p_lo!r} yr", high = "{p_hi!r} yr" }}
+            eccentricity = {{ dist = "fixed", value = 0 }}
+            inclination = {{ dist = "isotropic" }}
+            """) for name in clump_names(design)]
+        return head + "\n" + "\n".join(blocks)
+    return head + "\n" + textwrap.dedent(f"""\
         [[companion]]
         name = "{COMPANION}"
         astrometry = "positions.csv"
@@ -154,40 +208,62 @@ def target_toml(design: Design) -> str:
 
 
 def draw_truth(design: Design, rng: np.random.Generator) -> TrueOrbit:
-    """One parameter set from the prior of :func:`target_toml`.
+    """One parameter set from the prior of :func:`target_toml` (the first companion of :func:`draw_truths`)."""
+    return draw_truths(design, rng)[0]
+
+
+def draw_truths(design: Design, rng: np.random.Generator) -> list[TrueOrbit]:
+    """Parameter sets of every companion from the prior of :func:`target_toml`.
 
     Log-uniform: ``exp(U(ln lo, ln hi))``; isotropic inclination:
     ``arccos(U(-1, 1))``; angles and the mean anomaly at the reference epoch
-    uniform over the circle (the target's default priors).
+    uniform over the circle (the target's default priors). In the disk
+    configuration the clumps share mass, distance, inclination and node (one
+    draw), each has its own period and mean anomaly, and e = 0 (then omega is
+    0 and the mean anomaly is the argument of latitude).
     """
     mass = math.exp(rng.uniform(math.log(design.mass_msun[0]), math.log(design.mass_msun[1])))
     distance = rng.normal(*design.distance_pc)
-    period = math.exp(rng.uniform(math.log(design.period_yr[0]), math.log(design.period_yr[1])))
-    ecc = rng.uniform(0.0, design.ecc_max)
-    inc_deg = math.degrees(math.acos(rng.uniform(-1.0, 1.0)))
-    omega_deg, node_deg = rng.uniform(0.0, 360.0, 2)
-    mean_anomaly = rng.uniform(0.0, 2.0 * math.pi)
-    t_peri = design.reference_epoch - mean_anomaly / (2.0 * math.pi) * period
-    return TrueOrbit(mass_msun=float(mass), distance_pc=float(distance), period_yr=float(period),
-                     eccentricity=float(ecc), inclination_deg=float(inc_deg),
-                     arg_periastron_deg=float(omega_deg), ascending_node_deg=float(node_deg),
-                     periastron_time=float(t_peri))
+    out = []
+    inc_deg = node_deg = None
+    for _ in clump_names(design):
+        period = math.exp(rng.uniform(math.log(design.period_yr[0]), math.log(design.period_yr[1])))
+        if design.config == "disk":
+            ecc, omega_deg = 0.0, 0.0
+            if inc_deg is None:
+                inc_deg = math.degrees(math.acos(rng.uniform(-1.0, 1.0)))
+                node_deg = float(rng.uniform(0.0, 360.0))
+        else:
+            ecc = rng.uniform(0.0, design.ecc_max)
+            inc_deg = math.degrees(math.acos(rng.uniform(-1.0, 1.0)))
+            omega_deg, node_deg = rng.uniform(0.0, 360.0, 2)
+        mean_anomaly = rng.uniform(0.0, 2.0 * math.pi)
+        t_peri = design.reference_epoch - mean_anomaly / (2.0 * math.pi) * period
+        out.append(TrueOrbit(mass_msun=float(mass), distance_pc=float(distance), period_yr=float(period),
+                             eccentricity=float(ecc), inclination_deg=float(inc_deg),
+                             arg_periastron_deg=float(omega_deg), ascending_node_deg=float(node_deg),
+                             periastron_time=float(t_peri)))
+    return out
 
 
-def write_dataset(folder: Path, design: Design, truth: TrueOrbit, rng: np.random.Generator) -> Path:
-    """Write a target file and noisy simulated tables for ``truth``; returns the target path."""
+def write_dataset(folder: Path, design: Design, truth, rng: np.random.Generator) -> Path:
+    """Write a target file and noisy simulated tables for ``truth`` (a TrueOrbit, or a list of one per
+    companion); returns the target path."""
     folder.mkdir(parents=True, exist_ok=True)
-    t_pos = np.sort(rng.uniform(design.t_start, design.t_end, design.n_astrometry))
-    t_rv = np.sort(rng.uniform(design.t_start, design.t_end, design.n_velocities))
-    sky = simulate(truth, t_pos)
-    noise = rng.normal(0.0, design.pos_err_mas, (2, design.n_astrometry))
-    write_positions_csv(folder / "positions.csv", t_pos, sky["east_mas"] + noise[0],
-                        sky["north_mas"] + noise[1], design.pos_err_mas,
-                        comment="simulated for simulation-based calibration")
-    rv = simulate(truth, t_rv)["rv_companion_kms"] + rng.normal(0.0, design.rv_err_kms,
-                                                                   design.n_velocities)
-    write_velocities_csv(folder / "velocities.csv", t_rv, rv, design.rv_err_kms,
-                         comment="simulated for simulation-based calibration")
+    truths = truth if isinstance(truth, list) else [truth]
+    for name, one in zip(clump_names(design), truths):
+        suffix = f"_{name}" if design.config == "disk" else ""
+        t_pos = np.sort(rng.uniform(design.t_start, design.t_end, design.n_astrometry))
+        t_rv = np.sort(rng.uniform(design.t_start, design.t_end, design.n_velocities))
+        sky = simulate(one, t_pos)
+        noise = rng.normal(0.0, design.pos_err_mas, (2, design.n_astrometry))
+        write_positions_csv(folder / f"positions{suffix}.csv", t_pos, sky["east_mas"] + noise[0],
+                            sky["north_mas"] + noise[1], design.pos_err_mas,
+                            comment="simulated for simulation-based calibration")
+        rv = simulate(one, t_rv)["rv_companion_kms"] + rng.normal(0.0, design.rv_err_kms,
+                                                                     design.n_velocities)
+        write_velocities_csv(folder / f"velocities{suffix}.csv", t_rv, rv, design.rv_err_kms,
+                             comment="simulated for simulation-based calibration")
     path = folder / "target.toml"
     path.write_text(target_toml(design), encoding="utf-8")
     return path
@@ -221,8 +297,9 @@ def fit_one(task: dict) -> dict:
 
     design = Design(**{k: tuple(v) if isinstance(v, list) else v for k, v in task["design"].items()})
     rng = np.random.default_rng([task["seed"], task["index"]])
-    truth = draw_truth(design, rng)
-    path = write_dataset(Path(task["folder"]), design, truth, rng)
+    truths = draw_truths(design, rng)
+    truth = truths[0]
+    path = write_dataset(Path(task["folder"]), design, truths, rng)
     fit_seed = int(rng.integers(2**31 - 1))
     record: dict = {"index": task["index"], "truth": asdict(truth), "fit_seed": fit_seed}
     t0 = time.perf_counter()
@@ -242,6 +319,7 @@ def fit_one(task: dict) -> dict:
     diag = summary["diagnostics"]
     record["diagnostics"] = {k: diag[k] for k in ("converged", "n_steps", "tau_max", "ess_min",
                                                    "rhat_max", "n_samples")}
+    record["diagnostics"]["reference_state"] = diag.get("reference_state", {}).get("companions", [])
     record["wall_seconds"] = time.perf_counter() - t0
     return record
 
@@ -272,10 +350,12 @@ def summarise(records: list[dict], n_draws: int) -> dict:
     ok = [r for r in records if "error" not in r]
     out: dict = {}
     for key, (_, attr, _, _) in QUANTITIES.items():
-        n = len(ok)
-        res: dict = {"n": n}
+        # every fit counts, converged or not; a fit that raised counts as a miss (no interval)
+        n = len(records)
+        unconverged = sum(1 for r in ok if not r.get("diagnostics", {}).get("converged", True))
+        res: dict = {"n": n, "n_unconverged": unconverged}
         for name, (p0, lo, hi) in INTERVALS.items():
-            inside = [r[key][lo] <= r["truth"][attr] <= r[key][hi] for r in ok]
+            inside = [("error" not in r) and r[key][lo] <= r["truth"][attr] <= r[key][hi] for r in records]
             p = float(np.mean(inside)) if n else float("nan")
             res[f"coverage{name}"] = p
             res[f"coverage{name}_err"] = math.sqrt(p * (1 - p) / n) if n else float("nan")
@@ -409,7 +489,8 @@ def format_table(result: dict) -> str:
         rows.append(f"{key:<12} {res['coverage68']:>9.3f} ± {res['coverage68_err']:.3f} "
                     f"{res['coverage95']:>9.3f} ± {res['coverage95_err']:.3f} "
                     f"{res['chi2']:>6.1f}/{res['dof']:<3d} {res['p_uniform']:>10.3f}")
-    rows.append("nominal: 68% interval 0.683, 95% interval 0.950; errors sqrt(p(1-p)/n)")
+    rows.append("nominal: 68% interval 0.683, 95% interval 0.950; errors sqrt(p(1-p)/n); unconverged fits "
+                "counted (" + ", ".join(f"{k} {v['n_unconverged']}" for k, v in result["results"].items()) + ")")
     return "\n".join(rows)
 
 
@@ -426,6 +507,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--out", default="validation/out", help="folder for sbc.json and figures")
     parser.add_argument("--keep", action="store_true", help="keep each replicate's files in OUT/fits")
     parser.add_argument("--quick", action="store_true", help="20 fits, L = 19, 3000 steps")
+    parser.add_argument("--config", choices=sorted(CONFIGS), default="binary",
+                        help="simulated system: binary (default), arc (5-15 %% of the orbit) or disk "
+                             "(two clumps on circular orbits in one plane)")
     args = parser.parse_args(argv)
     if args.quick:
         n_fits = 20 if args.n_fits == 200 else args.n_fits
@@ -439,7 +523,8 @@ def main(argv: list[str] | None = None) -> int:
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     result = run_sbc(n_fits, seed=args.seed, n_draws=n_draws, max_steps=max_steps,
-                     workers=args.workers, work_dir=out / "fits" if args.keep else None)
+                     workers=args.workers, design=CONFIGS[args.config],
+                     work_dir=out / "fits" if args.keep else None)
     from orbitmass.outputs.style import write_atomic
 
     write_atomic(out / "sbc.json", json.dumps(result, indent=1, default=float) + "\n")

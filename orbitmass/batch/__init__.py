@@ -86,6 +86,8 @@ task, time limits), ``cluster`` (everything dask), ``driver``
 """
 from __future__ import annotations
 
+from orbitmass._compat import moved_name
+
 from orbitmass.batch.catalogue import (
     ELEMENTS,
     STATUS_CONVERGED,
@@ -119,3 +121,8 @@ __all__ = [
     "catalogue_frame",
     "write_catalogue",
 ]
+
+
+def __getattr__(name: str):
+    """Names that moved out of this module (deprecated, see :mod:`orbitmass._compat`)."""
+    return moved_name(__name__, name)

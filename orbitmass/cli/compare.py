@@ -100,6 +100,11 @@ def run(args: argparse.Namespace) -> int:
                               progress=False if args.no_progress else None)
     except RunFolderError as exc:
         raise option_hint(exc) from None
+    except InputError as exc:  # the library's option named as this command's flag
+        if "with priors_from" not in exc.reason:
+            raise
+        raise InputError(exc.reason.replace("with priors_from", "with --priors-from LABEL"), file=exc.file,
+                         line=exc.line, key=exc.key) from None
     for p in cmp.pairs:
         print(f"{p.a} vs {p.b}: {p.statement}")
     code = EXIT_OK

@@ -5,9 +5,9 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
-from orbitmass.cli.common import EXIT_OK, option_hint, seed
+from orbitmass.cli.common import EXIT_OK, captured_warnings, option_hint, print_warnings, seed
 from orbitmass.exceptions import RunFolderError
-from orbitmass.outputs.formatting import summary_text
+from orbitmass.outputs.formatting import format_number, summary_text
 
 __all__ = ["add_parser", "run"]
 
@@ -27,6 +27,12 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
     return p
 
 
+def _signed(value: float, column: str) -> str:
+    """A shift with its sign and display unit, three significant digits (``+71500 M☉``)."""
+    text = format_number(value, digits=3, column=column)
+    return text if text.startswith("-") else "+" + text
+
+
 def run(args: argparse.Namespace) -> int:
     """Run ``orbitmass demo``: 0, or an error for the caller to map."""
     # imported here for the start-up time of the CLI: the demo loads orbitmass.compare (matplotlib,
@@ -34,10 +40,12 @@ def run(args: argparse.Namespace) -> int:
     from orbitmass.demo.run import run_demo
 
     try:
-        results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
-                           progress=False if args.no_progress else None)
+        with captured_warnings() as caught:  # orbitmass's warnings as one "warning: ..." line each
+            results = run_demo(Path(args.out), seed=args.seed, overwrite=args.overwrite,
+                               progress=False if args.no_progress else None)
     except RunFolderError as exc:
         raise option_hint(exc) from None
+    print_warnings(caught)
     print(f"demo data and runs written to {Path(args.out).resolve()}")
     for res in results:
         s = res.summary
@@ -46,9 +54,9 @@ def run(args: argparse.Namespace) -> int:
         truth = res.truth
         comps = list(s.get("companions") or {})
         print(f"  total mass: {summary_text('mass_msun', s['derived']['mass_msun'], companions=comps)}   "
-              f"(invented truth {truth.mass_msun:.4g} M☉)")
+              f"(invented truth {format_number(truth.mass_msun, column='mass_msun')})")
         print(f"  distance:   {summary_text('distance_pc', s['derived']['distance_pc'], companions=comps)}   "
-              f"(invented truth {truth.distance_pc:.4g} pc)")
+              f"(invented truth {format_number(truth.distance_pc, column='distance_pc')})")
         print(f"  converged: {'yes' if d['converged'] else 'NO'}; ESS of the mass {d['ess_mass']:.0f}; "
               f"{d['wall_seconds']:.1f} s")
         print(f"  report: {res.run_dir / 'report.md'}  (also report.html)")
@@ -59,8 +67,9 @@ def run(args: argparse.Namespace) -> int:
                     print(f"  {name}: {summary_text(key, rel['factors'][key])}   (general relativity 1, Newton 0)")
             m = rel["mass_msun"]
             print(f"  Keplerian fit of the same data: total mass {summary_text('mass_msun', m['keplerian'])}, "
-                  f"shifted by {m['shift']:+.3g} Msun ({m['shift_sigma']:+.1f} sigma); distance shifted by "
-                  f"{rel['distance_pc']['shift']:+.3g} pc ({rel['distance_pc']['shift_sigma']:+.1f} sigma)")
+                  f"shifted by {_signed(m['shift'], 'mass_msun')} ({m['shift_sigma']:+.1f} sigma); distance "
+                  f"shifted by {_signed(rel['distance_pc']['shift'], 'distance_pc')} "
+                  f"({rel['distance_pc']['shift_sigma']:+.1f} sigma)")
             print(f"  velocity residuals of both models around periastron: {rel['figure'][0]}")
     cmp_dir = Path(args.out) / "comparison-demo" / "comparison"
     if (cmp_dir / "comparison.md").is_file():

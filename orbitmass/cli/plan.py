@@ -22,27 +22,37 @@ def add_parser(subparsers) -> argparse.ArgumentParser:
         "plan", help="rank candidate epochs by the expected shrinkage of the mass posterior",
         description="Rank candidate epochs between A and B (every S) by how much one more position or "
                     "velocity measurement is expected to shrink the posterior of the mass (or of --for "
-                    "QUANTITY): Fisher information of the measurement averaged over posterior draws, combined "
-                    "with the current posterior covariance. Writes DIR/plan.csv (ranked), plan_sets.csv "
-                    "(greedy sets of K epochs), plan.png/.pdf and plan.md (recommendation). Epochs are Julian "
-                    "years or ISO 8601 UTC dates.")
+                    "QUANTITY), positions and velocities each ranked on their own: for each posterior draw the "
+                    "Fisher information of the measurement is combined with the current posterior covariance, "
+                    "and the expected posterior variances are averaged over the draws (a linearised "
+                    "expectation; rough on a short arc). Mass, distance and other scale quantities "
+                    "are followed in their logarithm, so the reductions are of the relative uncertainty. Writes "
+                    "DIR/plan.csv (ranked), plan_sets.csv (best sets of K measurements, chosen one at a time, "
+                    "and K evenly spaced ones for comparison), plan.png/.pdf and plan.md (recommendation in "
+                    "plain language). Epochs are Julian years (TDB) or ISO 8601 UTC dates. Nothing is refitted.",
+        epilog="example: orbitmass plan run-1 --window 2031 2034 --cadence '30 d' --max-epochs 4 "
+               "--precision '0.2 mas' --velocity-precision '2 km/s' --cost positions=1,velocities=3 --out plan-1")
     p.add_argument("run_dir", metavar="RUN_DIR", help="a run folder written by 'orbitmass fit'")
     p.add_argument("--window", nargs=2, required=True, metavar=("A", "B"), help="first and last candidate epoch")
     p.add_argument("--cadence", required=True, metavar="S",
                    help="spacing of candidate epochs: Julian years, or a time such as '14 d'")
-    p.add_argument("--max-epochs", type=int, default=3, metavar="K", help="size of the greedy sets (default 3)")
+    p.add_argument("--max-epochs", type=int, default=3, metavar="K",
+                   help="number of measurements in the best sets (default 3)")
     p.add_argument("--precision", default="0.5 mas", metavar="Q",
-                   help="1-sigma error per coordinate of a new position (default '0.5 mas')")
+                   help="1-sigma error per coordinate (east, north) of a new position, with a unit (default '0.5 mas')")
     p.add_argument("--velocity-precision", default="1 km/s", metavar="Q",
-                   help="1-sigma error of a new velocity (default '1 km/s')")
+                   help="1-sigma error of a new velocity, with a unit (default '1 km/s'); the instrument's fitted "
+                        "jitter is added in quadrature")
     p.add_argument("--cost", default=None, metavar="KIND=C,...",
-                   help="relative cost per kind, e.g. 'positions=1,velocities=2' (default 1 each)")
+                   help="relative cost of one measurement per kind, e.g. 'positions=1,velocities=2' (default 1 each); "
+                        "'pays more' and the mixed set compare reduction per unit cost")
     p.add_argument("--for", dest="quantity", default="mass", metavar="QUANTITY",
-                   help="quantity to plan for: mass (default), distance, parallax, C1.period, any column")
+                   help="quantity to plan for: mass (default), distance, parallax, C1.period (period with one "
+                        "companion), or any column of the run's samples")
     p.add_argument("--instrument", default=None, metavar="NAME",
                    help="instrument of a new velocity (default the run's first instrument)")
     p.add_argument("--draws", type=int, default=200, metavar="N",
-                   help="posterior draws the information is averaged over (default 200)")
+                   help="posterior draws the expected variance is averaged over (default 200)")
     p.add_argument("--seed", type=int, default=0, metavar="N", help="seed of the choice of draws (default 0)")
     p.add_argument("--out", required=True, metavar="DIR", help="folder to write (new or empty)")
     p.add_argument("--overwrite", action="store_true",
@@ -73,7 +83,9 @@ def run(args) -> int:
                   instrument=args.instrument)
     paths = result.write(args.out, overwrite=args.overwrite, run_dir=str(args.run_dir))
     best = result.table.iloc[0]
-    print(f"best single measurement: {best['best_kind']} at {best['epoch_jyear']:.3f} ({best['date_utc']}), "
+    kind = {"positions": "a position", "velocities": "a velocity"}[best["best_kind"]]
+    print(f"best single measurement: {kind} at {best['epoch_jyear']:.3f} ({best['date_utc']}), "
           f"expected reduction of sd({result.label}) {best['best_reduction_pct']:.1f} %")
     print(f"plan: {paths['markdown']}")
+    print(f"figure: {paths['figure_png']}")
     return 0

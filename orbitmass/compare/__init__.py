@@ -120,6 +120,8 @@ from a fit) and, optionally, ``combined/`` (the joint run folder).
 
 from __future__ import annotations
 
+from orbitmass._compat import moved_name
+
 from orbitmass.compare.comparison import Comparison, compare
 from orbitmass.compare.folders import compare_folders
 from orbitmass.compare.merge import combined_target
@@ -149,3 +151,8 @@ __all__ = [
     "compare_folders",
     "DEFAULT_THRESHOLD_SIGMA",
 ]
+
+
+def __getattr__(name: str):
+    """Names that moved out of this module (deprecated, see :mod:`orbitmass._compat`)."""
+    return moved_name(__name__, name)

@@ -17,12 +17,13 @@ from matplotlib.lines import Line2D
 from matplotlib.ticker import LogFormatterSciNotation
 
 from orbitmass.compare.references import Reference
+from orbitmass.model.quantities import display_unit
 from orbitmass.outputs.reports import choose_exponent
 from orbitmass.outputs.style import MARKERS, PALETTE, SINGLE_COLUMN_IN, style_context
 from orbitmass.results import quantile_block
 from orbitmass.units import RS_AU_PER_MSUN
 
-__all__ = ["comparison_figure", "enclosed_mass_figure", "RUN_COLOURS", "tension_text"]
+__all__ = ["comparison_figure", "enclosed_mass_figure", "RUN_COLOURS", "schwarzschild_axis_label", "tension_text"]
 
 #: characters per line of the tension list under the figure (6 pt text, single column)
 _TEXT_WIDTH = 68
@@ -192,18 +193,42 @@ def enclosed_mass_figure(cmp):
         ax.set_xlabel("radius $r$ [au]")
         ax.set_ylabel(f"enclosed mass $M(<r)$ [{_mass_unit(k)}]")
         sec = ax.secondary_xaxis("top", functions=(lambda r: r / rs_au, lambda x: x * rs_au))
-        mant = f"{ref_mass / scale:.3g}"
-        of = rf"${mant}\times10^{{{k}}}\,M_\odot$" if k else rf"${mant}\,M_\odot$"
-        sec.set_xlabel(rf"$r$ [$R_\mathrm{{S}}$ of {of}]")
+        sec.set_xlabel(schwarzschild_axis_label(ref_mass))
         for axis in (ax.xaxis, sec.xaxis):
             _plain_log_ticks(axis)
         ncol = 2 if max(len(h.get_label()) for h in handles) <= 30 else 1
         ax.legend(handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.2), ncol=ncol,
-                  fontsize=6.5, handlelength=1.6, handletextpad=0.5, columnspacing=1.0)
+                  fontsize=6.5, handlelength=1.6, handletextpad=0.8, columnspacing=1.0)
         ymin, ymax = ax.get_ylim()
         if ymin > 0 and ymax / ymin > 10:
             ax.set_yscale("log")
     return fig
+
+
+def schwarzschild_axis_label(mass_msun: float) -> str:
+    """Label of a radius axis in Schwarzschild radii of ``mass_msun``, readable for any mass.
+
+    The mass gets its own power of ten (not the one of the mass axis) and the
+    length of one Schwarzschild radius is given in its display unit (km for
+    stellar masses, au for massive black holes).
+
+    Examples
+    --------
+    >>> print(schwarzschild_axis_label(1.6))
+    $r\\,/\\,R_\\mathrm{S}$ for $M = 1.6\\,M_\\odot$ ($R_\\mathrm{S} = 4.7\\,\\mathrm{km}$)
+    """
+    mass = _mathtext_number(mass_msun, 3) + r"\,M_\odot"
+    rs_au = RS_AU_PER_MSUN * mass_msun
+    unit, factor = display_unit("schwarzschild_radius_au", rs_au)
+    rs = _mathtext_number(rs_au * factor, 2)
+    return rf"$r\,/\,R_\mathrm{{S}}$ for $M = {mass}$ ($R_\mathrm{{S}} = {rs}\,{unit.math}$)"
+
+
+def _mathtext_number(value: float, digits: int) -> str:
+    """``value`` to ``digits`` significant digits as mathtext, a power of ten only when large or small."""
+    k = choose_exponent(value)
+    mant = f"{float(f'{value / 10.0**k:.{digits}g}'):g}"
+    return rf"{mant}\times10^{{{k}}}" if k else mant
 
 
 def _mass_unit(exponent: int) -> str:

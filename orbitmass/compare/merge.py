@@ -77,15 +77,31 @@ def _merge_companions(name: str, comps: Sequence[Companion], labels: Sequence[st
     )
 
 
+#: units of the central-body priors in messages (the stored units)
+_CENTRAL_UNITS = {"mass": "Msun", "x0": "mas", "y0": "mas", "vx0": "mas/yr", "vy0": "mas/yr", "vz0": "km/s",
+                  "systemic": "km/s"}
+
+
+def _words(value: Any, other: Any) -> str:
+    """A target setting in words for a message (no Python object spelling); of a mapping, the entries that differ."""
+    if hasattr(value, "describe"):
+        return str(value.describe())
+    if isinstance(value, dict) and isinstance(other, dict):
+        keys = [k for k in value if value.get(k) != other.get(k)] or list(value)
+        return "; ".join(f"{k} {value[k].describe(_CENTRAL_UNITS.get(k, ''))}" if hasattr(value[k], "describe")
+                         else f"{k} {value[k]}" for k in keys)
+    return str(value)
+
+
 def _pick(values: Sequence[Any], labels: Sequence[str], what: str, key: str, priors_from: str | None) -> Any:
     if priors_from is not None:
         return values[labels.index(priors_from)]
     for v, lab in zip(values[1:], labels[1:], strict=True):
         if v != values[0]:
             raise InputError(
-                f"runs {labels[0]!r} and {lab!r} have different {what} ({values[0]!r} vs {v!r}); a "
-                "joint fit needs one: pass priors_from=LABEL (--priors-from LABEL) to take that "
-                "run's",
+                f"runs {labels[0]!r} and {lab!r} have different {what} ({_words(values[0], v)} vs "
+                f"{_words(v, values[0])}); a joint fit needs one: name the run whose {what} to use "
+                f"with priors_from (one of {', '.join(repr(x) for x in labels)})",
                 key=key,
             )
     return values[0]

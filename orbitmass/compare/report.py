@@ -18,6 +18,7 @@ from orbitmass._atomic import check_output_folder, folder_entries, staged_folder
 from orbitmass.compare.figures import comparison_figure, enclosed_mass_figure
 from orbitmass.compare.tension import METHOD
 from orbitmass.io.rundir import save_run
+from orbitmass.outputs.formatting import summary_text
 from orbitmass.outputs.reports import markdown_escape as esc
 from orbitmass.outputs.reports import measurement
 from orbitmass.outputs.style import save_figure
@@ -43,7 +44,7 @@ def markdown(cmp, *, figures: Mapping[str, str] | None = None, run_folder: str |
     lines += [
         "## Runs",
         "",
-        "| run | target | companions | total mass [M_sun] (68 %) | n_eff | converged |",
+        "| run | target | companions | total mass [M☉] (68 %) | n_eff | converged |",
         "|---|---|---|---|---|---|",
     ]
     for r in cmp.runs:
@@ -58,7 +59,7 @@ def markdown(cmp, *, figures: Mapping[str, str] | None = None, run_folder: str |
             "",
             "## Reference values",
             "",
-            "| reference | as given | total mass [M_sun] |",
+            "| reference | as given | total mass [M☉] |",
             "|---|---|---|",
         ]
         for f in cmp.references:
@@ -71,7 +72,7 @@ def markdown(cmp, *, figures: Mapping[str, str] | None = None, run_folder: str |
         f"Difference a − b and ratio a / b: median and 68 % interval. Tension threshold "
         f"{cmp.threshold_sigma:g} sigma.",
         "",
-        "| a | b | a − b [M_sun] | a / b | P(a > b) | tension | overlap BC / OVL | verdict |",
+        "| a | b | a − b [M☉] | a / b | P(a > b) | tension | overlap BC / OVL | verdict |",
         "|---|---|---|---|---|---|---|---|",
     ]
     for p in cmp.pairs:
@@ -96,7 +97,7 @@ def markdown(cmp, *, figures: Mapping[str, str] | None = None, run_folder: str |
             "mass and one distance, every companion with its own orbit (not a product of the "
             "separate posteriors).",
             "",
-            "| | total mass [M_sun] (68 %) | 68 % width [M_sun] |",
+            "| | total mass [M☉] (68 %) | 68 % width [M☉] |",
             "|---|---|---|",
         ]
         for r in cmp.runs:
@@ -104,7 +105,7 @@ def markdown(cmp, *, figures: Mapping[str, str] | None = None, run_folder: str |
             lines.append(f"| {esc(r.label)} | {meas(r.quantiles())} | {_short(w)} |")
         lines.append(f"| **{esc(c['label'])}** | **{meas(c['mass_msun'])}** | **{_short(c['width68_msun'])}** |")
         if c["distance_pc"] is not None:
-            lines += ["", f"Joint distance: {meas(c['distance_pc'])} pc."]
+            lines += ["", f"Joint distance: {summary_text('distance_pc', c['distance_pc'])}."]
         if c["converged"] is False:
             lines += [
                 "",
@@ -118,7 +119,7 @@ def markdown(cmp, *, figures: Mapping[str, str] | None = None, run_folder: str |
             "",
             "## Radii probed",
             "",
-            "| run | companion | a [au] | r_p [au] | r_p [R_S] | total mass [M_sun] |",
+            "| run | companion | a [au] | r_p [au] | r_p [R_S] | total mass [M☉] |",
             "|---|---|---|---|---|---|",
         ]
         for r, comp, rad in radii_rows:

@@ -28,7 +28,7 @@ chain longer than :data:`MIN_TAU_MULTIPLE` (50) autocorrelation times, and a
 rank-normalised split R-hat below :data:`MAX_RHAT` (1.01, the threshold Vehtari
 et al. 2021 recommend). For a stationary chain of ``n`` steps per walker the
 expected split R-hat is about ``1 + (tau - 1) / n`` (measured on AR(1) chains in
-``tests/test_diagnostics.py``), so the R-hat criterion asks for a chain of about
+``tests/core/test_diagnostics_ar1.py``), so the R-hat criterion asks for a chain of about
 100 autocorrelation times; the 50-tau criterion alone would allow R-hat near
 1.02. :func:`convergence_failures` names every parameter that misses one.
 """

@@ -40,7 +40,7 @@ Helpers for derived posteriors: :func:`precession_arcmin_per_orbit`,
 :func:`redshift_at_periastron_kms`, :func:`periastron_schwarzschild_radii`,
 :func:`roemer_delay_range_days`, :func:`plummer_precession_per_orbit`.
 
-Verification (tests/test_relativity.py)
+Verification (tests/core/test_relativity.py)
 ---------------------------------------
 Against an independent first post-Newtonian integration (scipy) of an
 e = 0.88, 16-yr orbit around 4e6 solar masses at 8 kpc (periastron 1,530
@@ -60,6 +60,7 @@ reuse their internals.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Any, Callable, Mapping
@@ -211,8 +212,7 @@ def plummer_precession_per_orbit(mass_msun, a_au, ecc, fraction, scale_radius_au
         Most quadrature nodes in the eccentric anomaly (fewer are used where
         the orbits' eccentricity allows, see the code comment).
     """
-    mass, a, ecc, frac, b = np.broadcast_arrays(*(np.asarray(x, dtype=float) for x in
-                                                  (mass_msun, a_au, ecc, fraction, scale_radius_au)))
+    a, ecc, frac, b = (np.asarray(x, dtype=float) for x in (a_au, ecc, fraction, scale_radius_au))
     # The trapezoid error falls as exp(-N sigma), sigma the distance from the real axis of the
     # integrand's nearest pole: for b -> 0 the root of 1 - e cos E = 0, Im E = acosh(1 / e) (a larger
     # b moves the poles further out). N = 40 / sigma nodes (at least 32, at most n_nodes) keep the
@@ -220,21 +220,36 @@ def plummer_precession_per_orbit(mass_msun, a_au, ecc, fraction, scale_radius_au
     e_max = float(np.max(ecc)) if np.size(ecc) else 0.0
     sigma = math.acosh(1.0 / e_max) if 0.0 < e_max < 1.0 else math.inf
     n_nodes = int(min(n_nodes, max(32, 2 * math.ceil(20.0 / sigma)))) if math.isfinite(sigma) else min(n_nodes, 32)
-    # the integrand is even in E: the nodes on [0, pi] with the trapezoid weights of the full circle
+    cos_e, weights, weights_cos = _trapezoid_half_circle(n_nodes)
+    ecc_safe = np.maximum(ecc, 1e-8)
+    # in units of a: rho = r / a, g = a^2 (-R / (G M_ext)) (G M_ext = fraction * G M); Int g (cos E - e) dE
+    # as two sums
+    rho = 1.0 - ecc_safe[..., None] * cos_e
+    q = rho * rho + ((b / a) ** 2)[..., None]
+    g = rho / (q * np.sqrt(q))
+    integral = g @ weights_cos - ecc_safe * (g @ weights)
+    out = np.sqrt(1.0 - ecc * ecc) * frac * integral / ecc_safe
+    if np.shape(mass_msun) != out.shape:  # the mass does not enter (G M cancels) but sets the shape
+        out = np.broadcast_to(out, np.broadcast_shapes(out.shape, np.shape(mass_msun))).copy()
+    return out
+
+
+@functools.lru_cache(maxsize=16)
+def _trapezoid_half_circle(n_nodes: int) -> tuple[Array, Array, Array]:
+    """Nodes ``cos E`` on [0, pi] and the weights (times ``cos E``) of the ``n_nodes``-point trapezoid rule of
+    the full circle, for integrands even in ``E`` (read-only arrays)."""
     half = n_nodes // 2
     nodes = np.linspace(0.0, TWO_PI, n_nodes, endpoint=False)[: half + 1]
     weights = np.full(half + 1, 2.0)
     weights[0] = 1.0
     if n_nodes % 2 == 0:
         weights[half] = 1.0
+    weights *= TWO_PI / n_nodes
     cos_e = np.cos(nodes)
-    ecc_safe = np.maximum(ecc, 1e-8)[..., None]
-    r = a[..., None] * (1.0 - ecc_safe * cos_e)
-    # R / (G M_ext) in 1/au^2; G M_ext = fraction * G M
-    q = r * r + b[..., None] ** 2
-    force = -r / (q * np.sqrt(q))
-    integral = (TWO_PI / n_nodes) * ((force * (cos_e - ecc_safe)) @ weights)
-    return -np.sqrt(1.0 - ecc * ecc) * a * a * frac * integral / np.maximum(ecc, 1e-8)
+    out = (cos_e, weights, weights * cos_e)
+    for arr in out:
+        arr.flags.writeable = False
+    return out
 
 
 def redshift_shift_kms(mass_msun, r_au, speed_kms) -> Array:
@@ -286,16 +301,25 @@ class RedshiftTerm:
     parameters: tuple[str, ...] = ("redshift_factor",)
     linear_safe: bool = False
 
-    def velocity_shift(self, state: OrbitState, basis: KeplerBasis, vz_kms, extra: Mapping[str, Any]) -> Array:
-        """The shift ``f (v^2/(2c) + GM/(rc))`` in km/s, shape of ``vz_kms``."""
+    def shift_coefficients(self, state: OrbitState, extra: Mapping[str, Any]) -> tuple[Array, Array]:
+        """Per-set ``(k_v2, k_r)`` of the shift ``k_v2 (dX^2 + dY^2) + k_r / (1 - e cos E)`` (km/s).
+
+        ``k_v2 = f n^2 a^2 / (2 c)``, ``k_r = f G M / (a c)``; also the fused
+        form of :meth:`velocity_shift` (:class:`orbitmass.core.orbit.FusedOrbit`).
+        """
         factor = np.asarray(extra["redshift_factor"], dtype=float)
         a = _semimajor_axis_au(state)
-        ecc = np.asarray(state.ecc, dtype=float)
         # per-set constants (n_sets, 1) first, so the epoch arrays see few operations
         gm_over_a = GM_SUN_AU3_PER_YR2 * _mass_msun(state) / a * (KMS_PER_AU_PER_YR ** 2 / C_KMS)
         half_v2 = 0.5 / C_KMS * ((TWO_PI * KMS_PER_AU_PER_YR / np.asarray(state.period_rest_yr, dtype=float)) * a) ** 2
-        shift = (basis.dX * basis.dX + basis.dY * basis.dY) * (factor * half_v2)
-        shift += (factor * gm_over_a) / (1.0 - ecc * basis.cos_E)
+        return factor * half_v2, factor * gm_over_a
+
+    def velocity_shift(self, state: OrbitState, basis: KeplerBasis, vz_kms, extra: Mapping[str, Any]) -> Array:
+        """The shift ``f (v^2/(2c) + GM/(rc))`` in km/s, shape of ``vz_kms``."""
+        k_v2, k_r = self.shift_coefficients(state, extra)
+        ecc = np.asarray(state.ecc, dtype=float)
+        shift = (basis.dX * basis.dX + basis.dY * basis.dY) * k_v2
+        shift += k_r / (1.0 - ecc * basis.cos_E)
         return shift
 
 
@@ -356,12 +380,10 @@ class RoemerTerm:
     tol_s: float = 1e-2
     max_iter: int = 20
 
-    def emission_times(self, t_obs_yr, state: OrbitState, extra: Mapping[str, Any],
-                       solve: Callable[[Any], KeplerBasis]) -> tuple[Array, KeplerBasis | None]:
-        """Emission epochs (Julian years) for the observed epochs ``t_obs_yr``, and the Keplerian basis there.
+    def _fold(self, state: OrbitState) -> tuple:
+        """Per-set constants of the light-time equation folded into Kepler's equation (class docstring).
 
-        Returns ``(t_emit, basis)``; ``basis`` is None after the Newton
-        iterations (the caller then solves at ``t_emit``).
+        Returns ``(s, n_obs, e, sqrt(1 - e^2), sigma, p, q, e_star)``.
         """
         if state.ch_au is None:
             raise ValueError("the Roemer delay needs the line-of-sight constants (OrbitState.ch_au)")
@@ -370,12 +392,38 @@ class RoemerTerm:
         yr_per_au = period_obs / np.asarray(state.period_rest_yr, dtype=float) / C_AU_PER_YR
         n_obs = TWO_PI / period_obs
         ecc = np.asarray(state.ecc, dtype=float)
-        t_obs = np.asarray(t_obs_yr, dtype=float)
         root = np.sqrt(1.0 - ecc * ecc)
         sigma = n_obs * yr_per_au
         p = ecc - sigma * H * root
         q = sigma * C
-        e_star = np.hypot(p, q)
+        return yr_per_au, n_obs, ecc, root, sigma, p, q, np.hypot(p, q)
+
+    def emission_fold(self, state: OrbitState, extra: Mapping[str, Any]) -> tuple[Array, Array, Array] | None:
+        """The fused form of :meth:`emission_times` (:class:`orbitmass.core.orbit.FusedOrbit`).
+
+        Returns ``(mean_shift, e_star, phi)``: the eccentric anomaly at the
+        emission epoch is ``E = E* + phi``, ``E*`` the root of Kepler's
+        equation ``M_obs + mean_shift = E* - e_star sin E*`` (class
+        docstring); or None when ``e_star >= 1`` for some parameter set (the
+        caller then uses :meth:`emission_times`, whose Newton iterations
+        handle that case).
+        """
+        _, _, ecc, _, _, p, q, e_star = self._fold(state)
+        if not (np.size(e_star) and float(np.max(e_star)) < 1.0):
+            return None
+        phi = np.arctan2(q, p)
+        return q * ecc - phi, e_star, phi
+
+    def emission_times(self, t_obs_yr, state: OrbitState, extra: Mapping[str, Any],
+                       solve: Callable[[Any], KeplerBasis]) -> tuple[Array, KeplerBasis | None]:
+        """Emission epochs (Julian years) for the observed epochs ``t_obs_yr``, and the Keplerian basis there.
+
+        Returns ``(t_emit, basis)``; ``basis`` is None after the Newton
+        iterations (the caller then solves at ``t_emit``).
+        """
+        yr_per_au, n_obs, ecc, root, sigma, p, q, e_star = self._fold(state)
+        C, H = state.ch_au
+        t_obs = np.asarray(t_obs_yr, dtype=float)
         if np.size(e_star) and float(np.max(e_star)) < 1.0:
             phi = np.arctan2(q, p)
             mean_obs = state.mean_anomaly_ref + n_obs * (t_obs - state.t_ref_yr)
@@ -406,8 +454,25 @@ class RoemerTerm:
                               f"(error estimate {error * DAYS_PER_YEAR * 86400.0:.3g} s)")
 
 
+class _Apsidal:
+    """The in-plane rotation shared by the precession terms: ``delta = (Delta omega / 2 pi) (nu - nu_ref)``.
+
+    A subclass gives ``precession_per_orbit(state, extra)`` (rad); the
+    rotation follows from it (:func:`_apsidal_rotation`), and so does its
+    fused form :meth:`apsidal_advance` (:class:`orbitmass.core.orbit.FusedOrbit`).
+    """
+
+    def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
+        """``(delta, d delta / dM)`` in rad, shape of the basis."""
+        return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
+
+    def apsidal_advance(self, state: OrbitState, extra: Mapping[str, Any]) -> Array:
+        """The advance per orbit (rad) of the rotation, per parameter set."""
+        return self.precession_per_orbit(state, extra)
+
+
 @dataclass(frozen=True)
-class PrecessionTerm:
+class PrecessionTerm(_Apsidal):
     """Schwarzschild precession of the periastron, scaled by ``precession_factor``.
 
     Per orbit the periastron advances by (Einstein 1915; Weinberg 1972,
@@ -446,13 +511,10 @@ class PrecessionTerm:
         return np.asarray(extra["precession_factor"], dtype=float) * schwarzschild_precession_per_orbit(
             _mass_msun(state), _semimajor_axis_au(state), state.ecc)
 
-    def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
-        """``(delta, d delta / dM)`` in rad, shape of the basis."""
-        return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
 
 
 @dataclass(frozen=True)
-class ExtendedMassTerm:
+class ExtendedMassTerm(_Apsidal):
     """An extended mass: a Plummer sphere of fixed scale radius around the central body.
 
     Its mass is ``extended_mass_fraction`` times the central mass; the scale
@@ -507,13 +569,10 @@ class ExtendedMassTerm:
         return plummer_precession_per_orbit(_mass_msun(state), _semimajor_axis_au(state), state.ecc,
                                             extra["extended_mass_fraction"], self.scale_au(state))
 
-    def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
-        """``(delta, d delta / dM)`` in rad, shape of the basis."""
-        return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
 
 
 @dataclass(frozen=True)
-class CombinedPrecession:
+class CombinedPrecession(_Apsidal):
     """Several periastron precessions (e.g. Schwarzschild and an extended mass) as one in-plane rotation.
 
     Each part is a term with ``precession_per_orbit(state, extra)`` applied
@@ -540,9 +599,6 @@ class CombinedPrecession:
             total = total + part.precession_per_orbit(state, extra)
         return total
 
-    def plane_rotation(self, state: OrbitState, basis: KeplerBasis, extra: Mapping[str, Any]):
-        """``(delta, d delta / dM)`` in rad, shape of the basis."""
-        return _apsidal_rotation(self.precession_per_orbit(state, extra), state, basis)
 
 
 # ----------------------------------------------------------------------------- building the terms

@@ -17,9 +17,10 @@ from pathlib import Path
 import numpy as np
 
 from orbitmass.model.likelihood import predict_system
+from orbitmass.outputs.figures.common import TIME_LABEL
 from orbitmass.outputs.style import PALETTE, figure_size, save_figure, style_context
 
-__all__ = ["relativity_comparison", "residual_figure"]
+__all__ = ["relativity_comparison", "relativity_figure", "residual_figure"]
 
 log = logging.getLogger(__name__)
 
@@ -79,7 +80,17 @@ def _redshift_curve(results, companion: str, t_grid):
 
 def residual_figure(rel_results, kepler_results, companion: str, dest_without_suffix, *,
                     periastron_jyr: float, half_width_yr: float = 2.0) -> list[Path]:
-    """Velocity residuals around periastron under both models (PNG and PDF).
+    """:func:`relativity_figure` written as PNG and PDF to ``dest_without_suffix``; the paths written."""
+    fig = relativity_figure(rel_results, kepler_results, companion, periastron_jyr=periastron_jyr,
+                            half_width_yr=half_width_yr)
+    written = save_figure(fig, dest_without_suffix)
+    log.info("wrote %s", ", ".join(str(p) for p in written))
+    return written
+
+
+def relativity_figure(rel_results, kepler_results, companion: str, *, periastron_jyr: float,
+                      half_width_yr: float = 2.0):
+    """Velocity residuals around periastron under both models (a :class:`matplotlib.figure.Figure`).
 
     Top: residuals of the line-of-sight velocities (data minus the
     posterior-mean model, instrument offsets removed) of the Keplerian and
@@ -88,7 +99,8 @@ def residual_figure(rel_results, kepler_results, companion: str, dest_without_su
     curves (Keplerian minus relativistic) on a fine grid, and the redshift term
     of the relativistic fit (its model minus the same with the factor at 0):
     the Keplerian fit absorbs most of that term by changing the orbit, which is
-    what biases its mass and distance.
+    what biases its mass and distance. The dotted line marks the periastron
+    epoch ``periastron_jyr``.
     """
     from matplotlib.figure import Figure  # start-up time: matplotlib only when the figure is drawn
     from matplotlib.ticker import MaxNLocator  # start-up time
@@ -107,8 +119,8 @@ def residual_figure(rel_results, kepler_results, companion: str, dest_without_su
                     ms=3.5, lw=0.8, label="Keplerian orbit")
         ax.errorbar(t[near] + 0.02, res_rel[near], yerr=err[near], fmt="o", color=PALETTE["blue"], ms=3.5,
                     lw=0.8, label="with redshift, precession, Rømer delay")
-        ax.axvline(periastron_jyr, color=PALETTE["black"], lw=0.5, ls=":")
-        ax.set_ylabel("velocity residual (km s$^{-1}$)")
+        ax.axvline(periastron_jyr, color=PALETTE["black"], lw=0.5, ls=":", label="periastron")
+        ax.set_ylabel("velocity O − C [km s$^{-1}$]")
         ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=1, borderaxespad=0.2)
         ax2.axhline(0.0, color=PALETTE["black"], lw=0.6)
         ax2.plot(t_grid, curve_kep - curve_rel, color=PALETTE["bluish_green"], lw=1.2,
@@ -117,12 +129,12 @@ def residual_figure(rel_results, kepler_results, companion: str, dest_without_su
         if redshift is not None:
             ax2.plot(t_grid, redshift, color=PALETTE["orange"], lw=1.2, ls="--",
                      label="redshift term (relativistic fit)")
+        lo, hi = ax2.get_ylim()
+        ax2.set_ylim(lo, hi + 0.55 * (hi - lo))  # room for the legend above the curves
         ax2.legend(loc="upper left", fontsize=7)
         ax2.axvline(periastron_jyr, color=PALETTE["black"], lw=0.5, ls=":")
-        ax2.set_ylabel("velocity (km s$^{-1}$)")
-        ax2.set_xlabel("epoch (Julian year)")
+        ax2.set_ylabel("velocity [km s$^{-1}$]")
+        ax2.set_xlabel(TIME_LABEL)
         ax2.set_xlim(t_grid[0], t_grid[-1])
         ax2.xaxis.set_major_locator(MaxNLocator(5))
-        written = save_figure(fig, dest_without_suffix)
-    log.info("wrote %s", ", ".join(str(p) for p in written))
-    return written
+    return fig

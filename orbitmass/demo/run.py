@@ -21,7 +21,7 @@ from orbitmass.demo.scenarios import DEMO_REFERENCE, SCENARIOS, write_comparison
 from orbitmass.demo.simulate import TrueOrbit
 from orbitmass.fit import Fit
 
-__all__ = ["SCENARIOS", "write_scenarios", "run_demo", "DemoResult", "demo_comparison"]
+__all__ = ["SCENARIOS", "write_scenarios", "run_demo", "DemoResult", "demo_comparison", "record_truth"]
 
 log = logging.getLogger(__name__)
 
@@ -67,8 +67,9 @@ def run_demo(out_dir: Path, *, seed: int = 1, overwrite: bool = False, progress:
         if name == "quillon-joint":
             continue  # an example file for the README; the demo's joint fit is the comparison's refit
         fit = Fit(seed=seed, progress=progress, max_steps=max_steps).fit(path)
-        run_dir = fit.save(out_dir / "runs" / name, overwrite=True)
         truth = SCENARIOS["quillon" if name == "quillon-joint" else name]
+        record_truth(fit, truth)
+        run_dir = fit.save(out_dir / "runs" / name, overwrite=True)
         relativity = _keplerian_counterpart(fit, path, out_dir, seed, progress, max_steps) \
             if name == "quillon" else None
         results.append(DemoResult(name=name, run_dir=run_dir, truth=truth, summary=fit.summary,
@@ -79,9 +80,31 @@ def run_demo(out_dir: Path, *, seed: int = 1, overwrite: bool = False, progress:
     return results
 
 
+def record_truth(fit: Fit, truth: TrueOrbit) -> dict[str, float]:
+    """Put the invented true values into ``fit.results.info["truth"]`` (sample columns, stored units).
+
+    The figures draw them (truth lines of the corner figure) and the run folder keeps them
+    (``posterior.h5``). The elements are those of the scenario's first companion.
+    """
+    name = fit.results.target.companions[0].name
+    known = {"mass_msun": truth.mass_msun, "distance_pc": truth.distance_pc,
+             "parallax_mas": 1000.0 / truth.distance_pc,
+             f"{name}.period_yr": truth.period_yr, f"{name}.eccentricity": truth.eccentricity,
+             f"{name}.inclination_deg": truth.inclination_deg,
+             f"{name}.arg_periastron_deg": truth.arg_periastron_deg,
+             f"{name}.ascending_node_deg": truth.ascending_node_deg,
+             f"{name}.periastron_time_jyr": truth.periastron_time,
+             f"{name}.semimajor_axis_mas": truth.semimajor_axis_mas,
+             f"{name}.semimajor_axis_au": truth.semimajor_axis_au}
+    columns = set(fit.results.samples.columns)
+    fit.results.info["truth"] = {k: float(v) for k, v in known.items() if k in columns}
+    return fit.results.info["truth"]
+
+
 def _keplerian_counterpart(fit: Fit, path: Path, out_dir: Path, seed: int, progress, max_steps: int) -> dict:
     """Fit the black-hole star's data with Keplerian orbits too; compare, and draw the residual figure."""
     kepler = Fit(seed=seed, progress=progress, max_steps=max_steps).fit(path.parent / "target-kepler.toml")
+    record_truth(kepler, SCENARIOS["quillon"])
     kepler.save(out_dir / "runs" / "quillon-kepler", overwrite=True)
     info = relativity_comparison(fit.summary, kepler.summary)
     info["figure"] = [str(p) for p in residual_figure(

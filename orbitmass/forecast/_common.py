@@ -129,18 +129,23 @@ def epoch_grid(start: float, stop: float, step_yr: float, *, key: str = "--from/
 
 
 def jyear_to_iso(t_jyear: ArrayLike) -> list[str]:
-    """ISO UTC dates (``YYYY-MM-DD``) of Julian-year epochs, for tables meant for people."""
+    """ISO UTC dates (``YYYY-MM-DD``) of Julian-year epochs, for tables meant for people.
+
+    The date is the UTC day nearest the epoch (rounded, not truncated: J2022.0
+    is 2021-12-31T23:58:51 UTC, shown as 2022-01-01).
+    """
     from astropy.time import Time  # start-up time: loaded only when needed
 
     t = np.atleast_1d(np.asarray(t_jyear, dtype=float))
-    out = []
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        for v in t:
-            if not math.isfinite(v):
-                out.append("")
-                continue
-            out.append(Time(v, format="jyear", scale="tdb").utc.iso[:10])
+    out = [""] * t.size
+    ok = np.flatnonzero(np.isfinite(t))
+    if ok.size:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            utc = Time(t[ok], format="jyear", scale="tdb").utc
+            days = Time(np.floor(utc.mjd + 0.5), format="mjd", scale="utc").iso
+        for k, text in zip(ok, np.atleast_1d(days)):
+            out[k] = str(text)[:10]
     return out
 
 

@@ -23,20 +23,34 @@ numbers are relative uncertainties for the former.
    the offset of the assumed instrument when it is sampled) for a velocity.
    With the measurement covariance ``N`` (``sigma_pos^2`` per coordinate;
    ``sigma_v^2 + jitter^2`` with the posterior-median jitter of the assumed
-   instrument), the Fisher information averaged over the posterior draws is
-   ``F(t) = mean_s J_s' N^-1 J_s`` (a Bayesian, "pre-posterior" average of the
-   design information).
-3. *Expected posterior.* The new measurement's information is combined with
-   the current posterior as for Gaussians: ``C(t) = (R^-1 + F(t))^-1``, and
-   the expected posterior variance of ``f`` is ``g' C(t) g``. The expected
-   shrinkage factor of its sd is ``sqrt(g' C g / g' R g)``; the expected
-   reduction ``1 - factor`` (in %) is what the table ranks.
-4. *Sets of epochs.* Greedy: start from ``R^-1``, add the ``F`` of the
-   measurement with the largest reduction per unit cost, repeat ``K`` times
+   instrument), the Fisher information of the measurement if draw ``s`` were
+   the truth is ``F_s(t) = J_s' N^-1 J_s``.
+3. *Expected posterior.* Each draw's information is combined with the
+   current posterior as for Gaussians: ``C_s(t) = (R^-1 + F_s(t))^-1``; the
+   expected posterior variance of ``f`` is the average over the draws,
+   ``V(t) = mean_s g' C_s(t) g`` (a Bayesian, "pre-posterior" expectation).
+   Averaging the variances, not the information, matters where the draws
+   disagree on the sign of a derivative: the two mirror orientations of an
+   astrometric orbit give velocities of opposite sign, and an averaged
+   information matrix would then see two independent measurements where
+   there is one. The expected shrinkage factor of the sd is
+   ``sqrt(V / g' R g)``; the expected reduction ``1 - factor`` (in %) is what
+   the table ranks.
+4. *Sets of epochs.* Greedy: start from ``R^-1``, add (per draw) the ``F_s``
+   of the measurement with the largest reduction per unit cost, repeat ``K`` times
    (each epoch at most once per kind and companion). Greedy selection of an
    information (D/A-optimal-like) criterion is standard practice in
    experimental design (common practice, no source). The same is computed for
    ``K`` evenly spaced epochs in the window, as a yardstick.
+
+Velocity zero point: in a run with velocities the systemic velocity (``vz0``
+in the absolute frame) and the assumed instrument's offset are sampled
+variables (or fixed by the user, hence known) and enter ``J`` as above. A run
+without velocities has no such variable, yet a first velocity's zero point is
+unknown: it is added as one more variable with the default systemic-velocity
+prior (sd ``NEW_LEVEL_SD_KMS``), shared by all new velocities, so a single
+velocity carries almost no information on the scale and sets of velocities
+gain from differences between phases.
 
 Kinds of measurement are planned separately (a position, i.e. an east/north
 pair of the companion; a velocity of the companion), each with its own cost
@@ -63,6 +77,7 @@ from typing import Any, Mapping, Sequence
 import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
+from matplotlib.ticker import FuncFormatter
 from numpy.typing import ArrayLike, NDArray
 
 from orbitmass.exceptions import InputError
@@ -89,12 +104,18 @@ log = logging.getLogger(__name__)
 KINDS = ("positions", "velocities")
 #: relative finite-difference step, in posterior sd of each sampled variable
 FD_STEP = 1e-3
+#: prior sd (km/s) of the unknown zero point of new velocities in a run without velocities: the
+#: default systemic-velocity prior, uniform over +-1000 km/s (input format), sd = 2000 / sqrt(12)
+NEW_LEVEL_SD_KMS = 2000.0 / math.sqrt(12.0)
+#: memory for the per-draw information matrices (bytes); beyond it fewer draws are used
+MAX_FISHER_BYTES = 1e8
 _LOG_SUFFIXES = ("mass_msun", "distance_pc", "parallax_mas", "schwarzschild_radius_au", ".period_yr",
                  ".period_obs_yr", ".semimajor_axis_mas", ".semimajor_axis_au", ".periastron_au",
                  ".periastron_rs", ".periastron_speed_kms", ".semi_amplitude_kms")
 _ALIASES = {"mass": "mass_msun", "distance": "distance_pc", "parallax": "parallax_mas"}
 _ONE = {"positions": "position", "velocities": "velocity"}
 _SYMBOL = {"mass_msun": "M", "distance_pc": "D", "parallax_mas": "parallax"}
+_WORDS = {"mass_msun": "total mass", "distance_pc": "distance", "parallax_mas": "parallax"}
 
 
 def resolve_quantity(results: Results, name: str) -> str:
@@ -168,7 +189,8 @@ class Plan:
         One row per candidate epoch and companion, ranked (column ``rank``):
         ``epoch_jyear``, ``date_utc``, ``companion``, per kind
         ``<kind>_sd_after`` (expected sd of ``f``) and
-        ``<kind>_reduction_pct``, ``<kind>_reduction_per_cost``;
+        ``<kind>_reduction_pct``, ``<kind>_reduction_per_cost`` and
+        ``<kind>_rank`` (the candidates ranked for that kind alone);
         ``best_kind`` (the kind that pays more per unit cost),
         ``best_reduction_pct``, ``orbital_phase`` (fraction of the period
         since periastron, reference orbit) and ``nearest_event``.
@@ -180,7 +202,9 @@ class Plan:
     events : list
         Periastron passages and velocity extrema in the window.
     options : dict
-        Inputs (precisions, costs, draws, instrument, seed, window).
+        Inputs (precisions, costs, draws, instrument, seed, window) and
+        ``reference_orbit`` (period and periastron time per companion of the
+        highest-posterior draw, which the phases refer to).
     """
 
     quantity: str
@@ -203,14 +227,20 @@ class Plan:
     def markdown(self, figure: str | None = "plan.png") -> str:
         """Short plain-language recommendation (Markdown)."""
         o = self.options
-        unit = "relative (sd of ln)" if self.log_scale else "sd"
         rel = (lambda s: f"{100 * s:.2g} %") if self.log_scale else (lambda s: f"{s:.3g}")
+        what_q = _WORDS.get(self.quantity, self.quantity)
+        if self.log_scale:
+            now = (f"its relative uncertainty (the sd of {self.label} over the posterior) is now "
+                   f"{rel(self.sd_now)}")
+        else:
+            now = f"its posterior sd is now {rel(self.sd_now)}"
         lines = [f"# Observing plan: {self.target}", ""]
-        lines.append(f"Goal: shrink the uncertainty of **{self.quantity}** ({unit} now {rel(self.sd_now)}). "
+        lines.append(f"Goal: shrink the uncertainty of the {what_q} (`{self.quantity}`): {now}. "
                      f"Candidate epochs {o['window'][0]:.3f} to {o['window'][1]:.3f} every {o['cadence_yr']:.4g} yr; "
                      f"a new position measured to {o['precision_mas']:g} mas per coordinate, a new velocity to "
                      f"{o['velocity_precision_kms']:g} km/s"
-                     + (f" (instrument {o['instrument']}, jitter {o['jitter_kms']:.3g} km/s added)"
+                     + (f" (instrument {o['instrument']}; its posterior-median jitter, {o['jitter_kms']:.3g} km/s, "
+                        "added in quadrature)"
                         if o.get("instrument") else "")
                      + f"; costs: positions {o['costs']['positions']:g}, velocities {o['costs']['velocities']:g}.")
         lines.append("")
@@ -218,7 +248,7 @@ class Plan:
         lines.append(f"**Best single measurement:** a {_ONE[best['best_kind']]} of {best['companion']} at "
                      f"{best['epoch_jyear']:.3f} ({best['date_utc']}){_event_text(best['nearest_event'])}: the "
                      f"uncertainty is expected to shrink by {best['best_reduction_pct']:.1f} % "
-                     f"(to {rel(best[best['best_kind'] + '_sd_after'])}).")
+                     f"(from {rel(self.sd_now)} to {rel(best[best['best_kind'] + '_sd_after'])}).")
         n = len(self.table)
         n_pos = int((self.table["best_kind"] == "positions").sum())
         lines.append("")
@@ -226,6 +256,9 @@ class Plan:
         top_vel = self.table["velocities_reduction_pct"].max()
         lines.append(f"Per unit cost, positions pay more at {n_pos} of {n} candidate epochs and velocities at "
                      f"{n - n_pos}. Largest single gains: positions {top_pos:.1f} %, velocities {top_vel:.1f} %.")
+        lines.append("")
+        lines.append(f"Best sets of {o['max_epochs']} measurements (chosen one at a time, each adding the largest "
+                     "further reduction; reductions are of the uncertainty now):")
         lines.append("")
         for name in ("mixed", "positions", "velocities"):
             s = self.sets[self.sets["set"] == name]
@@ -249,16 +282,26 @@ class Plan:
         if figure:
             lines.append(f"![Expected uncertainty reduction against date]({figure})")
             lines.append("")
-        lines.append("Method: Fisher information of the new measurement (model derivatives by finite differences "
-                     f"through the orbit model, for {o['n_draws']} posterior draws) averaged over the draws and "
-                     "combined with the current posterior covariance in the sampled variables; the number is the "
+        lines.append(f"Method: for each of {o['n_draws']} posterior draws, the Fisher information of the new "
+                     "measurement "
+                     "(model derivatives by finite differences through the orbit model) is combined with the "
+                     "current posterior covariance in the sampled variables, and the resulting posterior "
+                     "variances are averaged over the draws; the number is the "
                      f"expected posterior sd of {self.label} after adding the measurement. It is a linearised "
                      "expectation: gains from resolving a multimodal posterior (a period alias, or the orientation "
-                     "ambiguity a first velocity removes) are not counted, and on a short arc it is approximate.")
+                     "ambiguity a first velocity removes) are not counted. On a short arc (no periastron seen, "
+                     "a small part of the period covered) the posterior is far from Gaussian and the numbers "
+                     "are rough, and the dates of the events they point to are themselves uncertain: check "
+                     "them with `orbitmass predict`, and refit and plan again after each new measurement.")
         if not o.get("run_has_velocities"):
             lines.append("")
             lines.append("This run has no velocities: a first velocity also fixes which way the orbit is "
                          "oriented along the line of sight, a gain this estimate does not include.")
+            if o.get("velocity_zero_point_sd_kms"):
+                lines.append(f"The zero point of new velocities (the systemic velocity) is unknown and counted as "
+                             f"one more free variable (prior sd {o['velocity_zero_point_sd_kms']:.0f} km/s, the "
+                             "default systemic-velocity prior): a single velocity then says almost nothing about "
+                             "the orbit's scale; the velocity sets need at least two epochs at different phases.")
         return "\n".join(lines) + "\n"
 
     # ----------------------------------------------------------------- figure
@@ -296,11 +339,14 @@ class Plan:
                     ax.plot([r.epoch_jyear], [y[f"{r.kind}_reduction_pct"].iloc[0]], marker="o", ms=5, mfc="none",
                             color=colours[r.kind], lw=0)
                     ax.annotate(str(r.step), (r.epoch_jyear, y[f"{r.kind}_reduction_pct"].iloc[0]),
-                                textcoords="offset points", xytext=(3, 4), fontsize=7)
-            ax.plot([], [], marker="o", mfc="none", color="black", lw=0, label="greedy set (order)")
+                                textcoords="offset points", xytext=(4 if r.step % 2 else -9, 4), fontsize=7)
+            ax.plot([], [], marker="o", mfc="none", color="black", lw=0,
+                    label=f"best {len(mixed)} (any kind), in order;\n{mixed['reduction_pct'].iloc[-1]:.1f} % together"
+                    if len(mixed) else "best set")
             ax.set_ylabel(f"expected reduction of\nsd({self.label}) (%)")
             ax.set_ylim(bottom=0)
             ax.set_title(f"{self.target}: one more measurement", loc="left")
+            _phase_axis(ax, self.options.get("reference_orbit", {}))
             for a in axes[:, 0]:
                 _mark_events(a, self.events, label=a is ax)
             ax.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7)
@@ -339,6 +385,20 @@ class Plan:
 
 def _event_text(ev: str) -> str:
     return f", {ev}" if ev else ""
+
+
+def _phase_axis(ax, ref_orbit: Mapping[str, Mapping[str, float]]) -> None:
+    """Orbital phase of the first companion (reference orbit; 0 = periastron) on the top axis."""
+    if not ref_orbit:
+        return
+    name, orb = next(iter(ref_orbit.items()))
+    per, tp = float(orb["period_obs_yr"]), float(orb["periastron_jyear"])
+    if not (math.isfinite(per) and per > 0 and math.isfinite(tp)):
+        return
+    top = ax.secondary_xaxis("top", functions=(lambda t: (t - tp) / per, lambda ph: tp + ph * per))
+    top.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v % 1.0:.2f}".rstrip("0").rstrip(".")))
+    top.set_xlabel(f"orbital phase of {name} (0 = periastron, reference orbit)", fontsize=8)
+    top.tick_params(labelsize=7)
 
 
 def _mark_events(ax, events, *, label: bool) -> None:
@@ -392,6 +452,11 @@ def _jacobians(results, rows, mean, sd, companion, epochs, kind, offset_index):
     if kind == "velocities" and offset_index is not None:
         J[..., 0, offset_index] += sd[offset_index]
     return J
+
+
+def _draw_mean_var(P_base: NDArray, F: NDArray, g: NDArray) -> NDArray:
+    """Mean over the draw axis (second to last of the stack) of g' (P_base + F_s)^-1 g."""
+    return _expected_var(P_base, F, g).mean(axis=-1)
 
 
 def _expected_var(P_base: NDArray, F: NDArray, g: NDArray) -> NDArray:
@@ -483,6 +548,16 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
         raise InputError(f"{col} does not vary with the sampled variables; nothing to plan", key="--for")
     P = np.linalg.inv(R + 1e-12 * np.eye(R.shape[0]))
     rows = results.draws(n_draws, np.random.default_rng(seed))
+    # one information matrix per draw, epoch, kind and companion is kept: fewer draws for very many epochs
+    per_draw = 8.0 * t.size * (R.shape[0] + 1) ** 2 * len(KINDS) * len(names)
+    rows = rows[:max(10, min(len(rows), int(MAX_FISHER_BYTES // per_draw)))]
+    run_has_velocities = any(cc.has_velocities for cc in results.target.companions)
+    # A run without velocities has no velocity zero point among its variables (no systemic velocity,
+    # no offset), yet the zero point of a first velocity is unknown: it joins the variables as one more,
+    # with the default prior of the systemic velocity, so that one velocity alone says little about the
+    # scale and two at different phases say more (their difference).
+    level_sd = NEW_LEVEL_SD_KMS if (not run_has_velocities and offset_index is None
+                                    and not any(k in space.index for k in ("systemic", "vz0"))) else None
 
     # Fisher information per candidate (kind, companion): (n_epochs, d, d)
     fisher: dict[tuple[str, str], NDArray] = {}
@@ -492,15 +567,23 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
             Fs = []
             for lo in range(0, t.size, chunk):
                 J = _jacobians(results, rows, mean, sd, c, t[lo:lo + chunk], kind, offset_index)
+                if level_sd is not None:  # d model / d z_level: level_sd for a velocity, 0 for a position
+                    J = np.concatenate([J, np.full(J.shape[:-1] + (1,), level_sd if kind == "velocities" else 0.0)],
+                                       axis=-1)
                 w = 1.0 / (precision_mas ** 2 if kind == "positions" else var_v)
                 good = np.all(np.isfinite(J), axis=(1, 2, 3))
                 if not good.any():
                     raise InputError(f"the model of {c} gives no finite derivatives; cannot plan", key="run")
-                Fs.append(w * np.einsum("snoi,snoj->nij", J[good], J[good]) / good.sum())
-            fisher[(kind, c)] = np.concatenate(Fs, axis=0)
+                J[~good] = 0.0  # a draw without a finite model there gains nothing from the measurement
+                Fs.append(w * np.einsum("snoi,snoj->nsij", J, J))
+            fisher[(kind, c)] = np.concatenate(Fs, axis=0)  # (n_epochs, n_draws, d, d): one per draw
+    if level_sd is not None:  # the zero point's prior, in its standardised variable: precision 1
+        d0 = P.shape[0]
+        P = np.block([[P, np.zeros((d0, 1))], [np.zeros((1, d0)), np.ones((1, 1))]])
+        g = np.append(g, 0.0)
 
     def factor(F):
-        return np.sqrt(np.clip(_expected_var(P, F, g), 0, None) / var_lin)
+        return np.sqrt(np.clip(_draw_mean_var(P, F, g), 0, None) / var_lin)
 
     # reference orbit: phase and events
     t_lo, t_hi = float(t.min()), float(t.max())
@@ -508,9 +591,11 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
     rows_out = []
 
     ref = reference_row(results)
+    ref_orbit: dict[str, dict] = {}
     for c in names:
         per = float(results.samples[period_obs_column(results, c)].iloc[ref])
         tp = float(results.samples[f"{c}.periastron_time_jyr"].iloc[ref])
+        ref_orbit[c] = {"period_obs_yr": per, "periastron_jyear": tp}
         phase = ((t - tp) / per) % 1.0
         rec: dict[str, Any] = {"epoch_jyear": t, "date_utc": jyear_to_iso(t), "companion": [c] * t.size,
                                "orbital_phase": phase}
@@ -540,6 +625,11 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
     table["_score"] = np.maximum(table["positions_reduction_per_cost"], table["velocities_reduction_per_cost"])
     table = table.sort_values("_score", ascending=False, kind="stable").drop(columns="_score").reset_index(drop=True)
     table.insert(0, "rank", np.arange(1, len(table) + 1))
+    for kind in KINDS:  # each kind ranked on its own, by its reduction per unit cost (1 = best)
+        order = np.argsort(-table[f"{kind}_reduction_per_cost"].to_numpy(), kind="stable")
+        ranks = np.empty(len(table), dtype=int)
+        ranks[order] = np.arange(1, len(table) + 1)
+        table.insert(table.columns.get_loc(f"{kind}_reduction_per_cost") + 1, f"{kind}_rank", ranks)
 
     sets = _greedy_sets(fisher, P, g, var_lin, sd_now, t, names, cost, max_epochs)
     curves = _context_curves(results, t, names, seed)
@@ -548,15 +638,18 @@ def plan(results: Results, epochs: ArrayLike, *, quantity: str = "mass", precisi
                "velocity_precision_kms": float(velocity_precision_kms), "costs": cost, "max_epochs": int(max_epochs),
                "n_draws": int(len(rows)), "seed": int(seed), "instrument": inst, "jitter_kms": jitter,
                "companions": names, "sd_linearised": math.sqrt(var_lin),
-               "run_has_velocities": any(cc.has_velocities for cc in results.target.companions)}
+               "run_has_velocities": run_has_velocities,
+               "velocity_zero_point_sd_kms": level_sd,
+               "reference_orbit": ref_orbit}
     return Plan(quantity=col, log_scale=log_scale, sd_now=sd_now, table=table, sets=sets, events=events,
                 options=options, target=results.target.name, curves=curves)
 
 
 def _greedy_sets(fisher, P, g, var_lin, sd_now, t, names, cost, K) -> pd.DataFrame:
     out = []
+    n_s = next(iter(fisher.values())).shape[1]
     for set_name, kinds in (("mixed", KINDS), ("positions", ("positions",)), ("velocities", ("velocities",))):
-        info = np.zeros_like(P)
+        info = np.zeros((n_s,) + P.shape)  # information gathered so far, per draw
         used: set = set()
         total = 0.0
         fac_now = 1.0
@@ -565,7 +658,7 @@ def _greedy_sets(fisher, P, g, var_lin, sd_now, t, names, cost, K) -> pd.DataFra
             for kind in kinds:
                 for c in names:
                     F = fisher[(kind, c)]
-                    fac = np.sqrt(np.clip(_expected_var(P, info[None] + F, g), 0, None) / var_lin)
+                    fac = np.sqrt(np.clip(_draw_mean_var(P, info[None] + F, g), 0, None) / var_lin)
                     gain = (1 - fac / fac_now) / (cost[kind] if set_name == "mixed" else 1.0)
                     for i in np.argsort(-gain):
                         if (kind, c, i) not in used:
@@ -585,11 +678,11 @@ def _greedy_sets(fisher, P, g, var_lin, sd_now, t, names, cost, K) -> pd.DataFra
     # yardstick: K evenly spaced epochs across the window (first companion)
     idx = np.unique(np.round(np.linspace(0, t.size - 1, K)).astype(int)) if K > 1 else np.array([t.size // 2])
     for kind in KINDS:
-        info = np.zeros_like(P)
+        info = np.zeros((n_s,) + P.shape)
         total = 0.0
         for step, i in enumerate(idx, start=1):
             info = info + fisher[(kind, names[0])][i]
-            fac = float(np.sqrt(max(_expected_var(P, info[None], g)[0], 0.0) / var_lin))
+            fac = float(np.sqrt(max(float(_draw_mean_var(P, info, g)), 0.0) / var_lin))
             total += cost[kind]
             out.append({"set": f"even-{kind}", "step": step, "epoch_jyear": float(t[i]),
                         "date_utc": jyear_to_iso(t[i])[0], "companion": names[0], "kind": kind, "cost": cost[kind],

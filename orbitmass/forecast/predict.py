@@ -373,7 +373,7 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
                 ax.errorbar(east, north, xerr=se, yerr=sn, fmt="o", ms=2.5, color=blue, lw=0.6, zorder=5,
                             label="positions measured")
             if results.target.frame == "relative":
-                ax.plot([0], [0], marker="+", color="black", ms=7, zorder=6)
+                ax.plot([0], [0], marker="+", color="black", ms=7, lw=0, zorder=6, label="central body")
             ax.set_xlabel("east offset (mas)")
             ax.set_ylabel("north offset (mas)")
             ax.set_aspect("equal", adjustable="datalim")

@@ -63,15 +63,18 @@ from orbitmass.core.orbit import TWO_PI, kepler_basis
 from orbitmass.core.physics import mass_msun as kepler_mass
 from orbitmass.inference.search import search_data_from_posterior, search_orbit, split_levels
 from orbitmass.model.likelihood import LogPosterior
-from orbitmass.model.parameters import AngleWindows
+from orbitmass.model.parameters import AngleWindows, ReferenceState, StatePosterior
 from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["initialise_walkers", "InitialSolution", "period_grid", "polish", "hessian_covariance",
-           "Interrupted"]
+           "Interrupted", "reference_state_companions", "ARC_FRACTION", "elements_chain"]
 
 log = logging.getLogger(__name__)
 #: Most grid points x epochs per chunk of the linear search (bounds memory; a stop request is checked per chunk).
 CHUNK_ELEMENTS = 2_000_000
+#: A companion whose data span less than this fraction of its period (at the initial mode) is sampled in its
+#: state at the reference epoch (:class:`~orbitmass.model.parameters.ReferenceState`) when it qualifies.
+ARC_FRACTION = 0.5
 
 
 @dataclass
@@ -92,6 +95,8 @@ class InitialSolution:
     windows: AngleWindows | None = None
     interrupted: bool = False
     seconds: dict[str, float] = field(default_factory=dict)
+    state: ReferenceState | None = None
+    state_walkers: NDArray[np.float64] | None = None
 
 
 class Interrupted(Exception):
@@ -578,12 +583,24 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
                 continue
             others.append({"delta_log_posterior": float(best_val - val), "period_yr": periods})
     clock.append(time.perf_counter())
+    state, state_walkers = None, None
     if interrupted:  # keep the stop prompt: no Hessian, one round of draws about the best point
         cov = np.diag((0.01 * np.maximum(1.0, np.abs(best))) ** 2)
         walkers = _scatter(final, best, cov, n_walkers, rng, max_tries=1)
     else:
-        cov = hessian_covariance(final, best)
-        walkers = _scatter(final, best, cov, n_walkers, rng)
+        arcs = reference_state_companions(final.space, best) if start is None else []
+        if arcs:
+            # partial arcs: walkers (and the sampler) in the reference state of those companions
+            state = ReferenceState(final.space, arcs)
+            post_u = StatePosterior(final, state)
+            u_best, _ = polish(post_u, state.to_state(best[None, :])[0], max_evals, stop_flag)
+            state_walkers = _scatter(post_u, u_best, hessian_covariance(post_u, u_best), n_walkers, rng)
+            walkers = state.to_elements(state_walkers)[0]
+            log.info("sampling %s in the state at the reference epoch (data span < %.2f of the period)",
+                     ", ".join(arcs), ARC_FRACTION)
+        else:
+            cov = hessian_covariance(final, best)
+            walkers = _scatter(final, best, cov, n_walkers, rng)
     clock.append(time.perf_counter())
     seconds = dict(zip(("search", "polish", "walkers"), np.diff(clock).tolist()))
     log.info("initialised at log posterior %.3f (%d grid points, %d competing modes%s); search %.2f s, "
@@ -591,7 +608,39 @@ def initialise_walkers(post: LogPosterior, n_walkers: int, rng: np.random.Genera
              seconds["search"], seconds["polish"], seconds["walkers"])
     return InitialSolution(walkers=walkers, best=best, best_log_post=float(best_val),
                            other_modes=others, n_grid=n_grid, windows=windows, interrupted=interrupted,
-                           seconds=seconds)
+                           seconds=seconds, state=state, state_walkers=state_walkers)
+
+
+def reference_state_companions(space, best: NDArray[np.float64], fraction: float = ARC_FRACTION) -> list[str]:
+    """Companions to sample in their reference state: eligible, and seen over less than ``fraction`` of the orbit.
+
+    The rule: the span of a companion's epochs (positions and velocities)
+    divided by its observed period at the initial mode ``best`` is below
+    ``fraction`` (:data:`ARC_FRACTION`), and the companion qualifies for
+    :class:`~orbitmass.model.parameters.ReferenceState` (free eccentricity,
+    period, own plane and phase; no redshift).
+    """
+    phys = space.unpack(np.atleast_2d(best))
+    out = []
+    for name in ReferenceState.eligible(space):
+        comp = space.companion(name)
+        t = [np.asarray(comp.astrometry.t_yr, float)] if comp.astrometry is not None else []
+        if comp.velocities is not None:
+            t.append(np.asarray(comp.velocities.t_yr, float))
+        t_all = np.concatenate(t) if t else np.zeros(1)
+        if float(np.ptp(t_all)) < fraction * float(phys[f"{name}.period_obs_yr"][0]):
+            out.append(name)
+    return out
+
+
+def elements_chain(state: ReferenceState, chain: NDArray[np.float64]) -> tuple[NDArray, NDArray]:
+    """A chain of state vectors (..., n_dim) as element vectors (wrapped into the space's windows).
+
+    Returns the element chain and log |d theta / d u| of every sample (shape ``chain.shape[:-1]``):
+    the element-space log posterior is the sampled one minus it.
+    """
+    theta, log_jac = state.to_elements(chain.reshape(-1, chain.shape[-1]))
+    return theta.reshape(chain.shape), log_jac.reshape(chain.shape[:-1])
 
 
 def _combo_values(space, searches, combo) -> dict:

@@ -9,7 +9,9 @@
   weights are poor or it fails;
 * the normal path: the initial search (:mod:`orbitmass.inference.initialise`)
   and the ensemble sampler (:mod:`orbitmass.inference.sampler`) on every
-  element, with a checkpoint when a path is given, or continuing the chain of
+  element (with ``SamplerOptions(blocked=True)`` and several companions,
+  block moves per companion and for the shared parameters beside the
+  full-dimensional ones: :func:`block_posteriors`), with a checkpoint when a path is given, or continuing the chain of
   a checkpoint (``resume``).
 
 The angle windows are explicit: the initial search returns them, the sampled
@@ -28,23 +30,24 @@ import math
 import time
 from pathlib import Path
 
+import emcee
 import numpy as np
 
 from orbitmass.core.cosmology import redshift_distance_pc
 from orbitmass.core.relativity import model_terms
 from orbitmass.exceptions import InputError
-from orbitmass.inference.initialise import initialise_walkers
+from orbitmass.inference.initialise import elements_chain, initialise_walkers
 from orbitmass.inference.linear import LinearPathError, applies, fit_linear
 from orbitmass.inference.quality import quality_or_failure
-from orbitmass.inference.sampler import SamplerOptions, run_sampler
+from orbitmass.inference.sampler import SamplerOptions, assess, parameter_blocks, run_sampler
 from orbitmass.inference.summary import build_summary
 from orbitmass.io.checkpoint import backend_from_checkpoint, load_checkpoint, save_checkpoint
 from orbitmass.model.data import Target
 from orbitmass.model.likelihood import LogPosterior
-from orbitmass.model.parameters import AngleWindows, ParameterSpace
+from orbitmass.model.parameters import AngleWindows, ParameterSpace, ReferenceState, StatePosterior
 from orbitmass.results import Results, derive_samples
 
-__all__ = ["build_space", "resolve_seed", "run_fit", "ResumedInit"]
+__all__ = ["build_space", "block_posteriors", "resolve_seed", "run_fit", "ResumedInit"]
 
 log = logging.getLogger(__name__)
 
@@ -116,6 +119,38 @@ def _scattered_start(post, kepler_space, kepler, n_walkers, rng, stop_flag):
     init.other_modes = kepler.other_modes
     init.interrupted = init.interrupted or kepler.interrupted
     return init
+
+
+def block_posteriors(post: LogPosterior):
+    """Blocks of the block moves and, per block, the part of the posterior it changes.
+
+    A companion's block changes only the prior and the likelihood of that
+    companion's own rows when no companion pulls the central body (no
+    sampled or fixed mass ratio: every other row is independent of its
+    elements); that part is a :class:`LogPosterior` over the same space with
+    only those rows. The shared block, and every block when some companion
+    has a mass ratio, is scored by the whole posterior (None).
+
+    Returns
+    -------
+    (blocks, partial) : lists, or (None, None) with a single companion
+    """
+    space = post.space
+    found = parameter_blocks(space, owners=True)
+    if found is None:
+        return None, None
+    blocks, owners = found
+    if any(lay.has_q for lay in space.companions):
+        return blocks, None
+    partial = []
+    for name in owners:
+        if name is None:
+            partial.append(None)
+            continue
+        astro = {name: post.astrometry[name]} if name in post.astrometry else {}
+        vel = {name: post.velocities[name]} if name in post.velocities else {}
+        partial.append(LogPosterior(space, blocks=(astro, vel), fused=post.fused))
+    return blocks, partial
 
 
 def resolve_seed(seed: int | None) -> int:
@@ -231,14 +266,19 @@ def _sampler_path(target, space, rng, options, seed, n_walkers, max_periods, ckp
         init = ResumedInit(meta)
     else:
         init = _initialise(post, n_walkers, rng, max_periods, stop_flag)
-        p0 = init.walkers
+        state = getattr(init, "state", None)
+        p0 = init.walkers if state is None else init.state_walkers
         windows = init.windows
         meta = {"seed": int(seed), "data_sha256": target.data_sha256, "names": space.names,
                 "windows": windows.as_dict(),
                 "init_best_log_posterior": init.best_log_post, "other_modes": init.other_modes,
-                "n_grid": init.n_grid, "elapsed_seconds": 0.0}
+                "n_grid": init.n_grid, "elapsed_seconds": 0.0,
+                "reference_state": [] if state is None else list(state.companions)}
     space = space.with_windows(windows)
     post = post.with_space(space)
+    # partial arcs: the chain is in the reference state of some companions (inference.initialise)
+    state = ReferenceState(space, meta["reference_state"]) if meta.get("reference_state") else None
+    sampled = post if state is None else StatePosterior(post, state)
     elapsed_before = float(meta.get("elapsed_seconds", 0.0))
     checkpoint_fn = None
     if ckpt_path is not None:
@@ -246,8 +286,32 @@ def _sampler_path(target, space, rng, options, seed, n_walkers, max_periods, ckp
             meta["elapsed_seconds"] = elapsed_before + time.perf_counter() - t0
             save_checkpoint(ckpt_path, b, meta)
 
-    run = run_sampler(post, p0, seed=int(rng.integers(2**31 - 1)), options=options,
-                      backend=backend, stop_flag=stop_flag, checkpoint=checkpoint_fn)
+    # block moves (opt-in) act on the element posterior; a reference-state chain uses the plain moves
+    blocks, partial = block_posteriors(post) if options.blocked and state is None else (None, None)
+    if backend is None:  # kept, so that a reference-state chain can be continued (below)
+        backend = emcee.backends.Backend()
+    run = run_sampler(sampled, p0, seed=int(rng.integers(2**31 - 1)), options=options,
+                      backend=backend, stop_flag=stop_flag, checkpoint=checkpoint_fn,
+                      blocks=blocks, partial=partial)
+    state_diag = None
+    while state is not None:  # back to the elements; diagnostics of both, converged only if both pass
+        chain, log_jac = elements_chain(state, run.chain)
+        verdict = assess(chain, options)
+        if verdict["converged"] or not run.converged or run.interrupted or run.n_steps >= options.max_steps:
+            break
+        # the sampled chain passes, the element chain not yet: continue the same chain a little
+        seconds, n_eval = run.sampling_seconds, run.n_evaluations
+        run = run_sampler(sampled, None, seed=0, options=options, backend=backend, stop_flag=stop_flag,
+                          checkpoint=checkpoint_fn)
+        run.sampling_seconds += seconds
+        run.n_evaluations += n_eval
+    if state is not None:
+        state_diag = {"companions": list(state.companions), "names": state.names,
+                      "rhat_max": float(np.nanmax(run.rhat)), "ess_min": float(np.min(run.ess))}
+        run.chain, run.log_prob = chain, run.log_prob - log_jac  # the element-space log posterior
+        run.burn = max(run.burn, verdict["burn"])
+        run.tau, run.ess, run.rhat = verdict["tau"], verdict["ess"], verdict["rhat"]
+        run.converged = bool(run.converged and verdict["converged"])
     if init.interrupted:
         run.interrupted = True
         run.converged = False
@@ -255,6 +319,8 @@ def _sampler_path(target, space, rng, options, seed, n_walkers, max_periods, ckp
     samples = derive_samples(space, theta, lp)
     wall = time.perf_counter() - t0 + elapsed_before
     summary = build_summary(target, space, samples, run, init, seed, wall)
+    if state_diag is not None:
+        summary["diagnostics"]["reference_state"] = state_diag
     info = {"init_best_log_posterior": init.best_log_post, "n_grid": init.n_grid,
             "n_evaluations": run.n_evaluations}
     summary["fit_quality"], info["residuals"] = quality_or_failure(space, theta, lp, seed=seed,

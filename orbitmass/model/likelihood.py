@@ -27,19 +27,25 @@ Two evaluation paths
 :meth:`LogPosterior.log_likelihood_reference` is the plain path: every orbit
 through :func:`~orbitmass.core.orbit.evaluate` and :func:`predict_system`,
 the same code predictions and figures use. It is the reference, and it is
-what runs whenever the space has model terms.
+what runs when a model term of the space lacks the fused form of one of its
+hooks (:meth:`orbitmass.core.orbit.FusedOrbit.supports`), or when a fused
+form declines for the parameter sets of a call (the Roemer delay's folded
+Kepler equation for an eccentricity within ~v/c of 1).
 
-Without model terms :meth:`LogPosterior.log_likelihood` takes the fused path
-(:class:`_FusedPlan`): the same model, evaluated with the Keplerian formulas
-of :mod:`orbitmass.core.orbit` written out so that each companion's Kepler
-equation is solved once on the union of all epochs where its orbit is needed
-(positions and velocities taken at the same epoch share one solve), positions,
-velocities and residuals are computed in place in work arrays kept between
-calls (one set per block size; they are dropped when the posterior is
+Otherwise :meth:`LogPosterior.log_likelihood` takes the fused path
+(:class:`_FusedPlan`): the same model, with each companion's orbit evaluated
+by :class:`~orbitmass.core.orbit.FusedOrbit` (the Keplerian formulas and the
+terms of :mod:`orbitmass.core.relativity` written out in place) so that its
+Kepler equation is solved once on the union of all epochs where its orbit is
+needed (positions and velocities taken at the same epoch share one solve),
+positions, velocities and residuals are computed in place in work arrays kept
+between calls (one set per block size; they are dropped when the posterior is
 pickled and are never returned), and the weighted sums of squares are
 matrix-vector products. Constant parts (the normalisation of rows whose
 jitter is fixed, their inverse variances) are computed once. The two paths
-agree to round-off (``tests/test_likelihood_fast.py``: 1e-12 relative).
+agree to round-off (``tests/model/test_likelihood_fast.py``: 1e-12 relative
+without terms; ``tests/model/test_likelihood_terms_fused.py``: 1e-10 with
+every combination of terms).
 """
 
 from __future__ import annotations
@@ -50,11 +56,9 @@ from typing import Mapping
 import numpy as np
 from numpy.typing import NDArray
 
-from orbitmass.core.kepler import kepler_cos_sin_rows, rows_work
-from orbitmass.core.orbit import TWO_PI, OrbitState, evaluate, thiele_innes
+from orbitmass.core.orbit import FusedOrbit, OrbitState, evaluate, thiele_innes
 from orbitmass.core.physics import semimajor_axis_au
 from orbitmass.model.parameters import ParameterSpace
-from orbitmass.units import KMS_PER_AU_PER_YR
 
 __all__ = ["LogPosterior", "AstrometryBlock", "VelocityBlock", "data_blocks", "orbit_states", "predict_system"]
 
@@ -231,7 +235,14 @@ def predict_system(space: ParameterSpace, phys, name, *, t_astro=None, t_vel=Non
     tv = None if t_vel is None else np.asarray(t_vel, dtype=float)
     n_a = 0 if ta is None else ta.shape[-1]
     n_v = 0 if tv is None else tv.shape[-1]
-    if n_a and n_v and ta.ndim == tv.ndim == 1:  # one Kepler solve for both kinds of epoch
+    # positions and velocities at the same epochs (a model curve): one Kepler solve per companion
+    same = n_a > 0 and ta.shape == getattr(tv, "shape", None) and np.array_equal(ta, tv)
+    others = {j: evaluate(states[j], ta, positions=absolute, terms=terms, extra=extra)
+              for j in reflex if j != name} if same else {}
+    if same:
+        own_a = evaluate(states[name], ta, terms=terms, extra=extra)
+        own_v = own_a["vz_kms"]
+    elif n_a and n_v and ta.ndim == tv.ndim == 1:  # one Kepler solve for both kinds of epoch
         both = evaluate(states[name], np.concatenate([ta, tv]), terms=terms, extra=extra)
         own_a = {k: both[k][:, :n_a] for k in ("east_mas", "north_mas")}
         own_v = both["vz_kms"][:, n_a:]
@@ -247,8 +258,8 @@ def predict_system(space: ParameterSpace, phys, name, *, t_astro=None, t_vel=Non
             north = north + phys["y0"][:, None] + phys["vy0"][:, None] * dt
             for j in reflex:
                 f = (phys[f"{j}.q"] / (1.0 + phys[f"{j}.q"]))[:, None]
-                rj = own_a if j == name else evaluate(states[j], ta, velocities=False, terms=terms,
-                                                      extra=extra)
+                rj = own_a if j == name else others.get(j) or evaluate(states[j], ta, velocities=False,
+                                                                        terms=terms, extra=extra)
                 east = east - f * rj["east_mas"]
                 north = north - f * rj["north_mas"]
         out["east_mas"], out["north_mas"] = east, north
@@ -257,8 +268,8 @@ def predict_system(space: ParameterSpace, phys, name, *, t_astro=None, t_vel=Non
         v = own_v * comp_mask
         for j in reflex:
             f = (phys[f"{j}.q"] / (1.0 + phys[f"{j}.q"]))[:, None]
-            vj = own_v if j == name else evaluate(states[j], tv, positions=False, terms=terms,
-                                                  extra=extra)["vz_kms"]
+            vj = own_v if j == name else (others.get(j) or evaluate(states[j], tv, positions=False, terms=terms,
+                                                                    extra=extra))["vz_kms"]
             v = v - f * vj
         base = phys["vz0"] if absolute else phys["systemic"]
         out["rv_kms"] = v + base[:, None]
@@ -276,8 +287,8 @@ class LogPosterior:
     blocks : tuple, optional
         ``(astrometry, velocities)`` blocks to reuse (see :meth:`with_space`).
     fused : bool
-        Use the fused Keplerian path when the space has no model terms
-        (default); False always takes :meth:`log_likelihood_reference`.
+        Use the fused path when every model term of the space has its fused
+        forms (default); False always takes :meth:`log_likelihood_reference`.
 
     Attributes
     ----------
@@ -300,7 +311,7 @@ class LogPosterior:
         self.reflex = [lay.name for lay in space.companions if lay.has_q]
         self.companion_names = [c.name for c in space.target.companions]
         self.n_sets = 0
-        self.fused = bool(fused) and not space.terms
+        self.fused = bool(fused) and FusedOrbit.supports(space.terms)
         self._plan = _FusedPlan(self) if self.fused else None
 
     def __getstate__(self):
@@ -344,14 +355,18 @@ class LogPosterior:
     def log_likelihood(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
         """Log-likelihood of every row of ``theta`` (n_sets, n_dim) -> (n_sets,).
 
-        The fused path when the space has no model terms, else
+        The fused path when the space's model terms allow it, else
         :meth:`log_likelihood_reference` (module docstring).
         """
         if self._plan is None:
             return self.log_likelihood_reference(theta)
         theta = np.atleast_2d(theta)
+        phys = self.space.unpack(theta)
+        ll = self._plan.evaluate(phys, self.space.term_values(phys))
+        if ll is None:
+            return self.log_likelihood_reference(theta)
         self.n_sets += theta.shape[0]
-        return self._plan.evaluate(self.space.unpack(theta))
+        return ll
 
     def log_likelihood_reference(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
         """Log-likelihood by the plain path (:func:`predict_system`), the reference of the fused one."""
@@ -416,6 +431,7 @@ class _FusedPlan:
         self.union = {j: np.unique(np.concatenate(ts)) for j, ts in need.items()}
         self.dt = {j: t - self.t_ref for j, t in self.union.items()}
         self.need_vel = {j: need_vel.get(j, False) for j in self.union}
+        self.kernels = {j: FusedOrbit(self.dt[j], space.terms, velocities=self.need_vel[j]) for j in self.union}
 
         def columns(j, t):
             u = self.union[j]
@@ -454,10 +470,8 @@ class _FusedPlan:
             if len(self._work) > 8:
                 self._work.clear()
             work = {}
-            for j, t in self.union.items():
-                m = t.size
-                arrs = [np.empty((n, m)) for _ in range(5 if self.need_vel[j] else 4)]
-                work[j] = (arrs, rows_work(n, m))
+            for j, kernel in self.kernels.items():
+                work[j] = kernel.work(n)
             for k, (_, ab, _, _, _) in enumerate(self.astro):
                 work[("a", k)] = [np.empty((n, ab.t.size)) for _ in range(5)]
             for k, (_, vb, _, _) in enumerate(self.vel):
@@ -465,43 +479,34 @@ class _FusedPlan:
             self._work[n] = work
         return work
 
-    def evaluate(self, phys: Mapping[str, NDArray[np.float64]]) -> NDArray[np.float64]:
-        """Log-likelihood of unpacked quantities ``phys`` (arrays of shape (n_sets,))."""
+    def evaluate(self, phys: Mapping[str, NDArray[np.float64]], extra: Mapping[str, NDArray[np.float64]]
+                 ) -> NDArray[np.float64] | None:
+        """Log-likelihood of unpacked quantities ``phys`` (arrays of shape (n_sets,)), ``extra`` the term values.
+
+        None when a model term's fused form declines for these parameter sets
+        (the caller then takes the reference path).
+        """
         n = phys["mass_msun"].shape[0]
         work = self._buffers(n)
         mass = phys["mass_msun"]
         dist = phys["distance_pc"]
         orbit = {}
-        for j, dt in self.union.items():
-            (cos_e, sin_e, x, y, *rest), kwork = work[j]
+        for j, kernel in self.kernels.items():
             period = phys[f"{j}.period_yr"]
-            ecc = phys[f"{j}.ecc"][:, None]
-            np.multiply((TWO_PI / phys[f"{j}.period_obs_yr"])[:, None], self.dt[j], out=x)
-            np.add(x, phys[f"{j}.m0"][:, None], out=x)  # mean anomaly
-            kepler_cos_sin_rows(x, ecc, cos_e, sin_e, kwork)
-            root = np.sqrt(1.0 - ecc * ecc)
-            np.subtract(cos_e, ecc, out=x)  # X
-            np.multiply(sin_e, root, out=y)  # Y
             a_au = semimajor_axis_au(mass, period)
             omega = phys[f"{j}.omega"]
             node = phys[f"{j}.node"]
             ti = thiele_innes(1.0, phys[f"{j}.cos_i"], phys[f"{j}.sin_i"], np.cos(omega), np.sin(omega),
                               np.cos(node), np.sin(node))
-            entry = {"x": x, "y": y, "ti_mas": [c * (a_au / dist * 1000.0) for c in ti[:4]]}
-            if self.need_vel[j]:
-                u = rest[0]
-                # v_z = n_rest (C dX/dM + H dY/dM) = n_rest a (H sqrt(1-e^2) cos E - C sin E) / (1 - e cos E)
-                rate = (TWO_PI * KMS_PER_AU_PER_YR / period) * a_au
-                hc = (rate * ti[5])[:, None] * root
-                cs = (rate * ti[4])[:, None]
-                np.multiply(cos_e, hc, out=u)
-                np.multiply(sin_e, cs, out=sin_e)
-                np.subtract(u, sin_e, out=u)
-                np.multiply(cos_e, ecc, out=cos_e)
-                np.subtract(1.0, cos_e, out=cos_e)
-                np.divide(u, cos_e, out=u)
-                entry["vz"] = u
-            orbit[j] = entry
+            state = OrbitState(period_rest_yr=period[:, None], period_obs_yr=phys[f"{j}.period_obs_yr"][:, None],
+                               ecc=phys[f"{j}.ecc"][:, None], mean_anomaly_ref=phys[f"{j}.m0"][:, None],
+                               t_ref_yr=self.t_ref, ch_au=((a_au * ti[4])[:, None], (a_au * ti[5])[:, None]),
+                               mass_msun=mass[:, None], a_au=a_au[:, None], distance_pc=dist[:, None])
+            res = kernel(state, extra, work[j])
+            if res is None:  # a term's fused form declines for these sets
+                return None
+            orbit[j] = {"x": res[0], "y": res[1], "vz": res[2],
+                        "ti_mas": [c * (a_au / dist * 1000.0) for c in ti[:4]]}
         ll = np.zeros(n)
         for k, (name, ab, users, dt, diagonal) in enumerate(self.astro):
             east, north, gx, gy, tmp = work[("a", k)]

@@ -66,12 +66,14 @@ from typing import Mapping, Sequence
 import numpy as np
 from numpy.typing import NDArray
 
+from orbitmass.core.kepler import kepler_cos_sin
 from orbitmass.core.physics import semimajor_axis_au
 from orbitmass.exceptions import InputError
 from orbitmass.model.data import Companion, Target
 from orbitmass.model.priors import Isotropic, LogUniform, Prior, Uniform
+from orbitmass.units import GM_SUN_AU3_PER_YR2, KMS_PER_AU_PER_YR
 
-__all__ = ["Variable", "AngleWindows", "ParameterSpace", "priors_used"]
+__all__ = ["Variable", "AngleWindows", "ParameterSpace", "priors_used", "ReferenceState", "StatePosterior"]
 
 TWO_PI = 2.0 * math.pi
 LN2 = math.log(2.0)
@@ -911,3 +913,262 @@ def priors_used(space) -> list[dict[str, str]]:
             out.append({"parameter": f"{comp.name} plane",
                         "prior": f"shares inclination and node with plane {comp.plane!r}"})
     return out
+
+
+class ReferenceState:
+    """Sample some companions in their state at the reference epoch instead of their elements.
+
+    For a companion that the data follow over a small fraction of its orbit,
+    the elements (ln P, sqrt(e) cos w, sqrt(e) sin w, cos i, Omega, lambda) are
+    strongly and non-linearly correlated, while what the data measure is nearly
+    linear: the sky position and motion at the reference epoch (and the
+    line-of-sight velocity where there are velocities). The six element
+    columns of such a companion are replaced, in place and in this order, by
+
+    ``north_mas, east_mas`` (sky position relative to the central body),
+    ``depth_asinh`` = asinh(z / rho) (z the line-of-sight depth, +z away from
+    the observer, as an angle at the distance; rho the sky separation),
+    ``vnorth_mas_yr, veast_mas_yr`` (sky motion) and ``vz_atanh`` =
+    atanh(vz / vz_max), vz_max = sqrt(2 GM / r - v_sky^2) the largest
+    line-of-sight speed of a bound orbit at that place (for a companion
+    without velocities; with velocities it is ``vz_kms``, the measured
+    quantity, because vz_max grows with the distance and the scaled variable
+    would tie the distance to it). The two last
+    transforms take away the heavy tail of the depth and the hard wall of
+    the escape speed, which the arc leaves unconstrained; they are triangular
+    (z depends on the sky position and zeta, vz on eta and the others) and add
+    log r (mas) + log(vz_max) - 2 log cosh(eta) to the log-Jacobian.
+
+    Every other column is the same as in the element space. The map to the
+    elements is the classical inversion of a bound Kepler orbit (specific
+    angular momentum, eccentricity vector, Kepler's equation); states of
+    unbound orbits have no elements and get log density -inf.
+
+    Jacobian (exact). With mass and distance held fixed, the Delaunay
+    variables (M, omega, Omega, L, G, H), L = sqrt(mu a), G = L sqrt(1 - e^2),
+    H = G cos i, are canonical, so d^3r d^3v = dM dw dW dL dG dH (Goldstein,
+    Classical Mechanics, canonical transformations preserve phase volume)
+    = (1/2) mu^(3/2) a^(1/2) e da de dcos(i) dw dW dM. With
+    da = (2/3) a dln P, dh dk = (1/2) de dw and dlambda dw = dM dw,
+    d^3r d^3v = (2/3) mu^(3/2) a^(3/2) e dlnP dh dk dcos(i) dW dlambda; the
+    sky units add (1000/d)^5 (five coordinates in mas or mas/yr) and
+    ``KMS_PER_AU_PER_YR`` (vz in km/s). The density of the state variables is
+    the element-space posterior times |d theta / d (r, v)| =
+    1 / [(2/3) mu^(3/2) a^(3/2) e (1000/d)^5 K], times the factors of the
+    depth and vz transforms below; mass and distance columns
+    are common to both spaces, so the whole Jacobian is this block product.
+    Checked against a finite-difference determinant in
+    ``tests/inference/test_reference_state.py``.
+
+    When the mass is sampled, its column is replaced by the log acceleration
+    scale ln(GM / r^3) of the first such companion (r its distance from the
+    central body in au at the reference epoch): on an arc the curvature
+    measures GM / r^3, not M; ln M = ln(GM/r^3) + 3 ln r - ln G Msun is
+    triangular in the other variables with unit diagonal, so it adds nothing
+    to the Jacobian.
+
+    Without velocities, a state and its mirror (z, vz) -> (-z, -vz) have the
+    same elements up to (omega, Omega) -> (omega + pi, Omega + pi), which the
+    half-turn node window identifies; both copies map to the same wrapped
+    element vector with the same Jacobian, so sampling either (or both)
+    gives the element-space posterior.
+
+    Only companions with an eccentricity vector, free period, their own free
+    plane (cos i and node sampled, not shared) and a sampled mean longitude
+    qualify (:meth:`eligible`), and only without redshift time dilation.
+    """
+
+    STATE_NAMES = ("north_mas", "east_mas", "depth_asinh", "vnorth_mas_yr", "veast_mas_yr", "vz_atanh")
+
+    def __init__(self, space: ParameterSpace, names: Sequence[str]):
+        self.space = space
+        self.companions = tuple(names)
+        self.cols: dict[str, NDArray[np.intp]] = {}
+        # vz as atanh(vz / vz_max) only without velocities: with them vz (km/s) is what is measured, and
+        # vz_max grows with the distance, so the scaled variable would tie the distance to it
+        self.vz_scaled = {name: not space.companion(name).has_velocities for name in self.companions}
+        for name in self.companions:
+            if name not in self.eligible(space):
+                raise ValueError(f"companion {name!r} cannot be sampled in its reference state")
+            lay = next(l for l in space.companions if l.name == name)
+            info = space.planes[lay.plane]
+            self.cols[name] = np.array([lay.idx["ln_period"], lay.idx["h"], lay.idx["k"], info["i_var"],
+                                        info["node_var"], lay.idx["lambda"]], dtype=np.intp)
+        self.names = list(space.names)
+        for name, cols in self.cols.items():
+            for j, sname in zip(cols, self.STATE_NAMES):
+                self.names[j] = f"{name}.{sname if sname != 'vz_atanh' or self.vz_scaled[name] else 'vz_kms'}"
+        # the mass column becomes ln(GM / r^3) of the first companion (yr^-2, r its 3-D distance in au): the
+        # acceleration the arc's curvature measures
+        self.accel_col = space.index.get("ln_mass")
+        if self.accel_col is not None and self.companions:
+            self.names[self.accel_col] = f"{self.companions[0]}.ln_accel"
+        self.ndim = space.ndim
+
+    @staticmethod
+    def eligible(space: ParameterSpace) -> list[str]:
+        """Companions whose six element columns can be replaced by a reference state."""
+        if space.one_plus_z != 1.0:
+            return []
+        out = []
+        for lay in space.companions:
+            info = space.planes[lay.plane]
+            if (lay.ecc_mode == "vector" and lay.idx.get("ln_period", -1) >= 0 and not lay.phase_from_tp
+                    and lay.idx.get("lambda", -1) >= 0 and len(info["members"]) == 1
+                    and info["i_var"] is not None and info["node_var"] is not None):
+                out.append(lay.name)
+        return out
+
+    # ------------------------------------------------------------------ maps
+    def _mu_d(self, theta_or_u):
+        """GM (au^3/yr^2) and distance (pc) per row; the columns are common to both spaces."""
+        with np.errstate(over="ignore", invalid="ignore"):  # state columns read as elements: unused
+            phys = self.space.unpack(theta_or_u)
+        return GM_SUN_AU3_PER_YR2 * phys["mass_msun"], phys["distance_pc"], phys
+
+    def to_state(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+        """State vectors ``u`` from element vectors ``theta`` (rows)."""
+        theta = np.atleast_2d(np.asarray(theta, dtype=float))
+        u = theta.copy()
+        mu, d, phys = self._mu_d(theta)
+        first = True
+        for name, cols in self.cols.items():
+            e = phys[f"{name}.ecc"]
+            w = phys[f"{name}.omega"]
+            cos_i = phys[f"{name}.cos_i"]
+            sin_i = phys[f"{name}.sin_i"]
+            node = phys[f"{name}.node"]
+            period = phys[f"{name}.period_yr"]
+            a = np.cbrt(mu * period ** 2 / (4.0 * math.pi ** 2))
+            cw, sw, cW, sW = np.cos(w), np.sin(w), np.cos(node), np.sin(node)
+            p_vec = np.stack([cw * cW - sw * sW * cos_i, cw * sW + sw * cW * cos_i, sw * sin_i])
+            q_vec = np.stack([-sw * cW - cw * sW * cos_i, -sw * sW + cw * cW * cos_i, cw * sin_i])
+            cE, sE = kepler_cos_sin(phys[f"{name}.m0"], e)
+            root = np.sqrt(1.0 - e * e)
+            X, Y = cE - e, root * sE
+            inv = 1.0 / (1.0 - e * cE)
+            dX, dY = -sE * inv, root * cE * inv
+            n = TWO_PI / period
+            r = a * (X * p_vec + Y * q_vec)  # au, (north, east, z)
+            v = a * n * (dX * p_vec + dY * q_vec)  # au/yr
+            s = 1000.0 / d
+            u[:, cols[0]], u[:, cols[1]] = r[0] * s, r[1] * s
+            u[:, cols[2]] = np.arcsinh(r[2] / np.hypot(r[0], r[1]))
+            u[:, cols[3]], u[:, cols[4]] = v[0] * s, v[1] * s
+            if self.vz_scaled[name]:
+                v_max = np.sqrt(2.0 * mu / np.sqrt(np.sum(r * r, axis=0)) - v[0] ** 2 - v[1] ** 2)
+                u[:, cols[5]] = np.arctanh(v[2] / v_max)
+            else:
+                u[:, cols[5]] = v[2] * KMS_PER_AU_PER_YR
+            if first and self.accel_col is not None:
+                u[:, self.accel_col] = np.log(mu) - 1.5 * np.log(np.sum(r * r, axis=0))
+            first = False
+        return u
+
+    def to_elements(self, u: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+        """Element vectors (wrapped into the space's windows) and log |d theta / d u| per row.
+
+        Rows whose state is not a bound orbit (or is degenerate: e = 0, h = 0)
+        get NaN elements and a log Jacobian of -inf.
+        """
+        u = np.atleast_2d(np.asarray(u, dtype=float))
+        theta = u.copy()
+        mu, d, _ = self._mu_d(u)
+        s = d / 1000.0
+        log_jac = np.zeros(u.shape[0])
+        bad = np.zeros(u.shape[0], dtype=bool)
+        depth = {}
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            for name, cols in self.cols.items():  # z = rho sinh(zeta): dz / dzeta = rho cosh(zeta) = r
+                rho = np.hypot(u[:, cols[0]], u[:, cols[1]])
+                depth[name] = (rho * np.sinh(u[:, cols[2]]), rho * np.cosh(u[:, cols[2]]))
+                log_jac += np.log(depth[name][1])
+            if self.accel_col is not None:  # GM = (GM / r^3) r^3 with the first companion's r
+                r_au = depth[self.companions[0]][1] * s
+                mu = np.exp(u[:, self.accel_col]) * r_au ** 3
+                theta[:, self.accel_col] = np.log(mu / GM_SUN_AU3_PER_YR2)
+            for name, cols in self.cols.items():
+                z_mas, r_mas = depth[name]
+                r = np.stack([u[:, cols[0]] * s, u[:, cols[1]] * s, z_mas * s])
+                rn = r_mas * s
+                # vz = v_max tanh(eta), v_max the largest |vz| of a bound orbit: dvz / deta = v_max / cosh^2
+                if self.vz_scaled[name]:
+                    v_max = np.sqrt(2.0 * mu / rn - (u[:, cols[3]] ** 2 + u[:, cols[4]] ** 2) * s * s)
+                    eta = u[:, cols[5]]
+                    vz = v_max * np.tanh(eta)
+                    log_jac += np.log(v_max * KMS_PER_AU_PER_YR) - 2.0 * (np.logaddexp(eta, -eta) - LN2)
+                else:
+                    vz = u[:, cols[5]] / KMS_PER_AU_PER_YR
+                v = np.stack([u[:, cols[3]] * s, u[:, cols[4]] * s, vz])
+                v2 = np.sum(v * v, axis=0)
+                energy = 0.5 * v2 - mu / rn
+                a = -mu / (2.0 * energy)
+                h = np.cross(r, v, axis=0)
+                hn = np.sqrt(np.sum(h * h, axis=0))
+                rv = np.sum(r * v, axis=0)
+                evec = np.cross(v, h, axis=0) / mu - r / rn
+                e = np.sqrt(np.sum(evec * evec, axis=0))
+                W = h / hn
+                p_vec = evec / e
+                q_vec = np.cross(W, p_vec, axis=0)
+                cos_i = W[2]
+                node = np.arctan2(W[0], -W[1])
+                omega = np.arctan2(p_vec[2], q_vec[2])
+                cE = (1.0 - rn / a) / e
+                sE = rv / (e * np.sqrt(mu * a))
+                E = np.arctan2(sE, cE)
+                m0 = E - e * np.sin(E)
+                period = TWO_PI * np.sqrt(a ** 3 / mu)
+                ok = (energy < 0.0) & (e > 0.0) & (e < 1.0) & (hn > 0.0) & np.isfinite(period)
+                bad |= ~ok
+                se = np.sqrt(e)
+                theta[:, cols[0]] = np.log(period)
+                theta[:, cols[1]] = se * np.cos(omega)
+                theta[:, cols[2]] = se * np.sin(omega)
+                theta[:, cols[3]] = cos_i
+                theta[:, cols[4]] = node
+                theta[:, cols[5]] = m0 + omega
+                log_jac -= (math.log(2.0 / 3.0) + 1.5 * np.log(mu * a) + np.log(e)
+                            - 5.0 * np.log(s) + math.log(KMS_PER_AU_PER_YR))
+        theta[bad] = np.nan
+        log_jac[bad] = -np.inf
+        good = ~bad
+        if good.any():
+            theta[good] = self.space.wrap_angles(theta[good])
+        return theta, log_jac
+
+    def wrap_angles(self, u: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Wrap the angle columns that remain elements; state columns are left as they are."""
+        u = np.atleast_2d(np.asarray(u, dtype=float))
+        if not self.cols:
+            return self.space.wrap_angles(u)
+        state_cols = np.concatenate(list(self.cols.values()))
+        out = self.space.wrap_angles(u)
+        out[:, state_cols] = u[:, state_cols]
+        return out
+
+
+class StatePosterior:
+    """The log posterior of an element-space posterior ``post`` in the variables of ``state`` (a ReferenceState).
+
+    ``log p_u(u) = log p_theta(theta(u)) + log |d theta / d u|``: the same
+    posterior, so the physical quantities follow the documented priors
+    exactly. ``space`` is the :class:`ReferenceState` (it has ``wrap_angles``
+    and ``ndim`` like a parameter space); ``n_sets`` counts evaluations.
+    """
+
+    def __init__(self, post, state: ReferenceState):
+        self.post = post
+        self.space = state
+        self.n_sets = 0
+
+    def __call__(self, u: NDArray[np.float64]) -> NDArray[np.float64]:
+        u = np.atleast_2d(u)
+        self.n_sets += u.shape[0]
+        theta, log_jac = self.space.to_elements(u)
+        out = np.full(u.shape[0], -np.inf)
+        ok = np.isfinite(log_jac)
+        if ok.any():
+            out[ok] = self.post(theta[ok]) + log_jac[ok]
+        out[~np.isfinite(out)] = -np.inf
+        return out

@@ -11,7 +11,7 @@ implement the four members, list the dimensionless keys in ``shape_keys``
 (bare numbers whatever the unit of the quantity), check the ranges of the
 values in ``validate``, and add it to :data:`FAMILIES` under the ``dist`` name
 used in target files. :func:`make_prior` builds any family from its keys and
-validates them; ``tests/test_priors.py`` holds the contract every family must
+validates them; ``tests/model/test_priors.py`` holds the contract every family must
 meet (normalised density, agreement with scipy.stats, draws that follow the
 density, support, description, validation).
 

@@ -16,7 +16,7 @@ Contract of a renderer
       runs figures first, so that reports can embed them.
 
     A name is registered once (:func:`register` raises on a second
-    registration); the contract test in ``tests/test_outputs_registry.py`` runs
+    registration); the contract test in ``tests/outputs/test_outputs.py`` runs
     over every registered renderer.
 
 Adding a format

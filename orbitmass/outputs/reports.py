@@ -40,6 +40,7 @@ import numpy as np
 from orbitmass.model.quantities import PHASE_NAME, Unit
 from orbitmass.model.quantities import QUANTITIES as _QUANTITIES
 from orbitmass.outputs.figures.captions import figure_caption
+from orbitmass.outputs.figures.trace import sampled_text
 from orbitmass.outputs.formatting import (
     Measurement,
     choose_exponent,
@@ -242,13 +243,17 @@ def _diagnostic_blocks(results: Results) -> list[Any]:
         blocks.append(_Warning(text + ". Check the corner and trace plots before quoting errors."))
     per = diag.get("per_parameter")
     if isinstance(per, Mapping) and per:
-        blocks.append(_Para("Per sampled variable (τ in steps):"))
+        note = ""
+        if any(str(n).endswith("mean_longitude") for n in per):  # the key of λ: say what it is
+            note = f"; mean_longitude is the key of λ, the {PHASE_NAME}"
+        blocks.append(_Para(f"Per sampled variable (τ in steps{note}):"))
         blocks.append(
             _Table(
-                ("Variable", "τ", "ESS", "R-hat"),
+                ("Variable", "Symbol", "τ", "ESS", "R-hat"),
                 tuple(
                     (
                         str(name),
+                        sampled_text(str(name)),
                         _fmt_num(d.get("tau"), ".1f"),
                         _fmt_num(d.get("ess"), ".0f"),
                         _fmt_num(d.get("rhat"), ".4f"),

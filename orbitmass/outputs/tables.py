@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from orbitmass.exceptions import InputError
-from orbitmass.model.quantities import QUANTITIES, UNITS, Unit, base_of
+from orbitmass.model.quantities import QUANTITIES, UNITS, Unit, base_of, display_unit
 from orbitmass.outputs.formatting import (
     Measurement,
     display_measurement,
@@ -367,16 +367,41 @@ def _prior_latex(text: str) -> str:
     return out
 
 
+#: prior rows whose bounds are shown in the display unit of the posterior: parameter -> (column, stored unit)
+_PRIOR_DISPLAY = {"distance": ("distance_pc", "pc"), "parallax": ("parallax_mas", "mas")}
+
+
+def _prior_in_display_unit(text: str, parameter: str, summary: Mapping) -> str:
+    """Distance and parallax bounds in the unit the results table uses (kpc, µas, ...)."""
+    if parameter not in _PRIOR_DISPLAY:
+        return text
+    column, stored = _PRIOR_DISPLAY[parameter]
+    block = (summary.get("derived") or {}).get(column)
+    if not isinstance(block, Mapping) or "median" not in block:
+        return text
+    unit = display_unit(column, float(block["median"]))[0].key
+    pattern = re.compile(rf"(?<![\w.])(-?\d+(?:\.\d+)?(?:e[+-]?\d+)?) {stored}\b")
+    return pattern.sub(lambda m: format_number(float(m.group(1)), digits=6, column=column, unit=unit), text)
+
+
 def priors(results: Results) -> list[dict[str, str]]:
-    """Every prior in force as recorded in ``summary.json`` (parameter, prior text for readers)."""
-    pri = (results.summary or {}).get("priors")
+    """Every prior in force as recorded in ``summary.json`` (parameter, prior text for readers).
+
+    Distance and parallax bounds are given in the display unit of the results
+    (e.g. kpc for a 46 kpc posterior); ``summary.json`` keeps the stored units.
+    """
+    summary = results.summary or {}
+    pri = summary.get("priors")
     if not isinstance(pri, list):
         return []
-    return [
-        {"parameter": str(p.get("parameter", "")), "prior": _tidy_prior(str(p.get("prior", "")))}
-        for p in pri
-        if isinstance(p, Mapping)
-    ]
+    out = []
+    for p in pri:
+        if not isinstance(p, Mapping):
+            continue
+        parameter = str(p.get("parameter", ""))
+        text = _prior_in_display_unit(str(p.get("prior", "")), parameter, summary)
+        out.append({"parameter": parameter, "prior": _tidy_prior(text)})
+    return out
 
 
 def ambiguous_companions(results: Results) -> list[str]:

@@ -1,6 +1,6 @@
-"""Unit tests of orbitmass.core.diagnostics that tests/test_diagnostics.py does not have.
+"""Unit tests of orbitmass.core.diagnostics that tests/core/test_diagnostics_ar1.py does not have.
 
-tests/test_diagnostics.py checks the estimators against AR(1) identities; this file checks
+tests/core/test_diagnostics_ar1.py checks the estimators against AR(1) identities; this file checks
 them against the reference implementations directly:
 - emcee ``autocorr.function_1d`` and ``autocorr.integrated_time`` (Foreman-Mackey et al. 2013,
   PASP 125, 306; Sokal 1997 window, c = 5);

@@ -1,6 +1,6 @@
-"""Additions to tests/test_physics.py for orbitmass.core.physics.
+"""Additions to tests/core/test_physics_published.py for orbitmass.core.physics.
 
-tests/test_physics.py covers every public function; what it lacks is Kepler's third law run
+tests/core/test_physics_published.py covers every public function; what it lacks is Kepler's third law run
 the other way (period -> semi-major axis) against the same external values, done here:
 - /work/shared/references.md "Constants": the period of a 1 au orbit about one nominal solar
   mass is 365.256898384 d (computed from IAU 2015 B3 GM_sun and the IAU 2012 au);

@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+from numpy.typing import NDArray
 
 from orbitmass.exceptions import InputError
 from orbitmass.outputs.figures.common import axis_label, display_scale, truth_of, varies
@@ -179,7 +180,8 @@ def corner_figure(
             contour_kwargs={"linewidths": 0.7},
         )
         if any(t is not None for t in truth_row):
-            opts.update(truths=truth_row, truth_color=PALETTE["vermillion"])
+            opts.update(truths=truth_row, truth_color=PALETTE["vermillion"],
+                        range=_ranges_with_truths(xs, truth_row))
         opts.update(corner_kwargs)
         fig = corner.corner(xs, fig=fig, **opts)
         width, height = fig.get_size_inches()
@@ -194,13 +196,13 @@ def corner_figure(
             axes[-1, i].xaxis.set_label_coords(0.5, -0.5 / panel_in)
             if i > 0:
                 axes[i, 0].yaxis.set_label_coords(-0.56 / panel_in, 0.5)
-        # no tick at a panel edge: the last label of one panel cannot touch the first of the next
+        # no tick near a panel edge: the last label of one panel cannot touch the first of the next
         for i in range(n):
             for j in range(i + 1):
                 ax = axes[i, j]
-                ax.xaxis.set_major_locator(MaxNLocator(3, prune="both"))
+                ax.xaxis.set_major_locator(_inner_ticks(ax.get_xlim(), MaxNLocator))
                 if j < i:
-                    ax.yaxis.set_major_locator(MaxNLocator(3, prune="both"))
+                    ax.yaxis.set_major_locator(_inner_ticks(ax.get_ylim(), MaxNLocator))
                 ax.tick_params(labelsize=7)
         for i in range(1, n):
             for lab in axes[i, 0].get_yticklabels():
@@ -223,6 +225,39 @@ def corner_figure(
             text = (note[0].upper() + note[1:]).replace(" %", "\u00a0%")
             fig.text(box.x1, box.y1, textwrap.fill(text, chars), ha="right", va="top", fontsize=7)
     return fig
+
+
+#: ticks keep this fraction of a panel's width clear at each edge (half a 7-pt label of a 1-inch panel)
+_EDGE_CLEAR = 0.12
+
+
+def _inner_ticks(limits: tuple[float, float], locator_class: Any) -> Any:
+    """Two or three round ticks inside the panel, none within :data:`_EDGE_CLEAR` of an edge."""
+    from matplotlib.ticker import FixedLocator  # start-up time: loaded only when needed
+
+    lo, hi = sorted(float(v) for v in limits)
+    inner_lo, inner_hi = lo + _EDGE_CLEAR * (hi - lo), hi - _EDGE_CLEAR * (hi - lo)
+    ticks: list[float] = []
+    for nbins in (3, 4, 5, 6):
+        ticks = [float(t) for t in locator_class(nbins).tick_values(lo, hi) if inner_lo <= t <= inner_hi]
+        if len(ticks) >= 2:
+            break
+    return FixedLocator(ticks[:3] if len(ticks) <= 3 else ticks[::2][:3])
+
+
+def _ranges_with_truths(xs: NDArray[np.float64], truth_row: Sequence[float | None]) -> list[tuple[float, float]]:
+    """Axis range of each column: the samples, widened to show a true value outside them clear of the edge."""
+    out = []
+    for i, t in enumerate(truth_row):
+        lo, hi = float(np.min(xs[:, i])), float(np.max(xs[:, i]))
+        if t is not None and np.isfinite(t):
+            near = 0.06 * (max(hi, t) - min(lo, t))  # a line this close to the edge reads as the frame
+            if t < lo + near:
+                lo = min(lo, t) - near
+            elif t > hi - near:
+                hi = max(hi, t) + near
+        out.append((lo, hi))
+    return out
 
 
 def caption(results: Results, params: Sequence[str] | None = None) -> str:

@@ -242,9 +242,20 @@ class _CompanionPanels:
             out["node_line"] = np.array([np.sin(np.radians(node)), np.cos(np.radians(node))])
         if self.tracks:
             te, tn = self.tracks[0]
-            k = len(te) // 5
-            out["motion"] = np.array([[te[k], tn[k]], [te[k + 3], tn[k + 3]]])
+            out["motion"] = self._arrow_step(np.asarray(te, float), np.asarray(tn, float))
         return out
+
+    def _arrow_step(self, te: NDArray[np.float64], tn: NDArray[np.float64]) -> NDArray[np.float64]:
+        """Two points of the track, three grid steps apart, where the track is farthest from
+        every measured position (so no data marker hides the arrow)."""
+        n = len(te)
+        ks = np.arange(n // 10, max(n // 10 + 1, n - n // 10 - 3))
+        ks = ks[ks + 3 < n]
+        ks = ks if ks.size else np.array([0])
+        gap = np.min(np.hypot(te[ks, None] - self.east[None, :], tn[ks, None] - self.north[None, :]), axis=1)
+        k = int(ks[np.argmax(gap)])  # tracks exist only with positions, so east/north are set
+        k1 = min(k + 3, n - 1)
+        return np.array([[te[k], tn[k]], [te[k1], tn[k1]]])
 
     def _orientation_marks(self, ax) -> None:
         f = self.factor
@@ -570,7 +581,8 @@ def caption(results: Results) -> str:
             "velocities are shown with the posterior-median instrument offsets removed. "
             "Lower panels: data minus the pointwise posterior-median model.")
     if results.target.frame == "absolute":
-        text += " Dashed vermillion line: the posterior-median track of the barycentre."
+        text += (" Dashed vermillion line: the posterior-median track of the barycentre over the "
+                 f"astrometric epochs; the + marks it at the reference epoch {results.space.t_ref:.2f}.")
     else:
         text += " The star marks the central body."
     return text

@@ -15,13 +15,13 @@ from typing import Any
 import numpy as np
 
 from orbitmass.exceptions import InputError
-from orbitmass.model.quantities import PHASE_NAME
-from orbitmass.outputs.figures.common import mpl_text
+from orbitmass.model.quantities import PHASE_NAME, QUANTITIES
+from orbitmass.outputs.figures.common import axis_label, mpl_text
 from orbitmass.outputs.registry import register
 from orbitmass.outputs.style import DOUBLE_COLUMN_IN, PALETTE, save_figure, style_context
 from orbitmass.results import Results
 
-__all__ = ["trace_figure", "trace_label"]
+__all__ = ["sampled_text", "trace_figure", "trace_label"]
 
 logger = logging.getLogger(__name__)
 
@@ -52,6 +52,51 @@ _TRACE_LABELS = {
 }
 
 
+#: sampled-variable name -> plain-text symbol (reports and tables), the same variables as above
+_TRACE_TEXT = {
+    "ln_mass": "ln(M/M☉)",
+    "ln_distance": "ln(D/pc)",
+    "ln_parallax": "ln(ϖ/mas)",
+    "ln_period": "ln(P/yr)",
+    "sqrte_cosw": "√e cos ω",
+    "sqrte_sinw": "√e sin ω",
+    "cos_i": "cos i",
+    "node": "Ω [rad]",
+    "omega": "ω [rad]",
+    "mean_longitude": "λ = M₀ + ω [rad]",
+    "mass_ratio": "q",
+    "offset": "Δv [km/s]",
+    "jitter": "σ_jit [km/s]",
+    "ln_jitter": "ln(σ_jit/(km/s))",
+    "x0": "x₀ [mas]",
+    "y0": "y₀ [mas]",
+    "vx0": "ẋ₀ [mas/yr]",
+    "vy0": "ẏ₀ [mas/yr]",
+    "vz0": "v_z,0 [km/s]",
+    "systemic": "v_sys [km/s]",
+}
+
+
+def sampled_text(name: str) -> str:
+    """Plain-text symbol of a sampled variable (companion prefix or instrument suffix kept).
+
+    Examples
+    --------
+    >>> sampled_text("QD-S4.mean_longitude"), sampled_text("offset.south-ifu"), sampled_text("redshift_factor")
+    ('QD-S4: λ = M₀ + ω [rad]', 'south-ifu: Δv [km/s]', 'f_z')
+    """
+    if name in _TRACE_TEXT:
+        return _TRACE_TEXT[name]
+    head, _, tail = name.partition(".")
+    if head in ("offset", "jitter", "ln_jitter"):
+        return f"{tail}: {_TRACE_TEXT[head]}"
+    if tail in _TRACE_TEXT:
+        return f"{head}: {_TRACE_TEXT[tail]}"
+    if name in QUANTITIES:
+        return QUANTITIES[name].text
+    return name
+
+
 def trace_label(name: str) -> str:
     """mathtext label of a sampled variable (companion prefix or instrument suffix kept)."""
     if name in _TRACE_LABELS:
@@ -61,6 +106,8 @@ def trace_label(name: str) -> str:
         return f"{mpl_text(tail)}: {_TRACE_LABELS[head]}"
     if tail in _TRACE_LABELS:  # companion or plane prefix
         return f"{mpl_text(head)}: {_TRACE_LABELS[tail]}"
+    if name in QUANTITIES:  # a term parameter sampled as it is reported (e.g. the redshift factor)
+        return axis_label(name)
     return mpl_text(name)
 
 
