@@ -32,8 +32,6 @@ RANK = {
 
 # module -> imported orbitmass module -> why the import is inside a function (start-up time)
 LOCAL_IMPORTS_ALLOWED = {
-    "orbitmass.model": {"importlib": "deprecated names resolved on first use (module __getattr__)",
-                        "orbitmass.exceptions": "deprecated names resolved on first use"},
     "orbitmass.cli.compare": {"orbitmass.compare": "start-up time of every other command"},
     "orbitmass.cli.demo": {"orbitmass.demo.run": "start-up time of every other command"},
     "orbitmass.fit": {"orbitmass.outputs.plots": "start-up time: matplotlib only when a figure is asked for"},
