@@ -93,6 +93,7 @@ from orbitmass.forecast._common import (
     write_manifest,
 )
 from orbitmass.forecast.predict import predictive_draws
+from orbitmass.outputs.figures.common import TIME_LABEL
 from orbitmass.outputs.style import DOUBLE_COLUMN_IN, PALETTE, save_figure, style_context, write_atomic
 from orbitmass.results import Results
 
@@ -343,7 +344,7 @@ class Plan:
             ax.plot([], [], marker="o", mfc="none", color="black", lw=0,
                     label=f"best {len(mixed)} (any kind), in order;\n{mixed['reduction_pct'].iloc[-1]:.1f} % together"
                     if len(mixed) else "best set")
-            ax.set_ylabel(f"expected reduction of\nsd({self.label}) (%)")
+            ax.set_ylabel(f"expected reduction of\nsd({self.label}) [%]")
             ax.set_ylim(bottom=0)
             ax.set_title(f"{self.target}: one more measurement", loc="left")
             _phase_axis(ax, self.options.get("reference_orbit", {}))
@@ -358,7 +359,7 @@ class Plan:
                     a2.plot(cur["t"], cur["median"], color=col, lw=1.0, label=f"{c} (median, 68 %)")
                 a2.set_ylabel(next(iter(self.curves.values()))["label"])
                 a2.legend(loc="upper left", bbox_to_anchor=(1.01, 1.0), fontsize=7)
-            axes[-1, 0].set_xlabel("epoch (Julian year)")
+            axes[-1, 0].set_xlabel(TIME_LABEL)
         return fig
 
     # ----------------------------------------------------------------- files
@@ -700,5 +701,5 @@ def _context_curves(results, t, names, seed) -> dict:
         use_rv = "rv_kms" in dd and np.isfinite(dd["rv_kms"]).any()
         q = quantiles(dd["rv_kms"] if use_rv else dd["rho_mas"])
         out[c] = {"t": grid, "median": q[0], "q16": q[1], "q84": q[2],
-                  "label": "predicted velocity (km/s)" if use_rv else "predicted separation (mas)"}
+                  "label": r"predicted $v_\mathrm{LOS}$ [km s$^{-1}$]" if use_rv else "predicted separation [mas]"}
     return out

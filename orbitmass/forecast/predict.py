@@ -71,6 +71,7 @@ from orbitmass.forecast._common import (
     strict_json,
     write_manifest,
 )
+from orbitmass.outputs.figures.common import EAST_LABEL, NORTH_LABEL, RV_LABEL, TIME_LABEL
 from orbitmass.outputs.style import DOUBLE_COLUMN_IN, MARKERS, PALETTE, save_figure, style_context, write_atomic
 from orbitmass.results import QUANTILES, Results
 
@@ -374,8 +375,8 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
                             label="positions measured")
             if results.target.frame == "relative":
                 ax.plot([0], [0], marker="+", color="black", ms=7, lw=0, zorder=6, label="central body")
-            ax.set_xlabel("east offset (mas)")
-            ax.set_ylabel("north offset (mas)")
+            ax.set_xlabel(EAST_LABEL.format(unit="mas"))
+            ax.set_ylabel(NORTH_LABEL.format(unit="mas"))
             ax.set_aspect("equal", adjustable="datalim")
             if not ax.xaxis_inverted():
                 ax.invert_xaxis()  # east to the left, as on the sky
@@ -391,8 +392,8 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
                 ax.errorbar(comp.astrometry.t_yr, east, yerr=se, fmt="o", ms=2.2, color=blue, lw=0.5)
                 ax.errorbar(comp.astrometry.t_yr, north, yerr=sn, fmt="s", ms=2.2, color=PALETTE["bluish_green"],
                             lw=0.5)
-            ax.set_xlabel("epoch (Julian year)")
-            ax.set_ylabel("offset (mas)")
+            ax.set_xlabel(TIME_LABEL)
+            ax.set_ylabel("offset [mas]")
             ax.set_title(f"{c}: positions", loc="left")
             time_axes = [ax]
             if with_rv:
@@ -416,8 +417,8 @@ def prediction_figure(results: Results, epochs: ArrayLike, *, events: dict | Non
                 else:
                     ax.text(0.5, 0.5, "no line-of-sight information\nfor this orbital plane", ha="center",
                             va="center", transform=ax.transAxes)
-                ax.set_xlabel("epoch (Julian year)")
-                ax.set_ylabel("line-of-sight velocity (km/s)")
+                ax.set_xlabel(TIME_LABEL)
+                ax.set_ylabel(RV_LABEL)
                 ax.set_title(f"{c}: velocity", loc="left")
                 time_axes.append(ax)
             for ax in time_axes:
