@@ -717,7 +717,7 @@ PROFILE_GROUPS: dict[str, tuple[tuple[str, str], ...]] = {
     "    log prior": (("parameters.py", "log_prior"),),
     "    log likelihood": (("likelihood.py", "log_likelihood"),),
     "      Kepler solver": (("kepler.py", "kepler_cos_sin"), ("kepler.py", "kepler_cos_sin_rows")),
-    "  emcee proposals (DE, snooker)": (("de.py", "get_proposal"), ("de_snooker.py", "get_proposal")),
+    "  emcee proposals (differential evolution)": (("de.py", "get_proposal"), ("de_snooker.py", "get_proposal")),
     "  convergence checks": (("sampler.py", "assess"),),
     "derived samples": (("results.py", "derive_samples"),),
 }
