@@ -89,7 +89,7 @@ from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv, wr
 
 __all__ = ["Design", "CONFIGS", "QUANTITIES", "target_toml", "draw_truth", "draw_truths", "clump_names",
            "write_dataset", "rank_of",
-           "fit_one", "summarise", "run_sbc", "plot_ranks", "format_table", "main"]
+           "record_ranks", "fit_one", "summarise", "run_sbc", "plot_ranks", "format_table", "main"]
 
 log = logging.getLogger(__name__)
 
@@ -274,6 +274,21 @@ def rank_of(truth: float, draws: np.ndarray) -> int:
     return int(np.count_nonzero(np.asarray(draws) < truth))
 
 
+def record_ranks(record: dict, results, truth, rng: np.random.Generator, n_draws: int) -> None:
+    """Put into ``record`` the rank of each truth among ``n_draws`` random posterior draws
+    (Talts et al. 2018, Alg. 1), its summary quantiles, and the fit's convergence diagnostics."""
+    samples, summary = results.samples, results.summary
+    pick = rng.choice(len(samples), size=n_draws, replace=len(samples) < n_draws)
+    for key, (column, attr, _, _) in QUANTITIES.items():
+        block = (summary["companions"][COMPANION][column.split(".", 1)[1]] if "." in column
+                 else summary["derived"][column])
+        record[key] = {"rank": rank_of(getattr(truth, attr), samples[column].to_numpy()[pick]),
+                       **{k: float(v) for k, v in block.items()}}
+    diag = summary["diagnostics"]
+    record["diagnostics"] = {k: diag.get(k) for k in ("converged", "n_steps", "tau_max", "ess_min",
+                                                       "rhat_max", "n_samples")}
+
+
 def fit_one(task: dict) -> dict:
     """Simulate, fit and rank one SBC replicate.
 
@@ -308,17 +323,8 @@ def fit_one(task: dict) -> dict:
     except OrbitmassError as exc:
         record["error"] = str(exc)
         return record
-    samples = fit.results_.samples
-    summary = fit.results_.summary
-    pick = rng.choice(len(samples), size=task["n_draws"], replace=len(samples) < task["n_draws"])
-    for key, (column, attr, _, _) in QUANTITIES.items():
-        block = (summary["companions"][COMPANION][column.split(".", 1)[1]] if "." in column
-                 else summary["derived"][column])
-        record[key] = {"rank": rank_of(getattr(truth, attr), samples[column].to_numpy()[pick]),
-                       **{k: float(v) for k, v in block.items()}}
-    diag = summary["diagnostics"]
-    record["diagnostics"] = {k: diag[k] for k in ("converged", "n_steps", "tau_max", "ess_min",
-                                                   "rhat_max", "n_samples")}
+    record_ranks(record, fit.results_, truth, rng, task["n_draws"])
+    diag = fit.results_.summary["diagnostics"]
     record["diagnostics"]["reference_state"] = diag.get("reference_state", {}).get("companions", [])
     record["wall_seconds"] = time.perf_counter() - t0
     return record

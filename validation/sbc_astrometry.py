@@ -61,7 +61,7 @@ from pathlib import Path
 import numpy as np
 
 from orbitmass.demo.simulate import TrueOrbit, simulate, write_positions_csv
-from validation.sbc import COMPANION, QUANTITIES, format_table, plot_ranks, rank_of, summarise
+from validation.sbc import COMPANION, format_table, plot_ranks, record_ranks, summarise
 
 __all__ = ["AstrometryDesign", "BRANCHES", "target_toml", "draw_truth", "write_dataset", "fit_one",
            "branch_of", "run_study", "main"]
@@ -175,18 +175,8 @@ def fit_one(task: dict) -> dict:
     except OrbitmassError as exc:
         record["error"] = str(exc)
         return record
-    samples = fit.results_.samples
-    summary = fit.results_.summary
-    pick = rng.choice(len(samples), size=task["n_draws"], replace=len(samples) < task["n_draws"])
-    for key, (column, attr, _, _) in QUANTITIES.items():
-        block = (summary["companions"][COMPANION][column.split(".", 1)[1]] if "." in column
-                 else summary["derived"][column])
-        record[key] = {"rank": rank_of(getattr(truth, attr), samples[column].to_numpy()[pick]),
-                       **{k: float(v) for k, v in block.items()}}
-    diag = summary["diagnostics"]
-    record["branch"] = branch_of(diag)
-    record["diagnostics"] = {k: diag.get(k) for k in ("converged", "n_steps", "tau_max", "ess_min",
-                                                       "rhat_max", "n_samples")}
+    record_ranks(record, fit.results_, truth, rng, task["n_draws"])
+    record["branch"] = branch_of(fit.results_.summary["diagnostics"])
     record["wall_seconds"] = time.perf_counter() - t0
     return record
 
