@@ -667,14 +667,20 @@ def expand(post: LinearAstrometryPosterior, theta_lin: NDArray[np.float64],
         ``ln g - ln h``; ``-inf`` outside the mass prior or where the normal
         matrix is singular.
     info : dict
-        ``mass_msun``, ``a_mas``, ``inclination`` (rad), ``beta`` (n, 4).
+        ``mass_msun``, ``a_mas``, ``inclination`` (rad), ``beta`` (n, 4),
+        ``log_likelihood`` (n,): the exact log likelihood of the drawn
+        elements, ``const - (chi2_min + |zeta|^2) / 2`` (the constants are
+        drawn as ``beta_hat + L^-T zeta``), so no row is evaluated again.
     """
     theta_lin = np.atleast_2d(theta_lin)
     n = theta_lin.shape[0]
     sol = post.solve(theta_lin) if solution is None else solution
+    zeta = rng.standard_normal((4, n))
     with np.errstate(invalid="ignore", divide="ignore"):
-        dev = _backward4(sol["chol"], *rng.standard_normal((4, n)))
+        dev = _backward4(sol["chol"], *zeta)
     beta = sol["beta_hat"] + np.stack(dev, axis=1)
+    # chi^2 at beta: chi2_min + (beta - beta_hat)^T N (beta - beta_hat) = chi2_min + |zeta|^2
+    log_like = post.const - 0.5 * (sol["chi2_min"] + np.sum(zeta * zeta, axis=0))
     dist = post.draw_distance(rng, n)
     a_mas, inc, omega, node = thiele_innes_to_campbell(beta[:, 0], beta[:, 1], beta[:, 2], beta[:, 3])
     mass = kepler_mass(a_mas * dist / 1000.0, sol["period"])
@@ -684,7 +690,8 @@ def expand(post: LinearAstrometryPosterior, theta_lin: NDArray[np.float64],
     values = {"mass_msun": mass, "distance_pc": dist, f"{c}.period_yr": sol["period"], f"{c}.ecc": sol["ecc"],
               f"{c}.omega": omega, f"{c}.node": node, f"{c}.cos_i": np.cos(inc), f"{c}.m0": sol["m0"]}
     theta_full = post.space.pack(values)
-    return theta_full, log_w, {"mass_msun": mass, "a_mas": a_mas, "inclination": inc, "beta": beta}
+    return theta_full, log_w, {"mass_msun": mass, "a_mas": a_mas, "inclination": inc, "beta": beta,
+                               "log_likelihood": np.where(sol["ok"], log_like, -np.inf)}
 
 
 def kish_ess(log_weights: NDArray[np.float64]) -> float:
@@ -853,7 +860,7 @@ def pareto_khat(log_weights: NDArray[np.float64]) -> float:
 
 
 def _importance_3d(post: LinearAstrometryPosterior, best, cov, n: int, rng: np.random.Generator,
-                   *, df: float = 4.0, scale: float = 1.3):
+                   *, df: float = 4.0, scale: float = 1.3, stop_flag=None):
     """Draws from a Student t about the 3-D mode (Laplace covariance x ``scale``), their log weights, the solution.
 
     The solution (:meth:`LinearAstrometryPosterior.solve` of the draws) is
@@ -861,7 +868,19 @@ def _importance_3d(post: LinearAstrometryPosterior, best, cov, n: int, rng: np.r
     """
     proposal = stats.multivariate_t(loc=best, shape=cov * scale, df=df, seed=rng)
     x = np.atleast_2d(proposal.rvs(size=n))
-    log_target, sol = post.log_density_and_solution(x)
+    # in batches, so that a stop request is seen within one batch; the draws solved before
+    # it are a valid (smaller) importance sample and are kept
+    per = max(64, post.block_elements * 4 // max(post.t.size, 1))
+    parts: list[tuple[NDArray, dict]] = []
+    for i in range(0, x.shape[0], per):
+        if parts and stop_flag is not None and stop_flag():
+            break
+        parts.append(post.log_density_and_solution(x[i: i + per]))
+    x = x[: sum(p[0].size for p in parts)]
+    log_target = np.concatenate([p[0] for p in parts])
+    sol = {key: (tuple(np.concatenate([p[1][key][j] for p in parts]) for j in range(len(val)))
+                 if isinstance(val, tuple) else np.concatenate([p[1][key] for p in parts]))
+           for key, val in parts[0][1].items()}
     return x, log_target - proposal.logpdf(x), sol
 
 
@@ -884,8 +903,13 @@ def _blocked_log_posterior(post: LogPosterior, theta: NDArray[np.float64], block
     return np.concatenate([post(theta[i: i + per]) for i in range(0, theta.shape[0], per)])
 
 
+#: Draws of :func:`_weighted_result` whose analytic log posterior is checked against the full one.
+N_LOG_POST_CHECK = 8
+
+
 def _weighted_result(space: ParameterSpace, theta: NDArray[np.float64], log_w: NDArray[np.float64],
-                     rng: np.random.Generator, *, block_elements: int = BLOCK_ELEMENTS) -> dict:
+                     rng: np.random.Generator, *, block_elements: int = BLOCK_ELEMENTS,
+                     log_like: NDArray[np.float64] | None = None) -> dict:
     """Angle windows, Kish ESS, systematic resample and the full log posterior of weighted draws.
 
     ``space`` in the result is a new space whose windows are centred on the
@@ -899,7 +923,17 @@ def _weighted_result(space: ParameterSpace, theta: NDArray[np.float64], log_w: N
     kish = kish_ess(log_w)
     pick = systematic_resample(log_w, rng)
     uniq, inverse = np.unique(pick, return_inverse=True)
-    lp_unique = _blocked_log_posterior(LogPosterior(space), theta[uniq], block_elements)
+    if log_like is None:
+        lp_unique = _blocked_log_posterior(LogPosterior(space), theta[uniq], block_elements)
+    else:
+        # the prior of the full layout plus the exact likelihood of expand(); a few draws
+        # are checked against the full log posterior, which evaluates every row
+        lp_unique = space.log_prior(theta[uniq]) + log_like[uniq]
+        probe = np.linspace(0, uniq.size - 1, min(N_LOG_POST_CHECK, uniq.size)).astype(int)
+        full = _blocked_log_posterior(LogPosterior(space), theta[uniq][probe], block_elements)
+        if not np.allclose(lp_unique[probe], full, rtol=1e-8, atol=1e-6):
+            raise LinearPathError("the analytic log posterior of the fast path disagrees with the full one "
+                                  f"(largest difference {float(np.max(np.abs(lp_unique[probe] - full))):.3g})")
     wmax = float(np.max(np.exp(log_w[ok] - np.max(log_w[ok]))) / np.sum(np.exp(log_w[ok] - np.max(log_w[ok]))))
     return {"theta_all": theta, "theta": theta[pick], "log_post": lp_unique[inverse], "kish": kish,
             "frac": kish / max(log_w.size, 1), "n_unique": int(uniq.size), "max_weight_fraction": wmax,
@@ -1007,14 +1041,17 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     if not stopped and method != "mcmc" and (method == "importance" or not init.other_modes):
         t_is = time.perf_counter()
         n_is = int(options.max_retained)
-        x3, lw3, sol3 = _importance_3d(post, init.best, hessian_covariance(post, init.best), n_is, rng)
+        x3, lw3, sol3 = _importance_3d(post, init.best, hessian_covariance(post, init.best), n_is, rng,
+                                       stop_flag=stop_flag)
+        stopped_is = x3.shape[0] < n_is
         khat, kish3 = pareto_khat(lw3), kish_ess(lw3)
         diag.update({"khat_3d": float(khat), "kish_3d": float(kish3), "n_proposal_3d": n_is})
         if method == "importance" or (khat < IS_MAX_KHAT and kish3 >= max(options.min_ess,
                                                                            IS_MIN_KISH_FRACTION * n_is)):
-            theta_all, log_g, _ = expand(post, x3, rng, solution=sol3)
+            theta_all, log_g, info3 = expand(post, x3, rng, solution=sol3)
             del sol3
-            res = _weighted_result(space, theta_all, lw3 + log_g, rng, block_elements=post.block_elements)
+            res = _weighted_result(space, theta_all, lw3 + log_g, rng, block_elements=post.block_elements,
+                                   log_like=info3["log_likelihood"])
             order = rng.permutation(res["theta"].shape[0])
             rows = res["theta"].shape[0] // 64
             chain = res["theta"][order][: rows * 64].reshape(rows, 64, space.ndim)
@@ -1022,14 +1059,14 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
             tau, _, rhat = _chain_diagnostics(chain) if rows >= 8 else (
                 np.ones(space.ndim), None, np.full(space.ndim, np.nan))
             ess = np.full(space.ndim, res["kish"])
-            converged = bool(res["kish"] >= options.min_ess and khat < IS_MAX_KHAT)
+            converged = bool(res["kish"] >= options.min_ess and khat < IS_MAX_KHAT and not stopped_is)
             t_total = time.perf_counter() - t_is
             run = SamplerRun(chain=chain, log_prob=log_prob, acceptance_fraction=float("nan"), burn=0, thin=1,
                              tau=tau, ess=ess, rhat=rhat, converged=converged, n_evaluations=int(post.n_sets),
-                             sampling_seconds=t_total)
+                             sampling_seconds=t_total, interrupted=stopped_is)
             diag.update({
                 "sampler_3d": "importance (Student t about the mode)",
-                "n_weighted": int(n_is), "kish_ess": float(res["kish"]), "kish_fraction": float(res["frac"]),
+                "n_weighted": int(x3.shape[0]), "kish_ess": float(res["kish"]), "kish_fraction": float(res["frac"]),
                 "max_weight_fraction": res["max_weight_fraction"], "n_unique_resampled": res["n_unique"],
                 "ess_mass": float(res["kish"]), "ess_note": "independent draws: ESS = Kish ESS of all weights",
                 "sampling_seconds_3d": float(t_total), "n_evaluations_3d": int(post.n_sets),
@@ -1051,9 +1088,10 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
     offset, burn_rows = run3.burn % thin, run3.burn // thin
     sub3 = run3.chain[offset::thin]
     n_rows = sub3.shape[0]
-    theta_all, log_w_all, _ = expand(post, sub3.reshape(-1, 3), rng)
+    theta_all, log_w_all, info_all = expand(post, sub3.reshape(-1, 3), rng)
     kept = slice(burn_rows * n_w, None)
-    res = _weighted_result(space, theta_all[kept], log_w_all[kept], rng, block_elements=post.block_elements)
+    res = _weighted_result(space, theta_all[kept], log_w_all[kept], rng, block_elements=post.block_elements,
+                           log_like=info_all["log_likelihood"][kept])
     space = res["space"]  # windows centred on the kept draws
     theta_all = space.wrap_angles(theta_all)
     chain_full = theta_all.reshape(n_rows, n_w, space.ndim)

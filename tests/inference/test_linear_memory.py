@@ -111,3 +111,60 @@ def test_many_sets_on_a_long_table_stay_within_the_block_budget(tmp_path):
     # the values are still right: the simulated orbit (validation/simulator.py truth) beats every
     # other set, drawn at random about it
     assert int(np.argmax(lp)) == 0
+
+
+def test_expanded_log_likelihood_is_exact_without_a_second_pass(small_space):
+    """expand()'s closed-form log likelihood, const - (chi2_min + |zeta|^2)/2, against two direct evaluations."""
+    from orbitmass.model.likelihood import LogPosterior
+
+    post = LinearAstrometryPosterior(small_space, rng=np.random.default_rng(5))
+    theta = _sets(post, 40)
+    full, _, info = expand(post, theta, np.random.default_rng(2))
+    ll = info["log_likelihood"]
+    space = small_space.with_windows(small_space.windows_from(full))
+    direct = LogPosterior(space).log_likelihood(space.wrap_angles(full))
+    np.testing.assert_allclose(ll, direct, rtol=1e-10, atol=1e-8)
+    # independent: design matrix with scipy's Newton Kepler solve, Gaussian density summed by numpy
+    # (independent errors in this table; common practice, no source)
+    astro = small_space.target.companions[0].astrometry
+    t = np.asarray(astro.t_yr, float)
+    data = np.concatenate([np.asarray(astro.value2, float), np.asarray(astro.value1, float)])
+    sig = np.concatenate([np.asarray(astro.err2, float), np.asarray(astro.err1, float)])
+    for k in (0, 13, 39):
+        period, ecc, m0 = (float(v[k]) for v in post.physical(theta))
+        mean = np.mod(m0 + 2 * math.pi * (t - small_space.t_ref) / period, 2 * math.pi)
+        big_e = optimize.newton(lambda x: x - ecc * np.sin(x) - mean, mean + ecc * np.sin(mean),
+                                fprime=lambda x: 1 - ecc * np.cos(x), tol=1e-13, maxiter=100)
+        x, y = np.cos(big_e) - ecc, math.sqrt(1 - ecc * ecc) * np.sin(big_e)
+        a_, b_, f_, g_ = info["beta"][k]
+        model = np.concatenate([a_ * x + f_ * y, b_ * x + g_ * y])  # north, east
+        ref = float(np.sum(-0.5 * ((data - model) / sig) ** 2 - np.log(sig) - 0.5 * math.log(2 * math.pi)))
+        assert ll[k] == pytest.approx(ref, rel=1e-10, abs=1e-7)
+
+
+def test_stop_request_during_importance_sampling_keeps_the_draws_solved(tmp_path):
+    """A stop request inside the importance draws ends them within one batch; the run says interrupted."""
+    from orbitmass.inference import linear
+    from orbitmass.inference.sampler import SamplerOptions
+
+    space = ParameterSpace(read_target(write_target(tmp_path, 2000)))
+    calls = {"n": 0, "armed": False}
+    real = linear.LinearAstrometryPosterior.log_density_and_solution
+
+    def counting(self, theta):
+        calls["n"] += 1
+        calls["armed"] = True  # the stop request arrives while the first batch is solved
+        return real(self, theta)
+
+    linear.LinearAstrometryPosterior.log_density_and_solution = counting
+    try:
+        theta, lp, info = linear.fit_linear(space, np.random.default_rng(1),
+                                            SamplerOptions(progress=False, max_retained=40_000),
+                                            method="importance", stop_flag=lambda: calls["armed"])
+    finally:
+        linear.LinearAstrometryPosterior.log_density_and_solution = real
+    per = max(64, linear.BLOCK_ELEMENTS * 4 // 2000)
+    assert calls["n"] == 1  # one batch, not 40000 / per of them
+    assert info["run"].interrupted and not info["run"].converged
+    assert info["diagnostics"]["n_weighted"] == per < 40_000
+    assert theta.shape[0] == per and np.all(np.isfinite(lp))
