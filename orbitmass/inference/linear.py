@@ -908,8 +908,8 @@ N_LOG_POST_CHECK = 8
 
 
 def _weighted_result(space: ParameterSpace, theta: NDArray[np.float64], log_w: NDArray[np.float64],
-                     rng: np.random.Generator, *, block_elements: int = BLOCK_ELEMENTS,
-                     log_like: NDArray[np.float64] | None = None) -> dict:
+                     rng: np.random.Generator, *, log_like: NDArray[np.float64],
+                     block_elements: int = BLOCK_ELEMENTS) -> dict:
     """Angle windows, Kish ESS, systematic resample and the full log posterior of weighted draws.
 
     ``space`` in the result is a new space whose windows are centred on the
@@ -923,17 +923,14 @@ def _weighted_result(space: ParameterSpace, theta: NDArray[np.float64], log_w: N
     kish = kish_ess(log_w)
     pick = systematic_resample(log_w, rng)
     uniq, inverse = np.unique(pick, return_inverse=True)
-    if log_like is None:
-        lp_unique = _blocked_log_posterior(LogPosterior(space), theta[uniq], block_elements)
-    else:
-        # the prior of the full layout plus the exact likelihood of expand(); a few draws
-        # are checked against the full log posterior, which evaluates every row
-        lp_unique = space.log_prior(theta[uniq]) + log_like[uniq]
-        probe = np.linspace(0, uniq.size - 1, min(N_LOG_POST_CHECK, uniq.size)).astype(int)
-        full = _blocked_log_posterior(LogPosterior(space), theta[uniq][probe], block_elements)
-        if not np.allclose(lp_unique[probe], full, rtol=1e-8, atol=1e-6):
-            raise LinearPathError("the analytic log posterior of the fast path disagrees with the full one "
-                                  f"(largest difference {float(np.max(np.abs(lp_unique[probe] - full))):.3g})")
+    # the prior of the full layout plus the exact likelihood of expand(); a few draws are
+    # checked against the full log posterior, which evaluates every row
+    lp_unique = space.log_prior(theta[uniq]) + log_like[uniq]
+    probe = np.linspace(0, uniq.size - 1, min(N_LOG_POST_CHECK, uniq.size)).astype(int)
+    full = _blocked_log_posterior(LogPosterior(space), theta[uniq][probe], block_elements)
+    if not np.allclose(lp_unique[probe], full, rtol=1e-8, atol=1e-6):
+        raise LinearPathError("the analytic log posterior of the fast path disagrees with the full one "
+                              f"(largest difference {float(np.max(np.abs(lp_unique[probe] - full))):.3g})")
     wmax = float(np.max(np.exp(log_w[ok] - np.max(log_w[ok]))) / np.sum(np.exp(log_w[ok] - np.max(log_w[ok]))))
     return {"theta_all": theta, "theta": theta[pick], "log_post": lp_unique[inverse], "kish": kish,
             "frac": kish / max(log_w.size, 1), "n_unique": int(uniq.size), "max_weight_fraction": wmax,
@@ -1043,11 +1040,12 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
         n_is = int(options.max_retained)
         x3, lw3, sol3 = _importance_3d(post, init.best, hessian_covariance(post, init.best), n_is, rng,
                                        stop_flag=stop_flag)
-        stopped_is = x3.shape[0] < n_is
+        n_done = int(x3.shape[0])
+        stopped_is = n_done < n_is  # a stop request: keep the draws solved so far
         khat, kish3 = pareto_khat(lw3), kish_ess(lw3)
         diag.update({"khat_3d": float(khat), "kish_3d": float(kish3), "n_proposal_3d": n_is})
-        if method == "importance" or (khat < IS_MAX_KHAT and kish3 >= max(options.min_ess,
-                                                                           IS_MIN_KISH_FRACTION * n_is)):
+        if method == "importance" or stopped_is or (
+                khat < IS_MAX_KHAT and kish3 >= max(options.min_ess, IS_MIN_KISH_FRACTION * n_done)):
             theta_all, log_g, info3 = expand(post, x3, rng, solution=sol3)
             del sol3
             res = _weighted_result(space, theta_all, lw3 + log_g, rng, block_elements=post.block_elements,
@@ -1066,7 +1064,7 @@ def fit_linear(space: ParameterSpace, rng: np.random.Generator, options, *, n_wa
                              sampling_seconds=t_total, interrupted=stopped_is)
             diag.update({
                 "sampler_3d": "importance (Student t about the mode)",
-                "n_weighted": int(x3.shape[0]), "kish_ess": float(res["kish"]), "kish_fraction": float(res["frac"]),
+                "n_weighted": n_done, "kish_ess": float(res["kish"]), "kish_fraction": float(res["frac"]),
                 "max_weight_fraction": res["max_weight_fraction"], "n_unique_resampled": res["n_unique"],
                 "ess_mass": float(res["kish"]), "ess_note": "independent draws: ESS = Kish ESS of all weights",
                 "sampling_seconds_3d": float(t_total), "n_evaluations_3d": int(post.n_sets),

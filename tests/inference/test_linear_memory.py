@@ -142,7 +142,8 @@ def test_expanded_log_likelihood_is_exact_without_a_second_pass(small_space):
         assert ll[k] == pytest.approx(ref, rel=1e-10, abs=1e-7)
 
 
-def test_stop_request_during_importance_sampling_keeps_the_draws_solved(tmp_path):
+@pytest.mark.parametrize("method", ["importance", "auto"])
+def test_stop_request_during_importance_sampling_keeps_the_draws_solved(tmp_path, monkeypatch, method):
     """A stop request inside the importance draws ends them within one batch; the run says interrupted."""
     from orbitmass.inference import linear
     from orbitmass.inference.sampler import SamplerOptions
@@ -156,13 +157,10 @@ def test_stop_request_during_importance_sampling_keeps_the_draws_solved(tmp_path
         calls["armed"] = True  # the stop request arrives while the first batch is solved
         return real(self, theta)
 
-    linear.LinearAstrometryPosterior.log_density_and_solution = counting
-    try:
-        theta, lp, info = linear.fit_linear(space, np.random.default_rng(1),
-                                            SamplerOptions(progress=False, max_retained=40_000),
-                                            method="importance", stop_flag=lambda: calls["armed"])
-    finally:
-        linear.LinearAstrometryPosterior.log_density_and_solution = real
+    monkeypatch.setattr(linear.LinearAstrometryPosterior, "log_density_and_solution", counting)
+    theta, lp, info = linear.fit_linear(space, np.random.default_rng(1),
+                                        SamplerOptions(progress=False, max_retained=40_000),
+                                        method=method, stop_flag=lambda: calls["armed"])
     per = max(64, linear.BLOCK_ELEMENTS * 4 // 2000)
     assert calls["n"] == 1  # one batch, not 40000 / per of them
     assert info["run"].interrupted and not info["run"].converged
